@@ -1,0 +1,3 @@
+from filtertwin.cli import main
+
+raise SystemExit(main())

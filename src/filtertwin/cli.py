@@ -1,0 +1,153 @@
+"""Command line: argument parsing, exit codes and printing. No computation lives here.
+
+Exit status: 0 success, 1 a check failed (a verdict of FAIL), 2 bad input (one line on
+stderr, no traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+from filtertwin import __version__
+from filtertwin.errors import UserInputError
+
+SAFETY_NOTE = (
+    "Safety: loud playback harms hearing and drivers, and full-range or low-frequency signal "
+    "destroys tweeters. Start quiet. Mains-powered builds follow local electrical codes."
+)
+
+
+def _load(design_arg: str):
+    from filtertwin import examples
+    from filtertwin.design import build_design
+    from filtertwin.spec import load_design
+
+    return build_design(load_design(examples.resolve(design_arg)))
+
+
+def _write_text_atomic(path: Path, text: str, protect: Sequence[Path] = ()) -> None:
+    from filtertwin.recordings import atomic_path
+
+    resolved = path.resolve()
+    for p in protect:
+        if Path(p).resolve() == resolved:
+            raise UserInputError(f"{path}: refusing to overwrite an input file; choose another name")
+    with atomic_path(path) as tmp:
+        Path(tmp).write_text(text, encoding="utf-8")
+
+
+def cmd_design(args: argparse.Namespace) -> int:
+    from filtertwin.report.design_text import BOM_COLUMNS, bom_rows, design_dict, design_table
+    from filtertwin.twin import build_twin
+
+    design = _load(args.design)
+    twin = build_twin(design, args.rate, oversampling=args.oversample) if args.rate else None
+    if args.bom:
+        import io
+
+        buf = io.StringIO()
+        writer = csv.DictWriter(buf, fieldnames=BOM_COLUMNS, lineterminator="\n")
+        writer.writeheader()
+        writer.writerows(bom_rows(design))
+        _write_text_atomic(Path(args.bom), buf.getvalue(), protect=[Path(design.spec.source)])
+    if args.json:
+        print(json.dumps(design_dict(design, twin), indent=2))
+    else:
+        print(design_table(design, twin))
+        if args.bom:
+            print(f"\nparts list written to {args.bom}")
+    return 0
+
+
+def cmd_examples(args: argparse.Namespace) -> int:
+    from filtertwin import examples
+
+    if args.copy:
+        for path in examples.copy_to(Path(args.copy)):
+            print(f"wrote {path}")
+        return 0
+    for name, summary in examples.listing():
+        print(f"  {name:<26s} {summary}")
+    print("\nuse a name wherever a design file goes, e.g. `filtertwin design bookshelf-2way`;")
+    print("`filtertwin examples --copy DIR` copies the files to edit them.")
+    return 0
+
+
+def _oversample(text: str) -> int | str:
+    if text == "auto":
+        return text
+    if text in ("1", "2", "4", "8"):
+        return int(text)
+    raise argparse.ArgumentTypeError("must be 1, 2, 4, 8 or auto")
+
+
+def _positive_float(text: str) -> float:
+    from filtertwin import units
+
+    try:
+        value = units.parse_quantity(text, None)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+    if value <= 0:
+        raise argparse.ArgumentTypeError(f"must be positive, got {text}")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="filtertwin",
+        description=(
+            "Design Sallen-Key active filters with real parts, model the circuit as built, "
+            "and hear or measure it on your own recordings through a digital twin."
+        ),
+        epilog=SAFETY_NOTE,
+    )
+    parser.add_argument("--version", action="version", version=f"filtertwin {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("design", help="stages, parts and as-built response of a design file")
+    p.add_argument("design", help="design file (TOML) or the name of a packaged example")
+    p.add_argument("--json", action="store_true", help="print JSON (SI units) instead of tables")
+    p.add_argument("--bom", metavar="FILE.csv", help="write the parts list as CSV")
+    p.add_argument("--rate", type=_positive_float, help="also build the digital twin at this rate (Hz)")
+    p.add_argument(
+        "--oversample", type=_oversample, default=1, help="twin oversampling: 1, 2, 4, 8 or auto"
+    )
+    p.set_defaults(func=cmd_design)
+
+    p = sub.add_parser("examples", help="list the packaged example designs")
+    p.add_argument("--copy", metavar="DIR", help="copy the example files into DIR")
+    p.set_defaults(func=cmd_examples)
+
+    for register in _extra_commands():
+        register(sub)
+    return parser
+
+
+def _extra_commands() -> list[Callable[[Any], None]]:
+    """Commands that live in their own modules register themselves here."""
+    from filtertwin import commands
+
+    return commands.REGISTRY
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args.func(args))
+    except UserInputError as exc:
+        print(f"filtertwin: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("filtertwin: interrupted", file=sys.stderr)
+        return 130

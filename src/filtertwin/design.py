@@ -1,0 +1,339 @@
+"""The Design: filters -> stages -> parts, and the as-built analog model of each.
+
+``build_design(spec)`` is the one entry point: it turns a validated :class:`DesignSpec`
+(from a file or from keyword arguments) into stages with real parts, analyses every stage
+exactly (ideal and with the amplifier model), orders the stages, computes each stage's
+internal peak gain and collects the warnings an engineer would want before building.
+Nothing here reads or writes files.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from filtertwin import prototypes, sallenkey
+from filtertwin.errors import UserInputError
+from filtertwin.sallenkey import Amplifier, StageCircuit, StageModel
+from filtertwin.spec import AmplifierSpec, DesignSpec, FilterSpec, PartsSpec
+from filtertwin.synthesis import PartRules, SynthesisError, synthesize
+
+# common practice (no single source): gain-bandwidth should be 50x to 100x above K * f0 * Q
+GBW_FACTOR = 50.0
+# common practice: an internal peak more than 3 dB above the passband gain costs headroom
+PEAK_MARGIN_DB = 3.0
+
+
+@dataclass(frozen=True)
+class Target:
+    f0_hz: float
+    q: float  # nan for a first-order stage
+    gain: float
+
+
+@dataclass(frozen=True)
+class Stage:
+    """One built stage: what was asked, what the parts give, and what it does to headroom.
+
+    Attributes
+    ----------
+    circuit : StageCircuit
+        Topology and part values.
+    target : Target or None
+        The synthesis target (None for a stage given by its parts).
+    ideal : StageModel
+        Exact response of the parts with an ideal amplifier.
+    built : StageModel
+        Exact response with the amplifier model (equal to ``ideal`` without one).
+    peak_gain_db : float
+        Largest gain from the filter input to this stage's output, over frequency.
+    clip_input_dbfs : float or None
+        Input level (dBFS peak, sine at the worst frequency) at which this stage's output
+        reaches the amplifier's swing; None without an amplifier model.
+    """
+
+    index: int
+    circuit: StageCircuit
+    target: Target | None
+    ideal: StageModel
+    built: StageModel
+    peak_gain_db: float
+    clip_input_dbfs: float | None
+
+
+@dataclass(frozen=True)
+class Filter:
+    name: str
+    response: str
+    polarity: int
+    stages: tuple[Stage, ...]
+    spec: FilterSpec
+    resembles: prototypes.AlignmentMatch | None
+
+    @property
+    def passband_gain(self) -> float:
+        """Product of the stage gains with an ideal amplifier (sign = polarity)."""
+        return self.polarity * math.prod(s.ideal.gain for s in self.stages)
+
+    def analog_sections(self, amplifier: bool = True) -> list[tuple[np.ndarray, np.ndarray]]:
+        """s-domain sections (order <= 2) whose product is the whole filter.
+
+        With ``amplifier=True`` each stage with an amplifier pole contributes its second-order
+        part and a first-order section for that pole. The polarity is folded into the first.
+        """
+        sections: list[tuple[np.ndarray, np.ndarray]] = []
+        for stage in self.stages:
+            model = stage.built if amplifier else stage.ideal
+            sections += sallenkey.split_sections(model)
+        b0, a0 = sections[0]
+        sections[0] = (self.polarity * b0, a0)
+        return sections
+
+    def frequency_response(self, f_hz: np.ndarray, amplifier: bool = True) -> np.ndarray:
+        """Complex frequency response at ``f_hz`` (Hz)."""
+        return sallenkey.response(self.analog_sections(amplifier), f_hz)
+
+    def group_delay_s(self, f_hz: np.ndarray, amplifier: bool = True) -> np.ndarray:
+        """Exact group delay in seconds: -d(phase)/d(omega) = -Re(b'/b - a'/a) at s = j w."""
+        s = 2j * math.pi * np.asarray(f_hz, float)
+        total = np.zeros(s.shape)
+        for b, a in self.analog_sections(amplifier):
+            db, da = np.polyder(b) if len(b) > 1 else np.zeros(1), np.polyder(a)
+            total -= np.real(np.polyval(db, s) / np.polyval(b, s) - np.polyval(da, s) / np.polyval(a, s))
+        return total
+
+    def characteristic_hz(self) -> tuple[float, float]:
+        """Lowest and highest stage frequency, for choosing plot and check bands."""
+        f = [s.built.f0_hz for s in self.stages]
+        return min(f), max(f)
+
+
+@dataclass(frozen=True)
+class DesignWarning:
+    filter: str
+    stage: int | None  # 1-based, None for the whole filter
+    message: str
+
+    def __str__(self) -> str:
+        where = f"{self.filter}" + (f" stage {self.stage}" if self.stage else "")
+        return f"{where}: {self.message}"
+
+
+@dataclass(frozen=True)
+class Design:
+    spec: DesignSpec
+    amplifier: Amplifier | None
+    filters: tuple[Filter, ...]
+    warnings: tuple[DesignWarning, ...]
+
+    @property
+    def title(self) -> str:
+        return self.spec.title
+
+    def filter(self, name: str) -> Filter:
+        for f in self.filters:
+            if f.name == name:
+                return f
+        names = ", ".join(f.name for f in self.filters)
+        raise UserInputError(f"{self.spec.source}: no filter named {name!r}; filters here: {names}")
+
+
+def amplifier_model(spec: AmplifierSpec | None) -> Amplifier | None:
+    if spec is None:
+        return None
+    return Amplifier(
+        spec.description,
+        spec.gbw_hz,
+        spec.swing_v,
+        spec.slew_v_per_s,
+        spec.noise_v_per_rthz,
+        spec.noise_a_per_rthz,
+        spec.open_loop_gain,
+    )
+
+
+def part_rules(parts: PartsSpec) -> PartRules:
+    return PartRules(
+        resistor_series=parts.resistor_series,
+        capacitor_series=parts.capacitor_series,
+        gain_series=parts.gain_series,
+        resistor_range_ohm=parts.resistor_range_ohm,
+        capacitor_range_f=parts.capacitor_range_f,
+    )
+
+
+def _targets(f: FilterSpec) -> list[tuple[str, Target]]:
+    """(response, target) per stage, before ordering and gain distribution."""
+    out: list[tuple[str, Target]] = []
+    if f.kind == "sections":
+        return [(f.response, Target(s.f0_hz, s.q, 1.0)) for s in f.sections]
+    assert f.alignment is not None and f.order is not None
+    secs = prototypes.sections(
+        f.alignment, f.order, ripple_db=f.ripple_db, bessel_norm=f.bessel_norm
+    )
+    if f.response == "bandpass":
+        plan = [("highpass", f.corner_hz[0]), ("lowpass", f.corner_hz[1])]
+    else:
+        plan = [(f.response, f.corner_hz[0])]
+    for response, corner in plan:
+        for sec in secs:
+            f0 = corner * sec.f0_ratio if response == "lowpass" else corner / sec.f0_ratio
+            out.append((response, Target(f0, sec.q, 1.0)))
+    return out
+
+
+def _ordered(items: list, f: FilterSpec, q_of) -> list:
+    if f.stage_order == "as-listed":
+        return items
+    key = [(0.0 if math.isnan(q_of(it)) else q_of(it)) for it in items]
+    idx = sorted(range(len(items)), key=lambda i: key[i], reverse=f.stage_order == "highest-q-first")
+    return [items[i] for i in idx]
+
+
+def _synthesised_circuits(
+    f: FilterSpec, rules: PartRules, source: str
+) -> list[tuple[StageCircuit, Target]]:
+    targets = _ordered(_targets(f), f, lambda rt: rt[1].q)
+    k_each = f.gain ** (1.0 / len(targets)) if f.topology == "gain" else 1.0
+    result = []
+    for i, (response, t) in enumerate(targets):
+        order = 1 if math.isnan(t.q) else 2
+        topology = f.topology
+        if topology == "equal" and order == 1:
+            topology = "unity"
+        try:
+            circuit = synthesize(response, order, topology, t.f0_hz, t.q, k_each, rules)
+        except SynthesisError as exc:
+            q_txt = "" if order == 1 else f", Q {t.q:.4g}"
+            raise UserInputError(
+                f"{source}: filter '{f.name}' stage {i + 1} ({response}, f0 {t.f0_hz:.5g} Hz"
+                f"{q_txt}): {exc}"
+            ) from None
+        k_target = 3.0 - 1.0 / t.q if topology == "equal" else k_each
+        result.append((circuit, Target(t.f0_hz, t.q, k_target)))
+    return result
+
+
+def _built_circuits(f: FilterSpec) -> list[tuple[StageCircuit, None]]:
+    out = []
+    for s in f.built:
+        p = s.parts
+        circuit = StageCircuit(
+            s.response, s.order, s.topology, r1=p["R1"], c1=p["C1"], r2=p.get("R2"),
+            c2=p.get("C2"), rf=p.get("RF"), rg=p.get("RG"),
+        )  # fmt: skip
+        out.append((circuit, None))
+    return out  # a circuit given by its parts keeps its physical stage order
+
+
+def _frequency_grid(models: list[StageModel]) -> np.ndarray:
+    f = [m.f0_hz for m in models]
+    return np.geomspace(min(f) / 100, max(f) * 100, 4000)
+
+
+def _stages(
+    circuits: list[tuple[StageCircuit, Target | None]], amp: Amplifier | None, full_scale_v: float
+) -> tuple[Stage, ...]:
+    ideal = [sallenkey.analyze(c, None) for c, _ in circuits]
+    built = [sallenkey.analyze(c, amp) if amp else m for (c, _), m in zip(circuits, ideal, strict=True)]
+    grid = _frequency_grid(built)
+    h = np.ones(grid.shape, complex)
+    stages = []
+    for i, ((circuit, target), mi, mb) in enumerate(zip(circuits, ideal, built, strict=True)):
+        h = h * sallenkey.response(sallenkey.split_sections(mb), grid)
+        peak = float(np.max(np.abs(h)))
+        clip = None
+        if amp is not None:
+            clip = 20 * math.log10(amp.swing_v / (full_scale_v * peak))
+        stages.append(Stage(i + 1, circuit, target, mi, mb, 20 * math.log10(peak), clip))
+    return tuple(stages)
+
+
+def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
+    responses = {s.circuit.response for s in stages}
+    if len(responses) != 1:
+        return None
+    secs = []
+    for s in stages:
+        f0 = s.ideal.f0_hz
+        ratio = f0 if s.circuit.response == "lowpass" else 1.0 / f0
+        secs.append(prototypes.Section(s.circuit.order, ratio, s.ideal.q))
+    return prototypes.nearest_alignment(secs)
+
+
+def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[DesignWarning]:
+    out = []
+    lo, hi = parts.resistor_range_ohm
+    passband_db = 20 * math.log10(abs(f.passband_gain))
+    for s in f.stages:
+        for name, value in s.circuit.parts().items():
+            if name.startswith("R") and not lo <= value <= hi:
+                out.append(
+                    DesignWarning(
+                        f.name,
+                        s.index,
+                        f"{name} = {value:.4g} ohm is outside {lo:.4g}..{hi:.4g} ohm "
+                        "(common practice: lower loads the amplifier, higher adds noise)",
+                    )
+                )
+        if amp is not None:
+            q = 0.5 if math.isnan(s.ideal.q) else s.ideal.q
+            need = GBW_FACTOR * s.ideal.gain * s.ideal.f0_hz * max(q, 0.5)
+            if amp.gbw_hz < need:
+                shift = 100 * (s.built.f0_hz / s.ideal.f0_hz - 1)
+                qtxt = "" if math.isnan(s.ideal.q) else f", Q {100 * (s.built.q / s.ideal.q - 1):+.1f} %"
+                out.append(
+                    DesignWarning(
+                        f.name,
+                        s.index,
+                        f"gain-bandwidth {amp.gbw_hz:.3g} Hz is below {GBW_FACTOR:.0f} x K x f0 x Q "
+                        f"= {need:.3g} Hz (common practice); the amplifier moves f0 {shift:+.1f} %{qtxt}",
+                    )
+                )
+        excess = s.peak_gain_db - passband_db
+        if excess > PEAK_MARGIN_DB and s.index < len(f.stages):
+            clip = f"; clips at {s.clip_input_dbfs:.1f} dBFS input" if s.clip_input_dbfs is not None else ""
+            out.append(
+                DesignWarning(
+                    f.name,
+                    s.index,
+                    f"internal peak {excess:.1f} dB above the passband gain eats headroom{clip} "
+                    "(try stage_order = \"lowest-q-first\")",
+                )
+            )
+        if s.clip_input_dbfs is not None and s.clip_input_dbfs < 0:
+            out.append(
+                DesignWarning(
+                    f.name,
+                    s.index,
+                    f"output reaches the amplifier swing at {s.clip_input_dbfs:.1f} dBFS input: "
+                    "a full-scale signal clips here",
+                )
+            )
+    return out
+
+
+def build_design(spec: DesignSpec) -> Design:
+    """Design every filter of a spec: parts, exact analog models, stage order and warnings.
+
+    Raises
+    ------
+    UserInputError
+        A stage target that the topology cannot reach with the allowed parts.
+    """
+    amp = amplifier_model(spec.amplifier)
+    rules = part_rules(spec.parts)
+    filters, warnings = [], []
+    for fs in spec.filters:
+        if fs.kind == "built":
+            circuits: list = _built_circuits(fs)
+        else:
+            circuits = _synthesised_circuits(fs, rules, spec.source)
+        stages = _stages(circuits, amp, spec.full_scale_v)
+        resembles = _resembles(stages) if fs.kind == "built" else None
+        filt = Filter(fs.name, fs.response, fs.polarity, stages, fs, resembles)
+        filters.append(filt)
+        warnings += _warnings(filt, amp, spec.parts)
+    return Design(spec, amp, tuple(filters), tuple(warnings))

@@ -1,0 +1,328 @@
+"""Sallen-Key stages: analysis (parts -> exact s-domain transfer function) and synthesis.
+
+Part names used throughout (the same for every topology):
+
+low-pass second-order stage::
+
+    in --R1--+--R2--+-- (+) amp --+-- out
+             |      |             |
+             C1     C2           RF (gain leg, absent at unity gain)
+        (to out)  (to ground)     |
+                                 RG -- ground
+
+``R1`` is the input resistor, ``R2`` the resistor into the amplifier, ``C1`` the feedback
+capacitor (from the R1/R2 junction to the output) and ``C2`` the capacitor from the amplifier
+input to ground. The high-pass stage swaps the roles: ``C1`` and ``C2`` are in series in the
+signal path, ``R1`` is the feedback resistor and ``R2`` goes to ground. The amplifier's gain
+is ``K = 1 + RF / RG`` (``K = 1`` without RF and RG). A first-order stage is ``R1``/``C1`` (an RC
+low-pass or a CR high-pass) into the same amplifier.
+
+The analysis solves the network's node equations with admittances ``Y1`` (input element),
+``Y2`` (element into the amplifier), ``Y3`` (element to ground) and ``Y4`` (feedback element),
+and the amplifier as ``Vout = G(s) * V+``. With an ideal amplifier ``G = K``; with a single-pole
+amplifier (gain-bandwidth ``wt``, DC open-loop gain ``A0``) ``G(s) = wt / (s + wt/A0 + wt/K)``,
+which adds a pole to the stage and moves its f0 and Q. Solving the two node equations gives::
+
+    H(s) = Y1 Y2 Gn / ((Y1 (Y2 + Y3) + Y2 Y3 + Y4 (Y2 + Y3)) Gd - Y4 Y2 Gn)
+
+with ``G = Gn / Gd``. Every admittance is a polynomial in s (``1/R`` or ``s C``), so the result
+is a ratio of polynomials with no approximation.
+
+References
+----------
+R. P. Sallen, E. L. Key, "A Practical Method of Designing RC Active Filters", IRE Trans.
+Circuit Theory CT-2(1), 1955.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+TOPOLOGIES = ("unity", "equal", "gain")
+RESPONSES = ("lowpass", "highpass")
+
+
+@dataclass(frozen=True)
+class Amplifier:
+    """An operational amplifier described by its figures.
+
+    Attributes
+    ----------
+    description : str
+        Kind of amplifier in plain words, e.g. ``"low-noise bipolar, 10 MHz"``.
+    gbw_hz : float
+        Gain-bandwidth product in Hz.
+    swing_v : float
+        Peak output swing in V (the output clips at +/- swing_v).
+    slew_v_per_s : float
+        Slew rate in V/s.
+    noise_v_per_rthz : float
+        Input voltage noise density in V/sqrt(Hz).
+    noise_a_per_rthz : float
+        Input current noise density in A/sqrt(Hz).
+    open_loop_gain : float
+        DC open-loop gain (linear).
+    """
+
+    description: str
+    gbw_hz: float
+    swing_v: float
+    slew_v_per_s: float
+    noise_v_per_rthz: float
+    noise_a_per_rthz: float
+    open_loop_gain: float = 1e5
+
+
+# Generic presets named by kind. The figures are typical of each kind of amplifier
+# (common practice, no single source); none describes a particular product.
+AMPLIFIER_PRESETS: dict[str, Amplifier] = {
+    "general-purpose bipolar": Amplifier(
+        "general-purpose bipolar, 1 MHz", 1e6, 13.0, 0.5e6, 20e-9, 0.5e-12, 2e5
+    ),
+    "general-purpose JFET input": Amplifier(
+        "general-purpose JFET input, 3 MHz", 3e6, 13.5, 13e6, 18e-9, 0.01e-12, 2e5
+    ),
+    "low-noise bipolar": Amplifier(
+        "low-noise bipolar, 10 MHz", 10e6, 13.0, 7e6, 3.2e-9, 0.6e-12, 1e6
+    ),
+    "audio dual bipolar": Amplifier(
+        "low-distortion audio dual, bipolar, 20 MHz", 20e6, 13.5, 8e6, 4.5e-9, 1.6e-12, 3e5
+    ),
+    "rail-to-rail CMOS 5 V": Amplifier(
+        "rail-to-rail CMOS on a 5 V supply, 10 MHz", 10e6, 2.45, 7e6, 9e-9, 1e-15, 1e5
+    ),
+}
+
+
+@dataclass(frozen=True)
+class StageCircuit:
+    """One buildable stage: its topology and its part values (ohm, farad).
+
+    Attributes
+    ----------
+    response : {"lowpass", "highpass"}
+    order : {1, 2}
+    topology : {"unity", "equal", "gain"}
+        ``"unity"``: the amplifier is a follower (K = 1). ``"equal"``: equal-component stage,
+        R1 = R2 and C1 = C2, Q set by the gain K = 3 - 1/Q. ``"gain"``: any K >= 1.
+    r1, c1, r2, c2 : float
+        The RC network (``r2``/``c2`` are None for a first-order stage).
+    rf, rg : float or None
+        Gain resistors, K = 1 + rf / rg; None at unity gain.
+    """
+
+    response: str
+    order: int
+    topology: str
+    r1: float
+    c1: float
+    r2: float | None = None
+    c2: float | None = None
+    rf: float | None = None
+    rg: float | None = None
+
+    @property
+    def gain(self) -> float:
+        """The amplifier's closed-loop gain K with an ideal amplifier."""
+        if self.rf is None or self.rg is None:
+            return 1.0
+        return 1.0 + self.rf / self.rg
+
+    def parts(self) -> dict[str, float]:
+        """Part values by designator within the stage (only the parts that exist)."""
+        names = {"R1": self.r1, "R2": self.r2, "C1": self.c1, "C2": self.c2}
+        names |= {"RF": self.rf, "RG": self.rg}
+        return {k: float(v) for k, v in names.items() if v is not None}
+
+    def with_parts(self, **values: float) -> StageCircuit:
+        """A copy with some part values replaced (keys R1, R2, C1, C2, RF, RG)."""
+        return replace(self, **{k.lower(): float(v) for k, v in values.items()})
+
+
+@dataclass(frozen=True)
+class StageModel:
+    """The exact analog behaviour of one stage.
+
+    Attributes
+    ----------
+    b, a : ndarray
+        Numerator and denominator polynomials in s (rad/s), highest power first.
+    f0_hz, q : float
+        Natural frequency and Q of the dominant pole pair (second-order stage) or the corner
+        of the first-order stage (q is nan).
+    gain : float
+        Passband gain magnitude (DC for low-pass, high frequency for high-pass, ideal amplifier
+        limit when an amplifier model adds roll-off).
+    extra_pole_hz : float or None
+        The pole added by the amplifier's finite gain-bandwidth, when modelled.
+    """
+
+    b: np.ndarray
+    a: np.ndarray
+    f0_hz: float
+    q: float
+    gain: float
+    extra_pole_hz: float | None
+
+
+def _admittances(c: StageCircuit) -> tuple[np.ndarray, ...]:
+    """Y1..Y4 as s-polynomials (highest power first) for a second-order stage."""
+    assert c.r2 is not None and c.c2 is not None
+    if c.response == "lowpass":
+        return (
+            np.array([1.0 / c.r1]),
+            np.array([1.0 / c.r2]),
+            np.array([c.c2, 0.0]),
+            np.array([c.c1, 0.0]),
+        )
+    return (
+        np.array([c.c1, 0.0]),
+        np.array([c.c2, 0.0]),
+        np.array([1.0 / c.r2]),
+        np.array([1.0 / c.r1]),
+    )
+
+
+def amplifier_polynomials(k: float, amp: Amplifier | None) -> tuple[np.ndarray, np.ndarray]:
+    """Closed-loop non-inverting gain G(s) = Gn / Gd of an amplifier set to gain ``k``.
+
+    Ideal: G = k. Single-pole model: A(s) = wt / (s + wt / A0), feedback fraction 1/k, so
+    G(s) = wt / (s + wt / A0 + wt / k).
+    """
+    if amp is None:
+        return np.array([k]), np.array([1.0])
+    wt = 2.0 * math.pi * amp.gbw_hz
+    return np.array([wt]), np.array([1.0, wt / amp.open_loop_gain + wt / k])
+
+
+def transfer_function(c: StageCircuit, amp: Amplifier | None = None) -> tuple[np.ndarray, ...]:
+    """Exact s-domain transfer function of a stage from its parts.
+
+    Parameters
+    ----------
+    c : StageCircuit
+        The stage.
+    amp : Amplifier, optional
+        Amplifier model; None for an ideal amplifier.
+
+    Returns
+    -------
+    b, a : ndarray
+        Polynomials in s (rad/s), highest power first, normalised so that ``a[0] == 1``.
+    """
+    gn, gd = amplifier_polynomials(c.gain, amp)
+    if c.order == 1:
+        rc = c.r1 * c.c1
+        net_b = np.array([1.0]) if c.response == "lowpass" else np.array([rc, 0.0])
+        b = np.polymul(net_b, gn)
+        a = np.polymul(np.array([rc, 1.0]), gd)
+    else:
+        y1, y2, y3, y4 = _admittances(c)
+        y23 = np.polyadd(y2, y3)
+        load = np.polyadd(np.polyadd(np.polymul(y1, y23), np.polymul(y2, y3)), np.polymul(y4, y23))
+        a = np.polysub(np.polymul(load, gd), np.polymul(np.polymul(y4, y2), gn))
+        b = np.polymul(np.polymul(y1, y2), gn)
+    a = np.trim_zeros(np.asarray(a, float), "f")
+    b = np.trim_zeros(np.asarray(b, float), "f")
+    return b / a[0], a / a[0]
+
+
+def _dominant_pair(a: np.ndarray) -> tuple[float, float, float | None]:
+    """f0 (Hz), Q and the extra real pole (Hz) from a 2nd- or 3rd-order denominator."""
+    roots = np.roots(a)
+    if len(roots) == 2:
+        extra = None
+        pair = roots
+    else:
+        order = np.argsort(np.abs(roots))
+        # the amplifier pole is the fastest real root
+        real_idx = [i for i in order if abs(roots[i].imag) < 1e-9 * abs(roots[i])]
+        far = real_idx[-1] if real_idx else order[-1]
+        extra = float(abs(roots[far])) / (2 * math.pi)
+        pair = np.delete(roots, far)
+    w0 = math.sqrt(abs(float(np.real(pair[0] * pair[1]))))
+    sum_re = -float(np.real(pair[0] + pair[1]))
+    q = w0 / sum_re if sum_re > 0 else math.inf
+    return w0 / (2 * math.pi), q, extra
+
+
+def analyze(c: StageCircuit, amp: Amplifier | None = None) -> StageModel:
+    """The as-built stage: exact transfer function, f0, Q and passband gain.
+
+    Parameters
+    ----------
+    c : StageCircuit
+        The stage with its actual part values.
+    amp : Amplifier, optional
+        Amplifier model (finite gain-bandwidth); None for an ideal amplifier.
+
+    Returns
+    -------
+    StageModel
+
+    Examples
+    --------
+    >>> m = analyze(StageCircuit("lowpass", 2, "unity", r1=10e3, c1=22e-9, r2=10e3, c2=10e-9))
+    >>> round(m.f0_hz, 1), round(m.q, 4)
+    (1073.0, 0.7416)
+    """
+    b, a = transfer_function(c, amp)
+    ideal_b, ideal_a = transfer_function(c, None)
+    if c.response == "lowpass":
+        gain = abs(ideal_b[-1] / ideal_a[-1])
+    else:
+        gain = abs(ideal_b[0] / ideal_a[0])
+    if c.order == 1:
+        roots = np.roots(a)
+        idx = np.argsort(np.abs(roots))
+        f0 = float(abs(roots[idx[0]])) / (2 * math.pi)
+        extra = float(abs(roots[idx[-1]])) / (2 * math.pi) if len(roots) > 1 else None
+        return StageModel(b, a, f0, math.nan, gain, extra)
+    f0, q, extra = _dominant_pair(a)
+    return StageModel(b, a, f0, q, gain, extra)
+
+
+def ideal_f0_q(c: StageCircuit) -> tuple[float, float]:
+    """Textbook closed forms for f0 (Hz) and Q of a second-order stage with gain K.
+
+    Low-pass: w0 = 1/sqrt(R1 R2 C1 C2), Q = sqrt(R1 R2 C1 C2) / (C2 (R1 + R2) + R1 C1 (1 - K)).
+    High-pass: w0 the same, 1/Q = sqrt(R1 R2 C1 C2) ((C1 + C2) / (R2 C1 C2) + (1 - K)/(R1 C1)).
+    """
+    assert c.r2 is not None and c.c2 is not None
+    t = math.sqrt(c.r1 * c.r2 * c.c1 * c.c2)
+    k = c.gain
+    if c.response == "lowpass":
+        q = t / (c.c2 * (c.r1 + c.r2) + c.r1 * c.c1 * (1 - k))
+    else:
+        q = 1.0 / (t * ((c.c1 + c.c2) / (c.r2 * c.c1 * c.c2) + (1 - k) / (c.r1 * c.c1)))
+    return 1.0 / (2 * math.pi * t), q
+
+
+def split_sections(model: StageModel) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Factor a stage's transfer function into sections of order <= 2.
+
+    A stage with an amplifier pole (third-order denominator) becomes its second-order part
+    (carrying the numerator and the stage's gain) followed by a first-order low-pass section
+    with unity DC gain for the amplifier pole. Other stages are returned whole.
+    """
+    b, a = model.b, model.a
+    if len(a) <= 3:
+        return [(b, a)]
+    p = -2 * math.pi * (model.extra_pole_hz or 0.0)
+    a2, rem = np.polydiv(a, np.array([1.0, -p]))
+    a2 = np.real(a2)
+    first = (np.array([-p]), np.array([1.0, -p]))
+    b2 = b / -p
+    return [(b2, a2), first]
+
+
+def response(sections: list[tuple[np.ndarray, np.ndarray]], f_hz: np.ndarray) -> np.ndarray:
+    """Complex frequency response of a cascade of s-domain sections at ``f_hz``."""
+    s = 2j * math.pi * np.asarray(f_hz, float)
+    h = np.ones_like(s)
+    for b, a in sections:
+        h = h * np.polyval(b, s) / np.polyval(a, s)
+    return h

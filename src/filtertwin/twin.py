@@ -1,0 +1,269 @@
+"""Digital twin: each analog section of the as-built model -> one digital biquad.
+
+Every section is mapped by the bilinear transform prewarped at its own characteristic
+frequency (f0 of a second-order section, the corner of a first-order one), so each section's
+f0 lands exactly where the analog one is. The result is a scipy-style SOS array ``(n, 6)``
+with ``a0 == 1``. The fidelity report compares the twin with the analog model it came from.
+
+References
+----------
+A. V. Oppenheim, R. W. Schafer, Discrete-Time Signal Processing, 3rd ed., section 7.1.2
+(bilinear transformation and frequency prewarping).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from filtertwin import sallenkey
+from filtertwin.design import Design, Filter
+from filtertwin.errors import UserInputError
+
+# A dB or degree difference means nothing this far below the peak: below it the complex
+# error relative to the peak is reported instead.
+FIDELITY_WINDOW_DB = 60.0
+OVERSAMPLING_FACTORS = (1, 2, 4, 8)
+
+
+@dataclass(frozen=True)
+class Fidelity:
+    """Largest twin-vs-analog deviation over a band.
+
+    Attributes
+    ----------
+    max_db, max_deg : float
+        Largest magnitude (dB) and phase (degrees) difference where the analog response is
+        within 60 dB of its peak.
+    at_hz : float
+        Frequency of the largest magnitude difference.
+    at_deg_hz : float
+        Frequency of the largest phase difference.
+    band_hz : (float, float)
+        The band examined.
+    stopband_error_db : float or None
+        Largest |H_twin - H_analog| relative to the peak gain (dB) where the analog response
+        is more than 60 dB below its peak; None when the band has no such part.
+    """
+
+    max_db: float
+    max_deg: float
+    at_hz: float
+    at_deg_hz: float
+    band_hz: tuple[float, float]
+    stopband_error_db: float | None
+
+    def within(self, tol_db: float, tol_deg: float) -> bool:
+        return self.max_db <= tol_db and self.max_deg <= tol_deg
+
+
+@dataclass(frozen=True)
+class FilterTwin:
+    """One filter's digital twin.
+
+    Attributes
+    ----------
+    name : str
+    rate_hz : float
+        The rate the sections run at (the input rate times ``oversampling``).
+    sos : ndarray (n, 6)
+    clip_fs : ndarray (n,)
+        Output swing of the stage ending at each section, in full-scale units (inf where a
+        section is not a stage output or no amplifier is modelled).
+    stage_of_section : tuple of int
+        1-based stage number of each section.
+    fidelity : Fidelity
+    """
+
+    name: str
+    rate_hz: float
+    sos: np.ndarray
+    clip_fs: np.ndarray
+    stage_of_section: tuple[int, ...]
+    fidelity: Fidelity
+
+
+@dataclass(frozen=True)
+class Twin:
+    input_rate_hz: float
+    oversampling: int
+    filters: tuple[FilterTwin, ...]
+
+    @property
+    def rate_hz(self) -> float:
+        return self.input_rate_hz * self.oversampling
+
+    def chains(self) -> list[np.ndarray]:
+        return [f.sos for f in self.filters]
+
+    def clip_levels(self) -> list[np.ndarray]:
+        return [f.clip_fs for f in self.filters]
+
+
+def characteristic_hz(b: np.ndarray, a: np.ndarray) -> float:
+    """f0 of a second-order section or the corner of a first-order one, in Hz (a[0] == 1)."""
+    a = np.asarray(a, float) / a[0]
+    w = math.sqrt(a[2]) if len(a) == 3 else a[1]
+    return w / (2 * math.pi)
+
+
+def bilinear_section(b: np.ndarray, a: np.ndarray, rate_hz: float, warp_hz: float) -> np.ndarray:
+    """One analog section (order <= 2) -> one SOS row, prewarped at ``warp_hz``.
+
+    The substitution is s = c (1 - z^-1)/(1 + z^-1) with c = w / tan(w / (2 fs)), w = 2 pi
+    warp_hz, so the analog response at ``warp_hz`` appears unchanged at the same digital
+    frequency (Oppenheim & Schafer 7.1.2).
+    """
+    w = 2 * math.pi * warp_hz
+    c = w / math.tan(w / (2 * rate_hz))
+    bb = np.zeros(3)
+    aa = np.zeros(3)
+    bb[3 - len(b) :] = b
+    aa[3 - len(a) :] = a
+    c2 = c * c
+
+    def z_poly(p: np.ndarray) -> np.ndarray:
+        p2, p1, p0 = p  # coefficients of s^2, s, 1
+        return np.array(
+            [p2 * c2 + p1 * c + p0, 2 * (p0 - p2 * c2), p2 * c2 - p1 * c + p0], dtype=float
+        )
+
+    num, den = z_poly(bb), z_poly(aa)
+    return np.concatenate([num / den[0], den / den[0]])
+
+
+def default_band_hz(rate_hz: float) -> tuple[float, float]:
+    """20 Hz to min(20 kHz, 0.45 fs) at audio rates; otherwise 0 (1e-3 fs) to 0.45 fs."""
+    if rate_hz >= 32000:
+        return 20.0, min(20000.0, 0.45 * rate_hz)
+    return 1e-3 * rate_hz, 0.45 * rate_hz
+
+
+def _filter_sos(f: Filter, rate_hz: float, amplifier: bool, band_top_hz: float, source: str):
+    nyquist = rate_hz / 2
+    rows, stage_of = [], []
+    for stage in f.stages:
+        if stage.built.f0_hz >= nyquist:
+            raise UserInputError(
+                f"{source}: filter '{f.name}' stage {stage.index} f0 {stage.built.f0_hz:.5g} Hz "
+                f"is at or above the Nyquist frequency {nyquist:.5g} Hz of the {rate_hz:.5g} Hz "
+                "twin; raise --rate or lower the corner"
+            )
+    sections = f.analog_sections(amplifier)
+    k = 0
+    for stage in f.stages:
+        model = stage.built if amplifier else stage.ideal
+        for _ in sallenkey.split_sections(model):
+            b, a = sections[k]
+            fc = characteristic_hz(b, a)
+            warp = fc if fc < 0.49 * rate_hz else min(band_top_hz, 0.45 * rate_hz)
+            rows.append(bilinear_section(b, a, rate_hz, warp))
+            stage_of.append(stage.index)
+            k += 1
+    sos = np.array(rows)
+    if f.response == "bandpass":
+        fc = math.sqrt(f.spec.corner_hz[0] * f.spec.corner_hz[1])
+        target = abs(f.frequency_response(np.array([fc]), amplifier)[0])
+        sos[0, :3] *= target / abs(_sos_response(sos, np.array([fc]), rate_hz)[0])
+    return sos, tuple(stage_of)
+
+
+def _sos_response(sos: np.ndarray, f_hz: np.ndarray, rate_hz: float) -> np.ndarray:
+    z1 = np.exp(-2j * math.pi * np.asarray(f_hz, float) / rate_hz)
+    h = np.ones(z1.shape, complex)
+    for b0, b1, b2, _, a1, a2 in sos:
+        h *= (b0 + b1 * z1 + b2 * z1 * z1) / (1 + a1 * z1 + a2 * z1 * z1)
+    return h
+
+
+def measure_fidelity(
+    f: Filter, sos: np.ndarray, rate_hz: float, band_hz: tuple[float, float], amplifier: bool = True
+) -> Fidelity:
+    """Compare the twin with the analog model over ``band_hz`` (see :class:`Fidelity`)."""
+    lo, hi = band_hz
+    grid = np.geomspace(max(lo, 1e-6 * rate_hz), hi, 4000)
+    ha = f.frequency_response(grid, amplifier)
+    hd = _sos_response(sos, grid, rate_hz)
+    mag_a = np.abs(ha)
+    peak = float(np.max(mag_a))
+    inside = mag_a >= peak * 10 ** (-FIDELITY_WINDOW_DB / 20)
+    ratio = hd[inside] / ha[inside]
+    db = np.abs(20 * np.log10(np.abs(ratio)))
+    deg = np.abs(np.degrees(np.angle(ratio)))
+    i = int(np.argmax(db))
+    j = int(np.argmax(deg))
+    stop = None
+    if np.any(~inside):
+        err = np.max(np.abs(hd[~inside] - ha[~inside])) / peak
+        stop = float(20 * math.log10(max(err, 1e-300)))
+    f_in = grid[inside]
+    return Fidelity(float(db[i]), float(deg[j]), float(f_in[i]), float(f_in[j]), (lo, hi), stop)
+
+
+def build_twin(
+    design: Design,
+    rate_hz: float,
+    *,
+    oversampling: int | str = 1,
+    band_hz: tuple[float, float] | None = None,
+    amplifier: bool = True,
+    tol_db: float = 0.1,
+    tol_deg: float = 1.0,
+    filters: list[str] | None = None,
+) -> Twin:
+    """The digital twin of a design at ``rate_hz``.
+
+    Parameters
+    ----------
+    design : Design
+    rate_hz : float
+        Rate of the signal that will be filtered, Hz.
+    oversampling : int or "auto"
+        Run the twin at ``rate_hz * oversampling``. ``"auto"`` picks the smallest of 1, 2, 4,
+        8 whose fidelity over the band is within ``tol_db`` and ``tol_deg`` for every filter
+        (8 if none is).
+    band_hz : (float, float), optional
+        Band of interest for the fidelity report (default: :func:`default_band_hz`).
+    amplifier : bool
+        Include the amplifier model (finite gain-bandwidth) when the design has one.
+    filters : list of str, optional
+        Names of the filters to include (default all).
+
+    Raises
+    ------
+    UserInputError
+        A stage whose f0 is at or above the twin's Nyquist frequency.
+    """
+    if rate_hz <= 0 or not math.isfinite(rate_hz):
+        raise UserInputError(f"sample rate {rate_hz!r} Hz is not positive; give a rate like 48000")
+    chosen = [design.filter(n) for n in filters] if filters else list(design.filters)
+    band = band_hz or default_band_hz(rate_hz)
+    use_amp = amplifier and design.amplifier is not None
+    factors = OVERSAMPLING_FACTORS if oversampling == "auto" else (int(oversampling),)
+    result: Twin | None = None
+    for factor in factors:
+        twins = []
+        run_rate = rate_hz * factor
+        for f in chosen:
+            sos, stage_of = _filter_sos(f, run_rate, use_amp, band[1], design.spec.source)
+            fid = measure_fidelity(f, sos, run_rate, band, use_amp)
+            twins.append(FilterTwin(f.name, run_rate, sos, _clip_levels(design, stage_of), stage_of, fid))
+        result = Twin(rate_hz, factor, tuple(twins))
+        if all(t.fidelity.within(tol_db, tol_deg) for t in twins):
+            break
+    assert result is not None
+    return result
+
+
+def _clip_levels(design: Design, stage_of: tuple[int, ...]) -> np.ndarray:
+    levels = np.full(len(stage_of), np.inf)
+    if design.amplifier is None:
+        return levels
+    limit = design.amplifier.swing_v / design.spec.full_scale_v
+    for i, stage in enumerate(stage_of):
+        last = i == len(stage_of) - 1 or stage_of[i + 1] != stage
+        if last:
+            levels[i] = limit
+    return levels
