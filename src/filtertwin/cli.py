@@ -134,7 +134,7 @@ def _extra_commands() -> list[Callable[[Any], None]]:
     """Commands that live in their own modules register themselves here."""
     from filtertwin import commands
 
-    return commands.REGISTRY
+    return commands.registrars()
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -304,19 +304,17 @@ def ideal_f0_q(c: StageCircuit) -> tuple[float, float]:
 def split_sections(model: StageModel) -> list[tuple[np.ndarray, np.ndarray]]:
     """Factor a stage's transfer function into sections of order <= 2.
 
-    A stage with an amplifier pole (third-order denominator) becomes its second-order part
-    (carrying the numerator and the stage's gain) followed by a first-order low-pass section
-    with unity DC gain for the amplifier pole. Other stages are returned whole.
+    A stage with an amplifier pole becomes its own network part (carrying the numerator and
+    the stage's gain) followed by a first-order low-pass section with unity DC gain for the
+    amplifier pole. A stage without one is returned whole.
     """
     b, a = model.b, model.a
-    if len(a) <= 3:
+    if model.extra_pole_hz is None:
         return [(b, a)]
-    p = -2 * math.pi * (model.extra_pole_hz or 0.0)
-    a2, rem = np.polydiv(a, np.array([1.0, -p]))
-    a2 = np.real(a2)
+    p = -2 * math.pi * model.extra_pole_hz
+    rest, _ = np.polydiv(a, np.array([1.0, -p]))
     first = (np.array([-p]), np.array([1.0, -p]))
-    b2 = b / -p
-    return [(b2, a2), first]
+    return [(b / -p, np.real(rest)), first]
 
 
 def response(sections: list[tuple[np.ndarray, np.ndarray]], f_hz: np.ndarray) -> np.ndarray:

@@ -56,8 +56,9 @@ class PartRules:
 # Score weights: f0 and Q errors dominate; spread and impedance only break near-ties.
 _W_SPREAD = 1e-3
 _W_CENTRE = 1e-4
-# A stage whose best rounding still misses f0 or Q by more than this cannot be built.
-_MAX_LOG_ERROR = math.log(1.05)
+# A stage whose best rounding still misses f0 plus Q by more than this (log sum, about 2 %)
+# cannot be built as asked: the target is out of reach of the allowed parts.
+_MAX_LOG_ERROR = math.log(1.02)
 
 
 def choose_gain_resistors(k: float, rules: PartRules) -> tuple[float, float] | None:
@@ -147,7 +148,7 @@ def synthesize(
     Raises
     ------
     SynthesisError
-        When no combination of allowed parts reaches the target within 5 %.
+        When no combination of allowed parts reaches the target within about 2 %.
     """
     if topology == "unity":
         k = 1.0

@@ -118,19 +118,21 @@ def bilinear_section(b: np.ndarray, a: np.ndarray, rate_hz: float, warp_hz: floa
     """
     w = 2 * math.pi * warp_hz
     c = w / math.tan(w / (2 * rate_hz))
-    bb = np.zeros(3)
-    aa = np.zeros(3)
-    bb[3 - len(b) :] = b
-    aa[3 - len(a) :] = a
-    c2 = c * c
-
-    def z_poly(p: np.ndarray) -> np.ndarray:
-        p2, p1, p0 = p  # coefficients of s^2, s, 1
-        return np.array(
-            [p2 * c2 + p1 * c + p0, 2 * (p0 - p2 * c2), p2 * c2 - p1 * c + p0], dtype=float
-        )
-
-    num, den = z_poly(bb), z_poly(aa)
+    b = np.asarray(b, float)
+    a = np.asarray(a, float)
+    if len(a) == 2:
+        # first order: (b1 s + b0) / (a1 s + a0) -> (b1 c + b0 + (b0 - b1 c) z^-1) / (...)
+        b1, b0 = np.concatenate([np.zeros(2 - len(b)), b])
+        a1, a0 = a
+        num = np.array([b1 * c + b0, b0 - b1 * c, 0.0])
+        den = np.array([a1 * c + a0, a0 - a1 * c, 0.0])
+    else:
+        bb = np.concatenate([np.zeros(3 - len(b)), b])
+        c2 = c * c
+        num = np.array([bb[0] * c2 + bb[1] * c + bb[2], 2 * (bb[2] - bb[0] * c2),
+                        bb[0] * c2 - bb[1] * c + bb[2]])  # fmt: skip
+        den = np.array([a[0] * c2 + a[1] * c + a[2], 2 * (a[2] - a[0] * c2),
+                        a[0] * c2 - a[1] * c + a[2]])  # fmt: skip
     return np.concatenate([num / den[0], den / den[0]])
 
 

@@ -1,0 +1,12 @@
+"""Live listening: output safety, the selection mixer, loudness matching, blind trials,
+key commands and audio devices.
+
+Modules (import the one you need; none imports sounddevice at import time):
+
+- ``safety``: start-muted level ramp and hard output ceiling (compiled, in place).
+- ``mixer``: which candidate, way or the dry input is heard, with equal-gain crossfades.
+- ``loudness``: ITU-R BS.1770-4 integrated loudness, to level-match candidates.
+- ``blind``: ABX and blind preference trials, their log and exact binomial score.
+- ``keys``: key table, timed command scripts and the terminal key reader.
+- ``devices``: listing and choosing sounddevice devices, with one-line errors.
+"""

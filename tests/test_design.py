@@ -1,0 +1,140 @@
+"""Whole designs: the as-built cascade against scipy's analog prototypes and Linkwitz 1976."""
+
+import math
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from filtertwin.design import build_design
+from filtertwin.spec import parse_design
+
+
+def design(parts=None, **filt):
+    table = {"name": "f", **filt}
+    data = {"filter": [table], "parts": parts or {}}
+    return build_design(parse_design(data, "<test>")).filters[0]
+
+
+def db(h):
+    return 20 * np.log10(np.abs(h))
+
+
+CORNER = 1000.0
+F = CORNER * np.geomspace(0.1, 10, 81)
+
+
+def scipy_reference(kind, order, btype, **kw):
+    w = 2 * math.pi * CORNER
+    if kind == "butterworth":
+        b, a = signal.butter(order, w, btype, analog=True)
+    elif kind == "bessel":
+        b, a = signal.bessel(order, w, btype, analog=True, norm=kw["norm"])
+    else:
+        b, a = signal.cheby1(order, kw["ripple"], w, btype, analog=True)
+        if order % 2 == 0:
+            # circuit stages have unity DC gain; scipy scales even orders to 0 dB peak
+            b = b * 10 ** (kw["ripple"] / 20)
+    return signal.freqs(b, a, worN=2 * math.pi * F)[1]
+
+
+CASES = (
+    [("butterworth", n, {}) for n in range(1, 11)]
+    + [("bessel", n, {"norm": norm}) for n in (2, 3, 4, 6, 9) for norm in ("mag", "phase", "delay")]
+    + [("chebyshev", n, {"ripple": r}) for n in (2, 3, 5, 8) for r in (0.5, 1.0)]
+)
+
+
+@pytest.mark.parametrize("btype", ["lowpass", "highpass"])
+@pytest.mark.parametrize("kind,order,kw", CASES)
+def test_as_built_cascade_matches_scipy_analog_prototype(kind, order, kw, btype):
+    spec = {"response": btype, "alignment": kind, "order": order, "corner": CORNER}
+    if kind == "bessel":
+        spec["bessel_norm"] = kw["norm"]
+    if kind == "chebyshev":
+        spec["ripple_db"] = kw["ripple"]
+    if kind == "chebyshev" and order >= 5:
+        # Q up to 14: a unity-gain stage would need a part spread of 4 Q^2 = 800, and an
+        # equal-component stage a gain accurate to 0.05 %; stages with K = 2 reach it
+        spec["topology"] = "gain"
+        spec["gain"] = 2.0 ** math.ceil(order / 2)
+    f = design(**spec)
+    ref = scipy_reference(kind, order, btype, **kw)  # scipy.signal butter/bessel/cheby1 analog
+    ours = f.frequency_response(F) / f.passband_gain
+    in_view = db(ref) > -40
+    # standard parts move each stage by well under 1 %: within 0.35 dB where the response is
+    # above -40 dB (a high-Q Chebyshev stage is the most sensitive)
+    # and an edge of a Q > 5 Chebyshev is so steep that 0.2 % in f0 moves it 0.5 dB
+    limit = 0.6 if (kind == "chebyshev" and order >= 5) else 0.35
+    assert np.max(np.abs(db(ours)[in_view] - db(ref)[in_view])) < limit
+    # and the ideal targets themselves are exact
+    for s in f.stages:
+        assert s.target is not None
+
+
+def test_linkwitz_riley_4_is_two_butterworth_2_and_minus_6_db_at_the_corner():
+    # Linkwitz 1976: LR4 = Butterworth-2 squared; both ways -6.02 dB at the crossover
+    for kind in ("lowpass", "highpass"):
+        f = design(response=kind, alignment="linkwitz-riley", order=4, corner=CORNER)
+        assert [round(s.target.q, 4) for s in f.stages] == [0.7071, 0.7071]
+        level = db(f.frequency_response(np.array([CORNER])))[0]
+        assert level == pytest.approx(-6.02, abs=0.1)
+
+
+def test_band_pass_is_a_high_pass_then_a_low_pass():
+    f = design(response="bandpass", alignment="butterworth", order=2, corner=[300.0, 3000.0])
+    kinds = [s.circuit.response for s in f.stages]
+    assert sorted(kinds) == ["highpass", "lowpass"]
+    b1, a1 = signal.butter(2, 2 * math.pi * 300, "highpass", analog=True)
+    b2, a2 = signal.butter(2, 2 * math.pi * 3000, "lowpass", analog=True)
+    f_hz = np.geomspace(30, 30000, 50)
+    w = 2 * math.pi * f_hz
+    ref = signal.freqs(b1, a1, w)[1] * signal.freqs(b2, a2, w)[1]  # scipy.signal.butter analog
+    assert np.max(np.abs(db(f.frequency_response(f_hz)) - db(ref))) < 0.15
+
+
+def test_stages_are_ordered_lowest_q_first_and_peak_gain_reported():
+    f = design(response="lowpass", alignment="chebyshev", ripple_db=1.0, order=6, corner=CORNER)
+    qs = [s.target.q for s in f.stages]
+    assert qs == sorted(qs)
+    f_rev = design(
+        response="lowpass", alignment="chebyshev", ripple_db=1.0, order=6, corner=CORNER,
+        stage_order="highest-q-first",
+    )  # fmt: skip
+    # the high-Q stage first peaks inside the filter: more internal gain at stage 1
+    assert f_rev.stages[0].peak_gain_db > f.stages[0].peak_gain_db + 6
+
+
+def test_gain_topology_splits_the_passband_gain_over_the_stages():
+    f = design(response="lowpass", alignment="butterworth", order=4, corner=CORNER, topology="gain", gain="12 dB")
+    assert 20 * math.log10(f.passband_gain) == pytest.approx(12.0, abs=0.1)
+    assert all(s.ideal.gain == pytest.approx(10 ** (6 / 20), rel=0.01) for s in f.stages)
+
+
+def test_a_slow_amplifier_is_warned_about_with_its_figure():
+    spec = {
+        "amplifier": {"gbw": "100 kHz", "swing": "13 V", "slew": "0.5 V/us"},
+        "filter": [{"name": "hot", "response": "lowpass", "alignment": "butterworth", "order": 2, "corner": "5 kHz", "topology": "equal"}],
+    }
+    d = build_design(parse_design(spec, "<test>"))
+    text = " ".join(str(w) for w in d.warnings)
+    # common practice: GBW 50x above K f0 Q
+    assert "gain-bandwidth 1e+05 Hz is below 50 x K x f0 x Q" in text
+    stage = d.filters[0].stages[0]
+    assert stage.built.f0_hz < stage.ideal.f0_hz  # the amplifier pulls f0 down
+
+
+def test_as_built_circuit_reports_its_f0_q_and_nearest_alignment():
+    # two unity-gain stages with the Butterworth-4 capacitor ratios 4 Q^2 (common practice)
+    q1, q2 = 0.5412, 1.3066
+    c = 10e-9  # sqrt(C1 C2) = c keeps both stages at the same f0
+    stages = [
+        {"R1": "10k", "R2": "10k", "C1": 2 * q1 * c, "C2": c / (2 * q1)},
+        {"R1": "10k", "R2": "10k", "C1": 2 * q2 * c, "C2": c / (2 * q2)},
+    ]
+    spec = {"filter": [{"name": "b", "response": "lowpass", "stage": stages}]}
+    f = build_design(parse_design(spec, "<test>")).filters[0]
+    assert [round(s.ideal.q, 4) for s in f.stages] == [q1, q2]
+    assert f.resembles.alignment == "butterworth" and f.resembles.order == 4
+    assert f.resembles.distance < 0.01
+    assert f.resembles.corner_scale == pytest.approx(1 / (2 * math.pi * 10e3 * c), rel=1e-3)
