@@ -67,7 +67,12 @@ def test_gain_synthesis_lands_within_part_quantization(f0, q, k, kind):
 @settings(max_examples=40, deadline=None)
 @given(f0s, st.floats(0.55, 3.0))
 def test_equal_component_synthesis_uses_equal_parts_and_k_three_minus_one_over_q(f0, q):
-    c = synthesize("lowpass", 2, "equal", f0, q, 1.0, RULES)
+    try:
+        c = synthesize("lowpass", 2, "equal", f0, q, 1.0, RULES)
+    except SynthesisError as exc:
+        # Q = 1/(3-K) multiplies the gain ratio's rounding by Q: may be out of reach
+        assert "magnifies the gain resistors' rounding" in str(exc)
+        assume(False)
     assert c.r1 == c.r2 and c.c1 == c.c2
     # common practice: equal-component Q = 1 / (3 - K)
     assert 1 / (3 - c.gain) == pytest.approx(q, rel=0.02)

@@ -21,7 +21,13 @@ def make(filters, amplifier=None, full_scale="1 V"):
     return build_design(parse_design(data, "<test>"))
 
 
-LP4 = {"name": "lp", "response": "lowpass", "alignment": "butterworth", "order": 4, "corner": "2 kHz"}
+LP4 = {
+    "name": "lp",
+    "response": "lowpass",
+    "alignment": "butterworth",
+    "order": 4,
+    "corner": "2 kHz",
+}
 HP3 = {"name": "hp", "response": "highpass", "alignment": "bessel", "order": 3, "corner": "150 Hz"}
 
 
@@ -56,7 +62,9 @@ def test_low_pass_gain_is_exact_at_dc_and_high_pass_at_nyquist():
     t = build_twin(d, 48000.0)
     lp, hp = t.filters
     dc = signal.sosfreqz(lp.sos, worN=[0.0], fs=48000)[1][0]
-    assert abs(dc) == pytest.approx(abs(d.filter("lp").frequency_response(np.array([0.0]))[0]), rel=1e-12)
+    assert abs(dc) == pytest.approx(
+        abs(d.filter("lp").frequency_response(np.array([0.0]))[0]), rel=1e-12
+    )
     # high-pass with an amplifier pole: the analog gain at infinity is zero, so compare the
     # ideal-amplifier twin at Nyquist with the ideal analog gain at infinity (= K = 1)
     ideal = build_twin(d, 48000.0, amplifier=False)
@@ -66,7 +74,13 @@ def test_low_pass_gain_is_exact_at_dc_and_high_pass_at_nyquist():
 
 
 def test_band_pass_gain_is_exact_at_the_centre():
-    bp = {"name": "bp", "response": "bandpass", "alignment": "butterworth", "order": 2, "corner": ["300", "3000"]}
+    bp = {
+        "name": "bp",
+        "response": "bandpass",
+        "alignment": "butterworth",
+        "order": 2,
+        "corner": ["300", "3000"],
+    }
     d = make([bp])
     t = build_twin(d, 44100.0)
     fc = math.sqrt(300 * 3000)
@@ -77,7 +91,11 @@ def test_band_pass_gain_is_exact_at_the_centre():
 
 def test_corner_at_or_above_nyquist_is_a_clear_error():
     d = make([dict(LP4, corner="30 kHz")])
-    with pytest.raises(UserInputError, match=r"stage 1 f0 \d+ Hz is at or above the Nyquist frequency 24000 Hz of the 48000 Hz twin; raise --rate"):
+    with pytest.raises(
+        UserInputError,
+        match=r"stage 1 f0 \d+ Hz is at or above the Nyquist frequency 24000 Hz of the "
+        r"48000 Hz twin; raise --rate",
+    ):
         build_twin(d, 48000.0)
 
 
@@ -101,7 +119,13 @@ def test_impulse_response_spectrum_matches_the_analog_model_within_the_reported_
 
 
 def test_auto_oversampling_picks_the_smallest_factor_that_meets_the_tolerance():
-    hp4 = {"name": "hp", "response": "highpass", "alignment": "butterworth", "order": 4, "corner": "1 kHz"}
+    hp4 = {
+        "name": "hp",
+        "response": "highpass",
+        "alignment": "butterworth",
+        "order": 4,
+        "corner": "1 kHz",
+    }
     d = make([hp4])
     base = build_twin(d, 48000.0)
     assert not base.filters[0].fidelity.within(0.1, 1.0)  # phase warps visibly near 20 kHz

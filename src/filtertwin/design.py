@@ -101,7 +101,9 @@ class Filter:
         total = np.zeros(s.shape)
         for b, a in self.analog_sections(amplifier):
             db, da = np.polyder(b) if len(b) > 1 else np.zeros(1), np.polyder(a)
-            total -= np.real(np.polyval(db, s) / np.polyval(b, s) - np.polyval(da, s) / np.polyval(a, s))
+            total -= np.real(
+                np.polyval(db, s) / np.polyval(b, s) - np.polyval(da, s) / np.polyval(a, s)
+            )
         return total
 
     def characteristic_hz(self) -> tuple[float, float]:
@@ -188,7 +190,9 @@ def _ordered(items: list, f: FilterSpec, q_of) -> list:
     if f.stage_order == "as-listed":
         return items
     key = [(0.0 if math.isnan(q_of(it)) else q_of(it)) for it in items]
-    idx = sorted(range(len(items)), key=lambda i: key[i], reverse=f.stage_order == "highest-q-first")
+    idx = sorted(
+        range(len(items)), key=lambda i: key[i], reverse=f.stage_order == "highest-q-first"
+    )
     return [items[i] for i in idx]
 
 
@@ -237,7 +241,9 @@ def _stages(
     circuits: list[tuple[StageCircuit, Target | None]], amp: Amplifier | None, full_scale_v: float
 ) -> tuple[Stage, ...]:
     ideal = [sallenkey.analyze(c, None) for c, _ in circuits]
-    built = [sallenkey.analyze(c, amp) if amp else m for (c, _), m in zip(circuits, ideal, strict=True)]
+    built = [
+        sallenkey.analyze(c, amp) if amp else m for (c, _), m in zip(circuits, ideal, strict=True)
+    ]
     grid = _frequency_grid(built)
     h = np.ones(grid.shape, complex)
     stages = []
@@ -283,24 +289,33 @@ def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[Design
             need = GBW_FACTOR * s.ideal.gain * s.ideal.f0_hz * max(q, 0.5)
             if amp.gbw_hz < need:
                 shift = 100 * (s.built.f0_hz / s.ideal.f0_hz - 1)
-                qtxt = "" if math.isnan(s.ideal.q) else f", Q {100 * (s.built.q / s.ideal.q - 1):+.1f} %"
+                qtxt = (
+                    ""
+                    if math.isnan(s.ideal.q)
+                    else f", Q {100 * (s.built.q / s.ideal.q - 1):+.1f} %"
+                )
                 out.append(
                     DesignWarning(
                         f.name,
                         s.index,
-                        f"gain-bandwidth {amp.gbw_hz:.3g} Hz is below {GBW_FACTOR:.0f} x K x f0 x Q "
-                        f"= {need:.3g} Hz (common practice); the amplifier moves f0 {shift:+.1f} %{qtxt}",
+                        f"gain-bandwidth {amp.gbw_hz:.3g} Hz is below {GBW_FACTOR:.0f} x K x f0 "
+                        f"x Q = {need:.3g} Hz (common practice); the amplifier moves f0 "
+                        f"{shift:+.1f} %{qtxt}",
                     )
                 )
         excess = s.peak_gain_db - passband_db
         if excess > PEAK_MARGIN_DB and s.index < len(f.stages):
-            clip = f"; clips at {s.clip_input_dbfs:.1f} dBFS input" if s.clip_input_dbfs is not None else ""
+            clip = (
+                f"; clips at {s.clip_input_dbfs:.1f} dBFS input"
+                if s.clip_input_dbfs is not None
+                else ""
+            )
             out.append(
                 DesignWarning(
                     f.name,
                     s.index,
                     f"internal peak {excess:.1f} dB above the passband gain eats headroom{clip} "
-                    "(try stage_order = \"lowest-q-first\")",
+                    '(try stage_order = "lowest-q-first")',
                 )
             )
         if s.clip_input_dbfs is not None and s.clip_input_dbfs < 0:

@@ -466,33 +466,39 @@ def _is_text(head: bytes) -> bool:
 
 
 def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool]]:
-    """Find delimiter, header names and which fields of the first data row are numbers."""
+    """Find delimiter, header names and which fields of the first data row are numbers.
+
+    The first row is a header if it has text where the row below has a number; a row of text
+    right under the header (units, such as ``s,g``) is skipped as well.
+    """
     content: list[tuple[int, str]] = []
     with _open_text(path) as fh:
         for index, line in enumerate(fh):
             if line.strip() and not line.lstrip().startswith("#"):
                 content.append((index, line.strip()))
-                if len(content) == 2:
+                if len(content) == 3:
                     break
     if not content:
         _fail(f"{path} has no data rows; export the capture again")
     delimiter = next((d for d in (",", ";", "\t") if d in content[0][1]), None)
     rows = [_split(line, delimiter) for _, line in content]
-    first_numeric = [_is_number(field) for field in rows[0]]
-    if len(rows) == 1:
-        header = not all(first_numeric)
-    else:
-        second = [_is_number(field) for field in rows[1]]
-        header = any(not a and b for a, b in zip(first_numeric, second, strict=False))
-    if header and len(rows) == 1:
+    numbers = [[_is_number(field) for field in row] for row in rows]
+
+    def labels_over(i: int) -> bool:
+        return any(not a and b for a, b in zip(numbers[0], numbers[i], strict=False))
+
+    header_rows = 0
+    if len(rows) == 1 and not all(numbers[0]):
         _fail(f"{path} has a header but no data rows; export the capture again")
-    data_row = rows[1] if header else rows[0]
-    labels = rows[0] if header else [""] * len(data_row)
+    elif len(rows) > 1 and labels_over(1):
+        header_rows = 1
+    elif len(rows) > 2 and not any(numbers[1]) and labels_over(2):
+        header_rows = 2
+    data_row = rows[header_rows]
+    labels = rows[0] if header_rows else [""] * len(data_row)
     names = tuple(label or f"col{j}" for j, label in enumerate(labels))
-    numeric = [_is_number(field) for field in data_row]
-    numeric += [False] * (len(names) - len(numeric))
-    skip = content[0][0] + 1 if header else content[0][0]
-    return CsvLayout(delimiter, skip), names, numeric
+    numeric = numbers[header_rows] + [False] * (len(names) - len(data_row))
+    return CsvLayout(delimiter, content[header_rows][0]), names, numeric
 
 
 def _scan_csv(

@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 
@@ -139,7 +140,8 @@ class StageCircuit:
 
     def with_parts(self, **values: float) -> StageCircuit:
         """A copy with some part values replaced (keys R1, R2, C1, C2, RF, RG)."""
-        return replace(self, **{k.lower(): float(v) for k, v in values.items()})
+        changes: dict[str, Any] = {k.lower(): float(v) for k, v in values.items()}
+        return replace(self, **changes)
 
 
 @dataclass(frozen=True)

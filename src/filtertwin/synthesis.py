@@ -161,7 +161,7 @@ def synthesize(
         k = 3.0 - 1.0 / q
     gain_parts = choose_gain_resistors(k, rules)
     rf, rg = gain_parts if gain_parts else (None, None)
-    k_built = 1.0 + rf / rg if gain_parts else 1.0
+    k_built = 1.0 + gain_parts[0] / gain_parts[1] if gain_parts else 1.0
     if order == 1:
         return _first_order(response, topology, f0_hz, rules, rf, rg)
     if topology == "equal":
@@ -210,7 +210,9 @@ def _equal_component(response, f0_hz, q, k_built, rules, rf, rg) -> StageCircuit
     if err[i] > _MAX_LOG_ERROR:
         raise SynthesisError(
             f"f0 {f0_hz:.4g} Hz with Q {q:.4g} is out of reach for an equal-component stage "
-            f"with the allowed parts (best f0 {f0[i]:.4g} Hz, Q {qv[i]:.4g})"
+            f"with the allowed parts (best f0 {f0[i]:.4g} Hz, Q {qv[i]:.4g}: Q = 1/(3 - K) "
+            f"magnifies the gain resistors' rounding {q:.2g} times); use gain_resistors = "
+            '"E192" or topology "gain"'
         )
     return StageCircuit(
         response, 2, "equal", r1=float(r[i]), c1=float(c[i]), r2=float(r[i]), c2=float(c[i]),

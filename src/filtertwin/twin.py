@@ -251,7 +251,9 @@ def build_twin(
         for f in chosen:
             sos, stage_of = _filter_sos(f, run_rate, use_amp, band[1], design.spec.source)
             fid = measure_fidelity(f, sos, run_rate, band, use_amp)
-            twins.append(FilterTwin(f.name, run_rate, sos, _clip_levels(design, stage_of), stage_of, fid))
+            twins.append(
+                FilterTwin(f.name, run_rate, sos, _clip_levels(design, stage_of), stage_of, fid)
+            )
         result = Twin(rate_hz, factor, tuple(twins))
         if all(t.fidelity.within(tol_db, tol_deg) for t in twins):
             break

@@ -84,7 +84,7 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
         )
         for s in f.stages:
             lines.append(_stage_line(s))
-        if f.name in twins:
+        if twin is not None and f.name in twins:
             lines.append(_fidelity_line(twins[f.name], twin))
     if design.warnings:
         lines.append("")
