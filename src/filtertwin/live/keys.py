@@ -166,8 +166,10 @@ def parse_command(text: str) -> Command:
                 raise UserInputError(
                     f"{name} takes {', '.join(rule.choices)}, not {arg!r}; use '{rule.usage}'"
                 )
-    if name == "select" and not _LABEL.match(args[0]):
-        raise UserInputError(f"select takes 1-9 or a letter, not {args[0]!r}")
+    if name == "select":
+        if not _LABEL.match(args[0]):
+            raise UserInputError(f"select takes 1-9 or a letter, not {args[0]!r}")
+        args = (args[0].upper(),)
     if name == "level" and not _NUMBER.match(args[0]):
         raise UserInputError(f"level takes a number of dB, e.g. 'level -6', not {args[0]!r}")
     return Command(name, args)

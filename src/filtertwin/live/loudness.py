@@ -188,6 +188,8 @@ class LoudnessMeter:
             raise ValueError(
                 f"samples must have shape (frames, {self.channels}), got {samples.shape}"
             )
+        if len(samples) == 0:
+            return
         weighted, self._zi = signal.sosfilt(self._sos, samples, axis=0, zi=self._zi)
         power = (weighted**2) @ self._weights  # per frame, channels weighted and summed
         position = 0
