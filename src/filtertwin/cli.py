@@ -24,11 +24,9 @@ SAFETY_NOTE = (
 
 
 def _load(design_arg: str):
-    from filtertwin import examples
-    from filtertwin.design import build_design
-    from filtertwin.spec import load_design
+    from filtertwin.design import load
 
-    return build_design(load_design(examples.resolve(design_arg)))
+    return load(design_arg)
 
 
 def _write_text_atomic(path: Path, text: str, protect: Sequence[Path] = ()) -> None:
@@ -37,7 +35,9 @@ def _write_text_atomic(path: Path, text: str, protect: Sequence[Path] = ()) -> N
     resolved = path.resolve()
     for p in protect:
         if Path(p).resolve() == resolved:
-            raise UserInputError(f"{path}: refusing to overwrite an input file; choose another name")
+            raise UserInputError(
+                f"{path}: refusing to overwrite an input file; choose another name"
+            )
     with atomic_path(path) as tmp:
         Path(tmp).write_text(text, encoding="utf-8")
 
@@ -115,7 +115,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
     p.add_argument("--json", action="store_true", help="print JSON (SI units) instead of tables")
     p.add_argument("--bom", metavar="FILE.csv", help="write the parts list as CSV")
-    p.add_argument("--rate", type=_positive_float, help="also build the digital twin at this rate (Hz)")
+    p.add_argument(
+        "--rate", type=_positive_float, help="also build the digital twin at this rate (Hz)"
+    )
     p.add_argument(
         "--oversample", type=_oversample, default=1, help="twin oversampling: 1, 2, 4, 8 or auto"
     )

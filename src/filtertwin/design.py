@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -352,3 +354,41 @@ def build_design(spec: DesignSpec) -> Design:
         filters.append(filt)
         warnings += _warnings(filt, amp, spec.parts)
     return Design(spec, amp, tuple(filters), tuple(warnings))
+
+
+def load(path: str | Path) -> Design:
+    """Read, validate and design a design file (or a packaged example's name)."""
+    from filtertwin import examples
+    from filtertwin.spec import load_design
+
+    return build_design(load_design(examples.resolve(str(path))))
+
+
+def design_filter(
+    name: str = "filter",
+    *,
+    amplifier: str | dict[str, Any] | None = None,
+    parts: dict[str, Any] | None = None,
+    full_scale: str | float = "1 V",
+    **fields: Any,
+) -> Design:
+    """Design one filter from keyword arguments, with the design file's field names.
+
+    Examples
+    --------
+    >>> d = design_filter(response="lowpass", alignment="butterworth", order=4, corner="1 kHz",
+    ...                   amplifier="low-noise bipolar")
+    >>> [round(s.target.q, 4) for s in d.filters[0].stages]
+    [0.5412, 1.3066]
+    """
+    from filtertwin.spec import parse_design
+
+    data: dict[str, Any] = {
+        "filter": [{"name": name, **fields}],
+        "signal": {"full_scale": full_scale},
+    }
+    if amplifier is not None:
+        data["amplifier"] = {"preset": amplifier} if isinstance(amplifier, str) else amplifier
+    if parts:
+        data["parts"] = parts
+    return build_design(parse_design(data, "<arguments>"))
