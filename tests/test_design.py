@@ -106,7 +106,14 @@ def test_stages_are_ordered_lowest_q_first_and_peak_gain_reported():
 
 
 def test_gain_topology_splits_the_passband_gain_over_the_stages():
-    f = design(response="lowpass", alignment="butterworth", order=4, corner=CORNER, topology="gain", gain="12 dB")
+    f = design(
+        response="lowpass",
+        alignment="butterworth",
+        order=4,
+        corner=CORNER,
+        topology="gain",
+        gain="12 dB",
+    )
     assert 20 * math.log10(f.passband_gain) == pytest.approx(12.0, abs=0.1)
     assert all(s.ideal.gain == pytest.approx(10 ** (6 / 20), rel=0.01) for s in f.stages)
 
@@ -114,7 +121,16 @@ def test_gain_topology_splits_the_passband_gain_over_the_stages():
 def test_a_slow_amplifier_is_warned_about_with_its_figure():
     spec = {
         "amplifier": {"gbw": "100 kHz", "swing": "13 V", "slew": "0.5 V/us"},
-        "filter": [{"name": "hot", "response": "lowpass", "alignment": "butterworth", "order": 2, "corner": "5 kHz", "topology": "equal"}],
+        "filter": [
+            {
+                "name": "hot",
+                "response": "lowpass",
+                "alignment": "butterworth",
+                "order": 2,
+                "corner": "5 kHz",
+                "topology": "equal",
+            }
+        ],
     }
     d = build_design(parse_design(spec, "<test>"))
     text = " ".join(str(w) for w in d.warnings)

@@ -106,7 +106,9 @@ def test_equal_resistor_unity_highpass_needs_resistor_ratio_four_q_squared():
 @pytest.mark.parametrize("kind", ["lowpass", "highpass"])
 def test_equal_component_q_is_one_over_three_minus_k(k, kind):
     # common practice (no source): equal-component Sallen-Key, Q = 1 / (3 - K)
-    c = StageCircuit(kind, 2, "equal", r1=10e3, c1=10e-9, r2=10e3, c2=10e-9, rf=(k - 1) * 1e4, rg=1e4)
+    c = StageCircuit(
+        kind, 2, "equal", r1=10e3, c1=10e-9, r2=10e3, c2=10e-9, rf=(k - 1) * 1e4, rg=1e4
+    )
     m = analyze(c)
     assert m.q == pytest.approx(1 / (3 - k), rel=1e-9)
     assert m.f0_hz == pytest.approx(1 / (2 * math.pi * 10e3 * 10e-9), rel=1e-9)

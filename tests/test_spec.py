@@ -42,23 +42,71 @@ def test_values_accept_letter_code_and_si_prefixes(tmp_path):
 
 
 BAD = [
-    ("missing response", GOOD.replace('response = "lowpass"\n', ""), r"field 'filter\[1\] \('lp'\).response': missing"),
-    ("unknown field", GOOD + 'colour = "red"\n', r"'filter\[1\] \('lp'\).colour': unknown field; valid fields here"),
-    ("negative corner", GOOD.replace('"1 kHz"', '"-1 kHz"'), r"corner.*must be a positive Hz value|corner.*negative"),
+    (
+        "missing response",
+        GOOD.replace('response = "lowpass"\n', ""),
+        r"field 'filter\[1\] \('lp'\).response': missing",
+    ),
+    (
+        "unknown field",
+        GOOD + 'colour = "red"\n',
+        r"'filter\[1\] \('lp'\).colour': unknown field; valid fields here",
+    ),
+    (
+        "negative corner",
+        GOOD.replace('"1 kHz"', '"-1 kHz"'),
+        r"corner.*must be a positive Hz value|corner.*negative",
+    ),
     ("zero corner", GOOD.replace('"1 kHz"', "0"), r"corner.*positive"),
     ("non-numeric corner", GOOD.replace('"1 kHz"', '"fast"'), r"corner.*fast"),
-    ("unknown alignment", GOOD.replace("butterworth", "elliptic"), r"alignment': unknown value 'elliptic'; use one of: butterworth"),
-    ("order 11", GOOD.replace("order = 4", "order = 11"), r"order': order must be a whole number 1 to 10, got 11"),
-    ("order 0", GOOD.replace("order = 4", "order = 0"), r"order must be a whole number 1 to 10, got 0"),
-    ("LR order 3", GOOD.replace("butterworth", "linkwitz-riley").replace("order = 4", "order = 3"), r"Linkwitz-Riley order must be 2, 4 or 8"),
-    ("chebyshev without ripple", GOOD.replace("butterworth", "chebyshev"), r"ripple_db': Chebyshev needs a passband ripple"),
-    ("reversed band-pass", GOOD.replace("lowpass", "bandpass").replace('"1 kHz"', '["3k", "300"]'), r"band-pass corners are reversed"),
+    (
+        "unknown alignment",
+        GOOD.replace("butterworth", "elliptic"),
+        r"alignment': unknown value 'elliptic'; use one of: butterworth",
+    ),
+    (
+        "order 11",
+        GOOD.replace("order = 4", "order = 11"),
+        r"order': order must be a whole number 1 to 10, got 11",
+    ),
+    (
+        "order 0",
+        GOOD.replace("order = 4", "order = 0"),
+        r"order must be a whole number 1 to 10, got 0",
+    ),
+    (
+        "LR order 3",
+        GOOD.replace("butterworth", "linkwitz-riley").replace("order = 4", "order = 3"),
+        r"Linkwitz-Riley order must be 2, 4 or 8",
+    ),
+    (
+        "chebyshev without ripple",
+        GOOD.replace("butterworth", "chebyshev"),
+        r"ripple_db': Chebyshev needs a passband ripple",
+    ),
+    (
+        "reversed band-pass",
+        GOOD.replace("lowpass", "bandpass").replace('"1 kHz"', '["3k", "300"]'),
+        r"band-pass corners are reversed",
+    ),
     ("no filter", "[parts]\n", r"the design has no filter"),
-    ("bad series", GOOD + '[parts]\nresistors = "E7"\n', r"unknown part series 'E7'; use one of: E3, E6"),
+    (
+        "bad series",
+        GOOD + '[parts]\nresistors = "E7"\n',
+        r"unknown part series 'E7'; use one of: E3, E6",
+    ),
     ("bad toml", GOOD + "name = \n", r"not valid TOML"),
     ("gain without topology", GOOD + 'gain = "6 dB"\n', r"a passband gain needs topology 'gain'"),
-    ("unknown preset", GOOD + '[amplifier]\npreset = "fast one"\n', r"unknown amplifier preset 'fast one'"),
-    ("capacitor as resistor", GOOD + '[parts]\nresistor_range = ["1nF", "100k"]\n', r"resistor_range"),
+    (
+        "unknown preset",
+        GOOD + '[amplifier]\npreset = "fast one"\n',
+        r"unknown amplifier preset 'fast one'",
+    ),
+    (
+        "capacitor as resistor",
+        GOOD + '[parts]\nresistor_range = ["1nF", "100k"]\n',
+        r"resistor_range",
+    ),
 ]
 
 
@@ -82,7 +130,9 @@ def test_q_out_of_reach_of_the_parts_is_a_design_error(tmp_path):
     f0 = "1 kHz"
     q = 3.0
     """
-    with pytest.raises(UserInputError, match=r"filter 'peaky' stage 1 .*Q 3.*out of reach.*C1/C2 >= 4 Q\^2"):
+    with pytest.raises(
+        UserInputError, match=r"filter 'peaky' stage 1 .*Q 3.*out of reach.*C1/C2 >= 4 Q\^2"
+    ):
         build_design(load_design(write(tmp_path, text)))
 
 

@@ -135,7 +135,9 @@ def _quantity(value: Any, unit: str, ctx: _Ctx, example: str) -> float:
     except (ValueError, TypeError) as exc:
         raise ctx.fail(f"{exc}", f"write it like {example}") from None
     if not math.isfinite(number) or number <= 0:
-        raise ctx.fail(f"must be a positive {unit} value, got {value!r}", f"write it like {example}")
+        raise ctx.fail(
+            f"must be a positive {unit} value, got {value!r}", f"write it like {example}"
+        )
     return number
 
 
@@ -155,7 +157,9 @@ def _gain(value: Any, ctx: _Ctx) -> float:
         try:
             db = float(value.strip()[:-2])
         except ValueError:
-            raise ctx.fail(f"gain {value!r} is not a number", 'write it like "6 dB" or 2.0') from None
+            raise ctx.fail(
+                f"gain {value!r} is not a number", 'write it like "6 dB" or 2.0'
+            ) from None
         return 10 ** (db / 20)
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise ctx.fail(f"gain {value!r} is not a number", 'write it like "6 dB" or 2.0')
@@ -328,7 +332,7 @@ def _filter(table: dict[str, Any], index: int, ctx: _Ctx) -> FilterSpec:
     if "gain" in table and topology != "gain":
         raise fctx.at("gain").fail(
             f"a passband gain needs topology 'gain' (topology here is '{topology}')",
-            "set topology = \"gain\" or remove gain",
+            'set topology = "gain" or remove gain',
         )
     if gain < 1.0:
         raise fctx.at("gain").fail(
@@ -379,7 +383,9 @@ def _aligned(table: dict[str, Any], response: str, fctx: _Ctx, common: dict) -> 
         raise fctx.at("order").fail("missing", "add order = 1 .. 10")
     order = table["order"]
     if isinstance(order, bool) or not isinstance(order, int) or not 1 <= order <= 10:
-        raise fctx.at("order").fail(f"order must be a whole number 1 to 10, got {order!r}", "fix it")
+        raise fctx.at("order").fail(
+            f"order must be a whole number 1 to 10, got {order!r}", "fix it"
+        )
     if alignment == "linkwitz-riley" and order not in (2, 4, 8):
         raise fctx.at("order").fail(
             f"Linkwitz-Riley order must be 2, 4 or 8, got {order}", "choose 2, 4 or 8"
@@ -390,7 +396,9 @@ def _aligned(table: dict[str, Any], response: str, fctx: _Ctx, common: dict) -> 
     ripple = None
     if alignment == "chebyshev":
         if "ripple_db" not in table:
-            raise fctx.at("ripple_db").fail("Chebyshev needs a passband ripple", "add ripple_db = 0.5")
+            raise fctx.at("ripple_db").fail(
+                "Chebyshev needs a passband ripple", "add ripple_db = 0.5"
+            )
         ripple = table["ripple_db"]
         if isinstance(ripple, bool) or not isinstance(ripple, int | float) or not 0 < ripple <= 6:
             raise fctx.at("ripple_db").fail(
@@ -429,7 +437,9 @@ def _corners(value: Any, response: str, ctx: _Ctx) -> tuple[float, ...]:
 
 def _table_list(value: Any, ctx: _Ctx) -> list[dict[str, Any]]:
     if not isinstance(value, list) or not value or not all(isinstance(v, dict) for v in value):
-        raise ctx.fail("must be one or more tables", "write each as [[filter.section]] / [[filter.stage]]")
+        raise ctx.fail(
+            "must be one or more tables", "write each as [[filter.section]] / [[filter.stage]]"
+        )
     return value
 
 
@@ -442,7 +452,9 @@ def _section(table: dict[str, Any], ctx: _Ctx) -> SectionTarget:
         return SectionTarget(f0, math.nan)
     q = table["q"]
     if isinstance(q, bool) or not isinstance(q, int | float) or not 0.1 <= q <= 50:
-        raise ctx.at("q").fail(f"Q must be a number from 0.1 to 50, got {q!r}", "use e.g. q = 0.707")
+        raise ctx.at("q").fail(
+            f"Q must be a number from 0.1 to 50, got {q!r}", "use e.g. q = 0.707"
+        )
     return SectionTarget(f0, float(q))
 
 
@@ -487,7 +499,9 @@ def parse_design(data: dict[str, Any], source: str) -> DesignSpec:
     amp = _amplifier(data["amplifier"], ctx.at("amplifier")) if "amplifier" in data else None
     signal = data.get("signal", {})
     _check_keys(signal, ("full_scale",), ctx.at("signal"))
-    full_scale = _quantity(signal.get("full_scale", "1 V"), "V", ctx.at("signal.full_scale"), '"2 V"')
+    full_scale = _quantity(
+        signal.get("full_scale", "1 V"), "V", ctx.at("signal.full_scale"), '"2 V"'
+    )
     if "filter" not in data:
         raise ctx.at("filter").fail("the design has no filter", "add at least one [[filter]] table")
     tables = _table_list(data["filter"], ctx.at("filter"))
@@ -495,8 +509,12 @@ def parse_design(data: dict[str, Any], source: str) -> DesignSpec:
     names = [f.name for f in filters]
     dupes = sorted({n for n in names if names.count(n) > 1})
     if dupes:
-        raise ctx.at("filter").fail(f"filter name {dupes[0]!r} is used twice", "give each filter its own name")
-    return DesignSpec(source, str(data.get("title", Path(source).stem)), parts, amp, full_scale, filters)
+        raise ctx.at("filter").fail(
+            f"filter name {dupes[0]!r} is used twice", "give each filter its own name"
+        )
+    return DesignSpec(
+        source, str(data.get("title", Path(source).stem)), parts, amp, full_scale, filters
+    )
 
 
 def load_design(path: str | Path) -> DesignSpec:
@@ -513,7 +531,9 @@ def load_design(path: str | Path) -> DesignSpec:
     except FileNotFoundError:
         raise UserInputError(f"{path}: no such design file; check the path") from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise UserInputError(f"{path}: cannot read the design file ({exc}); check the file") from None
+        raise UserInputError(
+            f"{path}: cannot read the design file ({exc}); check the file"
+        ) from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -37,9 +37,7 @@ def resolve(arg: str) -> Path:
         return path
     if arg in names():
         return path_of(arg)
-    raise UserInputError(
-        f"{arg}: no such design file or example; examples: {', '.join(names())}"
-    )
+    raise UserInputError(f"{arg}: no such design file or example; examples: {', '.join(names())}")
 
 
 def copy_to(folder: Path) -> list[Path]:
