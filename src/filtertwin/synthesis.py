@@ -88,9 +88,12 @@ def _f0_q(response: str, r1, r2, c1, c2, k):
     """Vectorised textbook f0 (Hz) and Q of a gain-K Sallen-Key stage (see sallenkey.ideal_f0_q)."""
     t = np.sqrt(r1 * r2 * c1 * c2)
     if response == "lowpass":
-        q = t / (c2 * (r1 + r2) + r1 * c1 * (1 - k))
+        damping = (c2 * (r1 + r2) + r1 * c1 * (1 - k)) / t
     else:
-        q = 1.0 / (t * ((c1 + c2) / (r2 * c1 * c2) + (1 - k) / (r1 * c1)))
+        damping = t * ((c1 + c2) / (r2 * c1 * c2) + (1 - k) / (r1 * c1))
+    # zero or negative damping: an oscillator, not a filter stage (scored out by the caller)
+    with np.errstate(divide="ignore"):
+        q = np.where(damping > 0, 1.0 / np.where(damping > 0, damping, 1.0), -1.0)
     return 1.0 / (2 * np.pi * t), q
 
 

@@ -1,0 +1,574 @@
+"""Anti-alias check: what an ADC captures from a recording, with and without the filter.
+
+The recording stands in for the sensor's analog signal (it must be sampled well above the
+ADC's rate). The ADC is modelled as an ideal sampler at ``adc_rate_hz``: every frequency
+``f`` of the recording lands at ``|f - k fs|`` folded into ``[0, fs/2]`` (Oppenheim &
+Schafer 4.2). The filter is applied by the design's digital twin at the recording's rate;
+the requirement (attenuation at ``fs - band``) is read from the exact analog as-built model.
+
+Nothing here reads or writes files: the command does that.
+
+References
+----------
+A. V. Oppenheim, R. W. Schafer, Discrete-Time Signal Processing, 3rd ed., section 4.2.
+W. R. Bennett, "Spectra of quantized signals", Bell Syst. Tech. J. 27, 1948; W. Kester (ed.),
+Data Conversion Handbook, 2005, ch. 2 (ideal quantization SNR 6.02 N + 1.76 dB).
+P. D. Welch, IEEE Trans. Audio Electroacoust. AU-15, 1967 (the PSD estimate).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+import scipy.ndimage
+import scipy.signal
+
+from filtertwin import twin as twin_mod
+from filtertwin.design import Design, Filter
+from filtertwin.errors import UserInputError
+
+__all__ = [
+    "AliasCheck",
+    "AliasComponent",
+    "Captures",
+    "alias_frequency",
+    "capture",
+    "check_alias",
+    "ideal_dynamic_range_db",
+    "psd",
+    "select_filter",
+]
+
+MAX_FRAMES = 2**24
+"""Longest recording read whole (16.7 M frames: 5.5 minutes at 51.2 kHz)."""
+MIN_CAPTURE_FRAMES = 256
+"""Shortest ADC capture whose spectrum means anything."""
+PSD_RESOLUTION_HZ = 4.0
+"""Wanted bin spacing of the spectra (Hz); coarser for short recordings."""
+PEAK_PROMINENCE_DB = 10.0
+"""A component stands this far above its surroundings in the recording's spectrum ..."""
+PEAK_ABOVE_FLOOR_DB = 15.0
+"""... and this far above the local noise floor (median over +/- 50 bins)."""
+FLOOR_BINS = 101
+IRRELEVANT_MARGIN_DB = 20.0
+"""Components weaker than the in-band signal by more than the requirement plus this are left
+out of the table: even unfiltered their aliases stay below what the ADC must resolve."""
+PEAK_HALF_WIDTH_BINS = 3
+"""Bins either side of a peak summed into its power (Hann main lobe is +/- 2 bins)."""
+INTERP_ZERO_CROSSINGS = 32
+INTERP_KAISER_BETA = 10.0
+MAX_RATIO_DENOMINATOR = 2000
+
+
+@dataclass(frozen=True)
+class AliasComponent:
+    """One strong component above the ADC's Nyquist frequency.
+
+    Attributes
+    ----------
+    source_hz, alias_hz : float
+        Where it is in the recording and where the ADC puts it.
+    in_band : bool
+        The alias lands inside the band of interest.
+    without_filter_db, with_filter_db : float
+        Its power relative to the in-band signal power, before and after the filter (the
+        filtered level measured on the digital twin's output).
+    filter_db : float
+        The analog as-built model's gain at ``source_hz`` relative to the passband gain.
+    without_filter_peak, with_filter_peak : float
+        Peak amplitude of the component in the recording's unit (sqrt(2 x power)).
+    """
+
+    source_hz: float
+    alias_hz: float
+    in_band: bool
+    without_filter_db: float
+    with_filter_db: float
+    filter_db: float
+    without_filter_peak: float
+    with_filter_peak: float
+
+
+@dataclass(frozen=True)
+class Spectra:
+    """Power spectral densities (unit^2/Hz) for the figures, without and with the filter."""
+
+    f_hz: np.ndarray
+    without_filter: np.ndarray
+    with_filter: np.ndarray
+
+
+@dataclass(frozen=True)
+class AliasCheck:
+    """The verdict and the figures behind it.
+
+    Attributes
+    ----------
+    filter_name : str
+    recording_rate_hz, adc_rate_hz : float
+    capture_rate_hz : float
+        Rate the captures were taken at: the ADC rate, or the nearest ratio of whole numbers
+        (denominator at most 2000) to it.
+    band_hz : float
+        Top of the band of interest.
+    required_db : float
+        Attenuation needed at ``attenuation_at_hz``.
+    requirement : str
+        Where ``required_db`` comes from, in words.
+    attenuation_at_hz : float
+        ADC rate minus the top of the band: the lowest frequency that folds into the band.
+    attenuation_db : float
+        The analog as-built model's attenuation there, relative to its passband gain.
+    margin_db : float
+        ``attenuation_db - required_db``.
+    passed : bool
+    aliased_without_db, aliased_with_db : float
+        Power folding into the band, relative to the in-band signal power.
+    components : tuple of AliasComponent
+        Strongest first.
+    oversampling : int
+        Oversampling the digital twin ran at.
+    recording : Spectra
+        Spectrum of the recording (0 to its Nyquist frequency) before and after the filter.
+    filter_db : numpy.ndarray
+        Analog model's gain (dB re passband) at ``recording.f_hz``.
+    captured : Spectra
+        Spectrum of the two ADC captures (0 to the ADC's Nyquist frequency).
+    """
+
+    filter_name: str
+    recording_rate_hz: float
+    adc_rate_hz: float
+    capture_rate_hz: float
+    band_hz: float
+    required_db: float
+    requirement: str
+    attenuation_at_hz: float
+    attenuation_db: float
+    margin_db: float
+    passed: bool
+    aliased_without_db: float
+    aliased_with_db: float
+    components: tuple[AliasComponent, ...]
+    oversampling: int
+    recording: Spectra
+    filter_db: np.ndarray
+    captured: Spectra
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready summary (SI units, dB); the spectra are left out."""
+        return {
+            "check": "alias",
+            "filter": self.filter_name,
+            "recording_rate_hz": self.recording_rate_hz,
+            "adc_rate_hz": self.adc_rate_hz,
+            "capture_rate_hz": self.capture_rate_hz,
+            "band_hz": self.band_hz,
+            "required_db": self.required_db,
+            "requirement": self.requirement,
+            "attenuation_at_hz": self.attenuation_at_hz,
+            "attenuation_db": self.attenuation_db,
+            "margin_db": self.margin_db,
+            "pass": self.passed,
+            "verdict": "PASS" if self.passed else "FAIL",
+            "aliased_db": {
+                "without_filter": self.aliased_without_db,
+                "with_filter": self.aliased_with_db,
+                "relative_to": "in-band signal power",
+            },
+            "components": [
+                {
+                    "source_hz": c.source_hz,
+                    "alias_hz": c.alias_hz,
+                    "in_band": c.in_band,
+                    "without_filter_db": c.without_filter_db,
+                    "with_filter_db": c.with_filter_db,
+                    "filter_db": c.filter_db,
+                    "without_filter_peak": c.without_filter_peak,
+                    "with_filter_peak": c.with_filter_peak,
+                }
+                for c in self.components
+            ],
+            "twin_oversampling": self.oversampling,
+        }
+
+
+@dataclass(frozen=True)
+class Captures:
+    """The two ADC captures (1-D arrays in the recording's unit) and their rate in Hz."""
+
+    without_filter: np.ndarray
+    with_filter: np.ndarray
+    rate_hz: float
+
+
+def ideal_dynamic_range_db(bits: int) -> float:
+    """Ideal quantization SNR of an N-bit converter for a full-scale sine: 6.02 N + 1.76 dB.
+
+    References
+    ----------
+    W. R. Bennett, Bell Syst. Tech. J. 27, 1948; W. Kester, Data Conversion Handbook, 2005.
+
+    Examples
+    --------
+    >>> round(ideal_dynamic_range_db(16), 2)
+    98.09
+    """
+    return 20 * math.log10(2.0) * bits + 10 * math.log10(1.5)
+
+
+def alias_frequency(f_hz: np.ndarray | float, adc_rate_hz: float) -> np.ndarray:
+    """Where a sampler at ``adc_rate_hz`` puts frequency ``f_hz``: ``|f - k fs|`` in [0, fs/2].
+
+    References
+    ----------
+    A. V. Oppenheim, R. W. Schafer, Discrete-Time Signal Processing, 3rd ed., 4.2.
+
+    Examples
+    --------
+    >>> float(alias_frequency(6700.0, 8000.0)), float(alias_frequency(13100.0, 8000.0))
+    (1300.0, 2900.0)
+    """
+    r = np.mod(np.abs(np.asarray(f_hz, float)), adc_rate_hz)
+    return np.minimum(r, adc_rate_hz - r)
+
+
+def psd(
+    samples: np.ndarray, rate_hz: float, resolution_hz: float = PSD_RESOLUTION_HZ
+) -> tuple[np.ndarray, np.ndarray]:
+    """One-sided Welch PSD (Hann, 50 % overlap, mean removed) in unit^2/Hz.
+
+    The segment is the power of two nearest ``rate_hz / resolution_hz``, shortened until at
+    least eight overlapping segments fit (so that noise does not look like tones).
+    ``sum(p) * df`` is the signal's variance (Parseval).
+
+    Returns
+    -------
+    f_hz, p : numpy.ndarray
+
+    References
+    ----------
+    P. D. Welch, IEEE Trans. Audio Electroacoust. AU-15, 1967; ``scipy.signal.welch``.
+    """
+    frames = len(samples)
+    n = 2 ** max(4, round(math.log2(rate_hz / resolution_hz)))
+    while n > 16 and 9 * n // 2 > frames:
+        n //= 2
+    n = min(n, frames)
+    f, p = scipy.signal.welch(samples, fs=rate_hz, window="hann", nperseg=n, noverlap=n // 2)
+    return f, p
+
+
+def _interpolator(up: int) -> np.ndarray:
+    """Band-limited interpolation FIR for upsampling by ``up`` (cutoff: input Nyquist)."""
+    taps = 2 * INTERP_ZERO_CROSSINGS * up + 1
+    h = scipy.signal.firwin(taps, 1.0 / up, window=("kaiser", INTERP_KAISER_BETA))
+    return h * up
+
+
+def capture(samples: np.ndarray, rate_hz: float, adc_rate_hz: float) -> tuple[np.ndarray, float]:
+    """Sample a recording with an ideal ADC at ``adc_rate_hz``, keeping every alias.
+
+    For a whole-number ratio the ADC's samples are the recording's samples at those
+    instants. Otherwise the recording is interpolated band-limited (Kaiser-windowed sinc,
+    32 zero crossings) onto the ADC's instants, ``up/down`` being the ratio of whole numbers
+    nearest ``adc_rate_hz / rate_hz`` (denominator at most 2000). No anti-alias filtering
+    happens here: that is the point.
+
+    Parameters
+    ----------
+    samples : numpy.ndarray
+        1-D recording.
+    rate_hz, adc_rate_hz : float
+        Recording and ADC rates in Hz, ``adc_rate_hz <= rate_hz``.
+
+    Returns
+    -------
+    captured : numpy.ndarray
+    capture_rate_hz : float
+        The rate actually used (``rate_hz * up / down``).
+    """
+    ratio = rate_hz / adc_rate_hz
+    step = round(ratio)
+    if step >= 1 and abs(ratio - step) <= 1e-6 * ratio:
+        return np.array(samples[::step], dtype=float), rate_hz / step
+    frac = (Fraction(adc_rate_hz) / Fraction(rate_hz)).limit_denominator(MAX_RATIO_DENOMINATOR)
+    up, down = frac.numerator, frac.denominator
+    h = _interpolator(up)
+    delay = INTERP_ZERO_CROSSINGS * up
+    pad = (-delay) % down
+    h = np.concatenate([np.zeros(pad), h])
+    offset = (delay + pad) // down
+    n_out = -(-len(samples) * up // down)
+    y = scipy.signal.upfirdn(h, np.asarray(samples, float), up, down)
+    return np.array(y[offset : offset + n_out]), rate_hz * up / down
+
+
+def select_filter(design: Design, name: str | None) -> Filter:
+    """The anti-alias filter to check: the one named, or the design's only filter.
+
+    Raises
+    ------
+    UserInputError
+        Several filters and no name, or a high-pass filter.
+    """
+    if name is not None:
+        filt = design.filter(name)
+    elif len(design.filters) == 1:
+        filt = design.filters[0]
+    else:
+        names = ", ".join(f.name for f in design.filters)
+        raise UserInputError(
+            f"{design.spec.source}: the design has several filters ({names}); "
+            "choose the anti-alias filter with --filter NAME"
+        )
+    if filt.response == "highpass":
+        raise UserInputError(
+            f"{design.spec.source}: filter '{filt.name}' is a high-pass and cannot stop "
+            "aliasing; choose a low-pass or band-pass filter with --filter"
+        )
+    return filt
+
+
+def _upper_corner_hz(filt: Filter) -> float:
+    """The filter's spec corner (upper one for a band-pass), or its -3 dB frequency."""
+    if filt.spec.kind == "alignment" and filt.spec.corner_hz:
+        return float(filt.spec.corner_hz[-1])
+    lo, hi = filt.characteristic_hz()
+    grid = np.geomspace(lo / 100, hi * 100, 8000)
+    rel = np.abs(filt.frequency_response(grid)) / abs(filt.passband_gain)
+    above = np.nonzero(rel >= 10 ** (-3.0 / 20))[0]
+    return float(grid[above[-1]]) if len(above) else hi
+
+
+def attenuation_db(filt: Filter, f_hz: float) -> float:
+    """Attenuation of the analog as-built model at ``f_hz`` relative to its passband gain."""
+    h = abs(complex(filt.frequency_response(np.array([f_hz]))[0]))
+    return -20 * math.log10(max(h, 1e-300) / abs(filt.passband_gain))
+
+
+def _validate(
+    frames: int, rate_hz: float, adc_rate_hz: float, band_hz: float | None, bits: int
+) -> None:
+    if not (math.isfinite(adc_rate_hz) and adc_rate_hz > 0):
+        raise UserInputError(f"ADC rate {adc_rate_hz} Hz must be positive; give --adc-rate in Hz")
+    if adc_rate_hz > rate_hz * (1 + 1e-9):
+        raise UserInputError(
+            f"ADC rate {adc_rate_hz:g} Hz is above the recording's rate {rate_hz:g} Hz, so the "
+            "recording cannot show what folds; use a recording sampled faster than the ADC"
+        )
+    nyquist = adc_rate_hz / 2
+    if band_hz is not None and not (math.isfinite(band_hz) and 0 < band_hz <= nyquist):
+        raise UserInputError(
+            f"band of interest {band_hz:g} Hz is not within the ADC's Nyquist frequency "
+            f"{nyquist:g} Hz (ADC rate {adc_rate_hz:g} Hz); lower --band or raise --adc-rate"
+        )
+    if not 1 <= bits <= 32:
+        raise UserInputError(f"ADC resolution {bits} bits is outside 1..32; give --bits 1 to 32")
+    if frames > MAX_FRAMES:
+        raise UserInputError(
+            f"the recording has {frames} frames, more than the {MAX_FRAMES} this check reads "
+            "at once; cut a representative piece of it"
+        )
+    if frames * adc_rate_hz / rate_hz < MIN_CAPTURE_FRAMES:
+        need = math.ceil(MIN_CAPTURE_FRAMES / adc_rate_hz * rate_hz)
+        raise UserInputError(
+            f"the recording is too short ({frames} frames) for {MIN_CAPTURE_FRAMES} ADC "
+            f"samples; give at least {need} frames"
+        )
+
+
+def filter_with_twin(
+    design: Design, filt: Filter, samples: np.ndarray, rate_hz: float
+) -> tuple[np.ndarray, int]:
+    """Run a filter's digital twin over a 1-D recording at its own rate.
+
+    The twin is built with ``oversampling="auto"``; when it runs oversampled, the recording
+    is resampled up (``scipy.signal.resample_poly``), filtered and resampled back.
+
+    Returns
+    -------
+    filtered : numpy.ndarray
+        Same length and rate as ``samples``.
+    oversampling : int
+    """
+    tw = twin_mod.build_twin(design, rate_hz, oversampling="auto", filters=[filt.name])
+    sos = tw.filters[0].sos
+    factor = tw.oversampling
+    if factor == 1:
+        return scipy.signal.sosfilt(sos, samples), 1
+    window = ("kaiser", INTERP_KAISER_BETA)
+    up = scipy.signal.resample_poly(samples, factor, 1, window=window)
+    y = scipy.signal.sosfilt(sos, up)
+    return scipy.signal.resample_poly(y, 1, factor, window=window)[: len(samples)], factor
+
+
+def _db(power: np.ndarray | float) -> np.ndarray:
+    """Power ratio in dB, floored at -300 dB (nothing folds when the ADC runs at the
+    recording's rate)."""
+    return 10 * np.log10(np.maximum(power, 1e-30))
+
+
+def _components(
+    f: np.ndarray,
+    p_without: np.ndarray,
+    p_with: np.ndarray,
+    ref_without: float,
+    ref_with: float,
+    filt: Filter,
+    adc_rate_hz: float,
+    band_hz: float,
+    count: int,
+    floor_db: float,
+) -> tuple[AliasComponent, ...]:
+    df = float(f[1] - f[0])
+    level = _db(p_without)
+    floor = scipy.ndimage.median_filter(level, size=FLOOR_BINS, mode="nearest")
+    peaks, _ = scipy.signal.find_peaks(level, prominence=PEAK_PROMINENCE_DB)
+    keep = (f[peaks] > adc_rate_hz / 2) & (level[peaks] - floor[peaks] >= PEAK_ABOVE_FLOOR_DB)
+    peaks = peaks[keep]
+    w = PEAK_HALF_WIDTH_BINS
+    found = []
+    for i in peaks:
+        sl = slice(max(i - w, 0), i + w + 1)
+        power = float(p_without[sl].sum() * df)
+        if _db(power / ref_without) >= floor_db:
+            found.append((power, float(p_with[sl].sum() * df), i))
+    found.sort(reverse=True)
+    gain = np.abs(filt.frequency_response(f[[i for *_, i in found[:count]]]))
+    out = []
+    for (pw, pf, i), g in zip(found[:count], gain, strict=True):
+        alias = float(alias_frequency(f[i], adc_rate_hz))
+        out.append(
+            AliasComponent(
+                source_hz=float(f[i]),
+                alias_hz=alias,
+                in_band=alias <= band_hz,
+                without_filter_db=float(_db(pw / ref_without)),
+                with_filter_db=float(_db(pf / ref_with)),
+                filter_db=float(20 * np.log10(max(g, 1e-300) / abs(filt.passband_gain))),
+                without_filter_peak=math.sqrt(2 * pw),
+                with_filter_peak=math.sqrt(2 * pf),
+            )
+        )
+    return tuple(out)
+
+
+def check_alias(
+    design: Design,
+    samples: np.ndarray,
+    rate_hz: float,
+    adc_rate_hz: float,
+    *,
+    filter_name: str | None = None,
+    band_hz: float | None = None,
+    bits: int = 16,
+    reject_db: float | None = None,
+    max_components: int = 8,
+) -> tuple[AliasCheck, Captures]:
+    """Check an anti-alias filter against a recording and an ADC.
+
+    Parameters
+    ----------
+    design : Design
+    samples : numpy.ndarray
+        1-D recording (any unit), sampled at ``rate_hz``.
+    rate_hz : float
+        Recording rate in Hz.
+    adc_rate_hz : float
+        The ADC's sample rate in Hz (at most ``rate_hz``).
+    filter_name : str, optional
+        The anti-alias filter (default: the design's only filter).
+    band_hz : float, optional
+        Top of the band of interest in Hz (default: the filter's corner, capped at the ADC's
+        Nyquist frequency).
+    bits : int
+        ADC resolution; the requirement is its ideal dynamic range 6.02 N + 1.76 dB.
+    reject_db : float, optional
+        Required attenuation in dB instead of the dynamic range.
+    max_components : int
+        Rows in the component table (components more than ``required + 20`` dB below the
+        in-band signal are left out).
+
+    Returns
+    -------
+    AliasCheck
+    Captures
+
+    Raises
+    ------
+    UserInputError
+        ADC rate above the recording's rate, band above the ADC's Nyquist frequency, a
+        recording too short or too long, no signal in the band, bad ``bits``/``reject_db``.
+
+    References
+    ----------
+    Oppenheim & Schafer 4.2 (aliasing); Bennett 1948, Kester 2005 (6.02 N + 1.76 dB).
+    """
+    x = np.asarray(samples, dtype=float)
+    if x.ndim != 1:
+        raise ValueError(f"samples must be 1-D, got shape {x.shape}")
+    _validate(len(x), rate_hz, adc_rate_hz, band_hz, bits)
+    if reject_db is not None and not (math.isfinite(reject_db) and reject_db > 0):
+        raise UserInputError(f"rejection {reject_db:g} dB must be positive; give --reject-db")
+    filt = select_filter(design, filter_name)
+    band = band_hz if band_hz is not None else min(_upper_corner_hz(filt), adc_rate_hz / 2)
+    if reject_db is None:
+        required = ideal_dynamic_range_db(bits)
+        requirement = f"ideal dynamic range of a {bits}-bit ADC, 6.02 N + 1.76 dB"
+    else:
+        required, requirement = float(reject_db), "rejection given"
+    at_hz = adc_rate_hz - band
+    atten = attenuation_db(filt, at_hz)
+
+    y, factor = filter_with_twin(design, filt, x, rate_hz)
+    f, p_without = psd(x, rate_hz)
+    _, p_with = psd(y, rate_hz)
+    df = float(f[1] - f[0])
+    inband = f <= band
+    ref_without = float(p_without[inband].sum() * df)
+    ref_with = float(p_with[inband].sum() * df)
+    if ref_without <= 0 or ref_with <= 0:
+        raise UserInputError(
+            f"the recording has no signal below {band:g} Hz to compare the aliases with; "
+            "check the recording or --band"
+        )
+    folds = (f > adc_rate_hz / 2) & (alias_frequency(f, adc_rate_hz) <= band)
+    aliased_without = float(_db(p_without[folds].sum() * df / ref_without))
+    aliased_with = float(_db(p_with[folds].sum() * df / ref_with))
+    floor = -(required + IRRELEVANT_MARGIN_DB)
+    comps = _components(f, p_without, p_with, ref_without, ref_with, filt, adc_rate_hz, band,
+                        max_components, floor)  # fmt: skip
+
+    cap_without, cap_rate = capture(x, rate_hz, adc_rate_hz)
+    cap_with, _ = capture(y, rate_hz, adc_rate_hz)
+    fc, pc_without = psd(cap_without, cap_rate)
+    _, pc_with = psd(cap_with, cap_rate)
+    gain_db = 20 * np.log10(
+        np.maximum(np.abs(filt.frequency_response(f)), 1e-300) / abs(filt.passband_gain)
+    )
+    check = AliasCheck(
+        filter_name=filt.name,
+        recording_rate_hz=float(rate_hz),
+        adc_rate_hz=float(adc_rate_hz),
+        capture_rate_hz=float(cap_rate),
+        band_hz=float(band),
+        required_db=float(required),
+        requirement=requirement,
+        attenuation_at_hz=float(at_hz),
+        attenuation_db=float(atten),
+        margin_db=float(atten - required),
+        passed=bool(atten >= required),
+        aliased_without_db=aliased_without,
+        aliased_with_db=aliased_with,
+        components=comps,
+        oversampling=factor,
+        recording=Spectra(f, p_without, p_with),
+        filter_db=gain_db,
+        captured=Spectra(fc, pc_without, pc_with),
+    )
+    return check, Captures(cap_without, cap_with, float(cap_rate))

@@ -1,0 +1,156 @@
+"""`filtertwin tolerance`: build the design many times with parts drawn within tolerance.
+
+Prints each stage's f0 and Q spread, the yield against a mask and the worst build's parts.
+With --out, writes a figure of the envelope. Exit 0 (2 on bad input).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+from typing import Any
+
+from filtertwin.errors import UserInputError
+
+# the choices and defaults of filtertwin.checks.tolerance, repeated so that --help stays fast
+# (a test checks that they agree)
+DISTRIBUTIONS = ("uniform", "gaussian")
+DEFAULT_RIPPLE_DB = 1.0
+
+
+def _hz(text: str | None, option: str) -> float | None:
+    from filtertwin import units
+
+    if text is None:
+        return None
+    try:
+        value = units.parse_quantity(text, "Hz")
+    except (ValueError, TypeError) as exc:
+        raise UserInputError(f"{option} {text!r}: {exc}; write it like 4400 or 4.4k") from None
+    if value <= 0:
+        raise UserInputError(f"{option} {text!r} must be a positive frequency; e.g. 4.4k")
+    return value
+
+
+def register(subparsers: Any) -> None:
+    p = subparsers.add_parser(
+        "tolerance",
+        help="tolerance builds: response envelope, f0/Q spread, yield and the worst build",
+        description=(
+            "Build the design N times, each part drawn within its tolerance (uniform, or "
+            "Gaussian with the tolerance at 3 sigma); report the response envelope, each "
+            "stage's f0 and Q spread, the yield against a mask and the build furthest from "
+            "nominal. Default mask per filter: within +/-1 dB of the passband gain up to "
+            "0.5 x corner (low-pass; from 2 x corner for a high-pass), and beyond 2 x corner "
+            "(0.5 x for a high-pass) at least the nominal attenuation there less 3 dB."
+        ),
+    )
+    p.add_argument("design", help="design file (TOML) or the name of a packaged example")
+    p.add_argument("--builds", type=int, required=True, metavar="N", help="number of builds")
+    p.add_argument(
+        "--distribution", choices=DISTRIBUTIONS, default="uniform",
+        help="uniform within the tolerance (default) or gaussian (tolerance = 3 sigma)",
+    )  # fmt: skip
+    p.add_argument("--seed", type=int, metavar="S", help="random seed, to repeat a run exactly")
+    p.add_argument(
+        "--ripple-db", type=float, metavar="X",
+        help=f"passband limit, +/- dB around the passband gain (default {DEFAULT_RIPPLE_DB:g})",
+    )  # fmt: skip
+    p.add_argument("--stop-hz", metavar="F", help="stopband edge frequency")
+    p.add_argument("--stop-db", type=float, metavar="Y", help="least stopband attenuation, dB")
+    p.add_argument("--filter", metavar="NAME", help="only this filter of the design")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.add_argument("--out", metavar="DIR", help="write a figure of the envelope here")
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    from filtertwin.checks.tolerance import run_tolerance
+    from filtertwin.design import load
+
+    design = load(args.design)
+    if args.seed is not None and args.seed < 0:
+        raise UserInputError(f"--seed {args.seed} must be a whole number >= 0")
+    result = run_tolerance(
+        design, args.builds, distribution=args.distribution, seed=args.seed,
+        ripple_db=args.ripple_db, stop_hz=_hz(args.stop_hz, "--stop-hz"),
+        stop_db=args.stop_db, filter_name=args.filter,
+    )  # fmt: skip
+    files = {}
+    if args.out:
+        from filtertwin.report.check_figures import tolerance_figure
+
+        out = Path(args.out)
+        if out.exists() and not out.is_dir():
+            raise UserInputError(f"--out {args.out}: is a file, not a folder; give a folder name")
+        out.mkdir(parents=True, exist_ok=True)
+        target = out / f"{Path(design.spec.source).stem}-tolerance.png"
+        files["figure"] = str(tolerance_figure(result, target, protect=[design.spec.source]))
+    if args.json:
+        print(json.dumps(result.to_dict() | {"design": design.spec.source, "files": files},
+                         indent=2))  # fmt: skip
+    else:
+        print(_text(result, design, files))
+    return 0
+
+
+def _spread(s: Any, fmt: Any) -> str:
+    return f"{fmt(s.nominal):>10s} {fmt(s.p1):>10s} .. {fmt(s.p99):<10s} std {fmt(s.std)}"
+
+
+def _text(result: Any, design: Any, files: dict[str, str]) -> str:
+    from filtertwin.units import format_letter_code, format_si
+
+    def hz(v: float) -> str:
+        return format_si(v, "Hz", 4)
+
+    def q(v: float) -> str:
+        return f"{v:.3f}"
+
+    dist = ("uniform within the tolerance" if result.distribution == "uniform"
+            else "Gaussian, tolerance = 3 sigma")  # fmt: skip
+    lines = [
+        f"tolerance builds of {design.title}",
+        f"{result.builds} builds, {dist}; resistors +/-{100 * result.resistor_tolerance:g} %, "
+        f"capacitors +/-{100 * result.capacitor_tolerance:g} %; seed {result.seed} "
+        f"(repeat with --seed {result.seed})",
+    ]
+    for ft in result.filters:
+        m = ft.mask
+        stops = "; ".join(
+            f"at least {s.min_atten_db:.1f} dB down from {hz(s.lo_hz)} to {hz(s.hi_hz)}"
+            for s in m.stops
+        )
+        lines += [
+            "",
+            f"filter '{ft.name}': yield {100 * ft.yield_fraction:.1f} %; builds deviate up to "
+            f"{ft.worst_deviation_db:.2f} dB from nominal",
+            f"  mask: within +/-{m.ripple_db:g} dB of {ft.passband_db:+.2f} dB from "
+            f"{hz(m.pass_hz[0])} to {hz(m.pass_hz[1])}; {stops}",
+        ]
+        if not ft.nominal_passes:
+            lines.append("  note: the nominal design itself is outside this mask; "
+                         "set --ripple-db / --stop-hz / --stop-db to suit it")  # fmt: skip
+        lines.append(f"  {'stage':<6s}{'':4s}{'nominal':>10s} {'1 %':>10s} .. 99 %")
+        for s in ft.stages:
+            lines.append(f"  {s.stage:<6d} f0  {_spread(s.f0_hz, hz)}")
+            if s.q is not None:
+                lines.append(f"  {'':<6s} Q   {_spread(s.q, q)}")
+    lines += [
+        "",
+        f"yield (every filter inside its mask): {100 * result.yield_fraction:.1f} %",
+        f"worst build: number {result.worst_build}, deviating {result.worst_deviation_db:.2f} dB "
+        "from nominal; its parts (nominal -> drawn):",
+    ]
+    for filt, parts in zip(design.filters, result.worst_parts, strict=True):
+        for stage, drawn in zip(filt.stages, parts, strict=True):
+            nominal = stage.circuit.parts()
+            text = "  ".join(
+                f"{k} {format_letter_code(nominal[k], k[0])}->{format_letter_code(v, k[0])} "
+                f"({100 * (v / nominal[k] - 1):+.1f} %)"
+                for k, v in drawn.items()
+            )
+            lines.append(f"  {filt.name} stage {stage.index}: {text}")
+    lines += [f"wrote {path}" for path in files.values()]
+    return "\n".join(lines)
