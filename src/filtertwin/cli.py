@@ -153,3 +153,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("filtertwin: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # the reader went away (e.g. `| head`): stop quietly, as command-line tools do
+        sys.stderr.close()
+        return 0

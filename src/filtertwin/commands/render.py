@@ -1,0 +1,264 @@
+"""`filtertwin render`: a recording through the twin into files, with spectra and a report.
+
+Everything that can be wrong with the input or the output folder is checked before the
+first output file is created; after that, an error removes every output of this run.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import time
+from pathlib import Path
+from typing import Any, TextIO
+
+from filtertwin.errors import UserInputError
+
+SAFETY_LINE = (
+    "Caution: loud playback harms hearing and drivers; check the levels before playing the "
+    "outputs, and start quiet."
+)
+PROGRESS_AFTER_S = 2.0
+"""Show the progress bar only for renders that take longer than this."""
+PROGRESS_EVERY_S = 0.2
+
+
+def register(subparsers: Any) -> None:
+    """Add the ``render`` sub-command."""
+    p = subparsers.add_parser(
+        "render",
+        help="render a recording through the twin: before/after files, spectra, report",
+        description=(
+            "Stream a recording through the digital twin of a design and write the input as "
+            "heard (before), every filter's output and, for a crossover, the sum of the ways, "
+            "with spectra, the twin against the analog model, report.html and summary.json. "
+            + SAFETY_LINE
+        ),
+    )
+    p.add_argument("design", help="design file (TOML) or the name of a packaged example")
+    p.add_argument("input", help="recording: WAV/FLAC audio, or a CSV/NPY sensor capture")
+    p.add_argument("--out", required=True, metavar="DIR", help="output folder (created if missing)")
+    p.add_argument("--format", choices=("wav", "flac"), default="wav", help="audio output format")
+    p.add_argument(
+        "--subtype", choices=("float", "pcm24", "pcm16"),
+        help="sample format of audio outputs (default float for WAV, pcm24 for FLAC)",
+    )  # fmt: skip
+    p.add_argument(
+        "--block", type=_block, default=16384, metavar="N", help="frames per block (default 16384)"
+    )
+    p.add_argument(
+        "--oversample", type=_oversample, default="auto", metavar="1|2|4|8|auto",
+        help="run the twin at 1, 2, 4 or 8 times the input rate; auto (default) picks the "
+        "smallest factor whose fidelity is within 0.1 dB and 1 degree",
+    )  # fmt: skip
+    p.add_argument(
+        "--build", choices=("nominal", "worst"), default="nominal",
+        help="render the nominal parts, or the worst build of a tolerance analysis",
+    )  # fmt: skip
+    p.add_argument(
+        "--builds", type=_count, default=500, metavar="N",
+        help="tolerance builds for --build worst (default 500)",
+    )  # fmt: skip
+    p.add_argument(
+        "--seed", type=_seed, default=1, metavar="S",
+        help="random seed of the tolerance builds (default 1)",
+    )  # fmt: skip
+    p.add_argument(
+        "--rate", type=_rate, metavar="HZ",
+        help="sample rate of a sensor capture (NPY, CSV without a time column)",
+    )  # fmt: skip
+    p.add_argument(
+        "--column", metavar="NAME|INDEX",
+        help="the one channel or CSV column to render (default all)",
+    )  # fmt: skip
+    p.add_argument(
+        "--no-report", action="store_true",
+        help="write the audio and summary.json only (no spectra, figures, HTML)",
+    )  # fmt: skip
+    p.set_defaults(func=cmd_render)
+
+
+def _block(text: str) -> int:
+    if not text.isdigit() or not 1 <= int(text) <= 2**20:
+        raise argparse.ArgumentTypeError(
+            f"must be a whole number of frames, 1 to 1048576, got {text}"
+        )
+    return int(text)
+
+
+def _seed(text: str) -> int:
+    if not text.isdigit():
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 0, got {text}")
+    return int(text)
+
+
+def _count(text: str) -> int:
+    if not text.isdigit() or int(text) < 2:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 2, got {text}")
+    return int(text)
+
+
+def _oversample(text: str) -> int | str:
+    if text == "auto":
+        return text
+    if text in ("1", "2", "4", "8"):
+        return int(text)
+    raise argparse.ArgumentTypeError("must be 1, 2, 4, 8 or auto")
+
+
+def _rate(text: str) -> float:
+    from filtertwin import units
+
+    try:
+        value = units.parse_quantity(text, None)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"must be a positive rate in Hz, got {text}")
+    return value
+
+
+def _column(text: str | None) -> str | int | None:
+    return int(text) if text is not None and text.isdigit() else text
+
+
+class _ProgressBar:
+    """A one-line bar on a terminal after the first seconds; silent when not a terminal."""
+
+    def __init__(self, stream: TextIO, rate_hz: float) -> None:
+        self.stream = stream
+        self.rate_hz = rate_hz
+        self.active = stream.isatty()
+        self.started = time.monotonic()
+        self.last = 0.0
+        self.shown = False
+
+    def __call__(self, done: int, total: int) -> None:
+        now = time.monotonic()
+        if not self.active or now - self.started < PROGRESS_AFTER_S:
+            return
+        if now - self.last < PROGRESS_EVERY_S and done < total:
+            return
+        self.last = now
+        width = 30
+        filled = int(width * done / max(total, 1))
+        self.stream.write(
+            f"\r[{'#' * filled}{'.' * (width - filled)}] {100 * done / max(total, 1):5.1f} %"
+            f"  {done / self.rate_hz:8.1f} of {total / self.rate_hz:.1f} s"
+        )
+        self.stream.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def cmd_render(args: argparse.Namespace) -> int:
+    """Run ``filtertwin render``; returns the exit status (0)."""
+    from filtertwin import recordings
+
+    info = recordings.inspect(args.input, rate_hz=args.rate, column=_column(args.column))
+
+    from filtertwin import examples, render
+    from filtertwin.design import build_design
+    from filtertwin.report import summary
+    from filtertwin.spec import load_design
+    from filtertwin.twin import build_twin
+
+    design = build_design(load_design(examples.resolve(args.design)))
+    tolerance = None
+    if args.build == "worst":
+        from filtertwin.checks.tolerance import run_tolerance, worst_build_design
+
+        tolerance = run_tolerance(design, args.builds, seed=args.seed)
+        design = worst_build_design(design, tolerance)
+    twin = build_twin(design, info.rate_hz, oversampling=args.oversample)
+    settings = render.RenderSettings(
+        block_frames=args.block, audio_format=args.format, subtype=args.subtype,
+        spectra=not args.no_report,
+    )  # fmt: skip
+    suffix, subtype = render.output_kind(info, settings)
+    folder = Path(args.out)
+    if folder.exists() and not folder.is_dir():
+        raise UserInputError(f"--out {folder} is a file, not a folder; give a folder name")
+    plan = render.plan_outputs([f.name for f in twin.filters], folder, suffix)
+    reported = [folder / summary.REPORT_NAME, folder / summary.SUMMARY_NAME]
+    figure_dir = folder / summary.FIGURES_FOLDER
+    reported += [figure_dir / f"{name}.png" for name in ("spectra", "response", "tolerance")]
+    render.refuse_input_overwrite([p.path for p in plan] + reported, info.path)
+
+    created = [p for p in (folder, *folder.parents) if not p.exists()]  # deepest first
+    folder.mkdir(parents=True, exist_ok=True)
+    bar = _ProgressBar(sys.stderr, info.rate_hz)
+    try:
+        try:
+            result = render.render(twin, info, plan, subtype, settings, progress=bar)
+        finally:
+            bar.close()
+        extra: list[Path] = []
+        try:
+            sections, extra_summary = [], {}
+            if tolerance is not None:
+                extra_summary = {"tolerance": tolerance.to_dict()}
+                if not args.no_report:
+                    sections.append(_tolerance_section(tolerance, figure_dir, info.path, extra))
+            written = summary.write_render_report(
+                folder, result, info, design, twin, build=args.build, extra_sections=sections,
+                extra_figures=extra, extra_summary=extra_summary, with_report=not args.no_report,
+            )  # fmt: skip
+        except BaseException:
+            for path in [f.path for f in result.files] + extra:
+                path.unlink(missing_ok=True)
+            raise
+    except BaseException:
+        for made in created:
+            if made.is_dir() and not any(made.iterdir()):
+                made.rmdir()
+        raise
+    _print_summary(result, twin, design, folder, extra + written)
+    return 0
+
+
+def _tolerance_section(result: Any, figure_dir: Path, source: Path, written: list[Path]) -> Any:
+    """Draw the tolerance envelope into ``figure_dir`` (noted in ``written``); its section."""
+    from filtertwin.report.check_figures import tolerance_figure
+    from filtertwin.report.summary import tolerance_section
+
+    figure_dir.mkdir(exist_ok=True)
+    path = tolerance_figure(result, figure_dir / "tolerance.png", protect=[source])
+    written.append(path)
+    return tolerance_section(result, path)
+
+
+def _print_summary(result: Any, twin: Any, design: Any, folder: Path, written: list[Path]) -> None:
+    seconds = result.frames / result.rate_hz
+    speed = seconds / result.elapsed_s if result.elapsed_s else math.inf
+    over = f", twin at {twin.rate_hz:g} Hz ({twin.oversampling}x)" if twin.oversampling > 1 else ""
+    print(
+        f"rendered {result.source.name} ({seconds:.1f} s, {result.channels} ch, "
+        f"{result.rate_hz:g} Hz) through '{design.title}'{over} in {result.elapsed_s:.2f} s "
+        f"({speed:.3g}x real time) into {folder}"
+    )
+    width = max(len(f.path.name) for f in result.files)
+    for f in result.files:
+        top = max(f.peak)
+        level = f"peak {20 * math.log10(top):+6.1f} dBFS" if top > 0 else "silent"
+        note = ""
+        if f.over_full_scale:
+            kept = "clipped in the file" if (f.subtype or "").startswith("PCM") else "kept (float)"
+            note = f"  ({f.over_full_scale} samples over full scale, {kept})"
+        print(f"  {f.path.name:<{width}s}  {f.role:<6s}  {level}{note}")
+    if written:
+        print("  " + ", ".join(Path(p).relative_to(folder).as_posix() for p in written))
+    if result.clips:
+        for c in result.clips:
+            print(
+                f"clipping: filter '{c.filter}' stage {c.stage}: {c.samples} samples reached the"
+                " amplifier swing"
+            )
+    else:
+        print("clipping: none in the amplifier model")
+    print(SAFETY_LINE)
