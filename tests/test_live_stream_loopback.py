@@ -45,14 +45,24 @@ def low_pass() -> np.ndarray:
 
 
 def connect_loopback(client_name: str) -> None:
-    """Connect PortAudio's output ports to its own input ports (out_i -> in_i)."""
+    """Connect PortAudio's output ports to its own input ports, in order.
+
+    PortAudio numbers its ports with a counter that runs on over the streams of a process
+    (after output-only streams the outputs can be out_12, out_13 with inputs in_0, in_1),
+    so the ports are paired by position, not by number.
+    """
     import jack
 
+    def number(port: jack.Port) -> int:
+        return int(port.name.rsplit("_", 1)[1])
+
     with jack.Client(client_name, no_start_server=True) as client:
-        outputs = client.get_ports(r"PortAudio[^:]*:out_", is_audio=True)
+        outputs = sorted(client.get_ports(r"PortAudio[^:]*:out_", is_audio=True), key=number)
+        inputs = sorted(client.get_ports(r"PortAudio[^:]*:in_", is_audio=True), key=number)
         assert outputs, "PortAudio's JACK ports do not exist: is the stream open?"
-        for port in outputs:
-            client.connect(port.name, port.name.replace(":out_", ":in_"))
+        assert len(inputs) == len(outputs), (outputs, inputs)
+        for source, target in zip(outputs, inputs, strict=True):
+            client.connect(source, target)
 
 
 def loop_once(sd, device: int, source: np.ndarray, coefficients: np.ndarray):

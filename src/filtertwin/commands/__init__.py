@@ -10,7 +10,14 @@ import importlib
 from collections.abc import Callable
 from typing import Any
 
-COMMAND_MODULES: tuple[str, ...] = ()
+COMMAND_MODULES: tuple[str, ...] = (
+    "render",
+    "alias",
+    "crossover",
+    "tolerance",
+    "listen",
+    "devices",
+)
 
 
 def registrars() -> list[Callable[[Any], None]]:

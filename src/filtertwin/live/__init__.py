@@ -9,4 +9,13 @@ Modules (import the one you need; none imports sounddevice at import time):
 - ``blind``: ABX and blind preference trials, their log and exact binomial score.
 - ``keys``: key table, timed command scripts and the terminal key reader.
 - ``devices``: listing and choosing sounddevice devices, with one-line errors.
+
+``filtertwin listen`` is built from them with:
+
+- ``candidates``, ``routing``, ``matching``: the designs as candidates and ways, where each
+  way is heard (stereo mix or one channel pair per way), level matching.
+- ``stream`` (audio callback, read-ahead thread), ``ring``, ``resample``: the real-time path.
+- ``session``, ``edits``, ``chains``: what commands do, live part and corner edits, swapping
+  rebuilt chains into the running runner.
+- ``status``, ``console``, ``player``: status line and summary, the control loop, assembly.
 """

@@ -76,13 +76,24 @@ RULES: dict[str, CommandRule] = {
     "level": CommandRule("level DB", (1,), help="set the output level in dB (-60 to +12)"),
     "louder": CommandRule("louder", (0,), help=f"output level up {LEVEL_STEP_DB:g} dB"),
     "quieter": CommandRule("quieter", (0,), help=f"output level down {LEVEL_STEP_DB:g} dB"),
-    "trials": CommandRule("trials", (0,), help="start the blind trials, or go to the next trial"),
+    "trials": CommandRule("trials", (0,), help="in blind trials: say the trial and its keys"),
     "listen": CommandRule("listen A|B|X|1|2", (1,), LISTEN_CHOICES, "in a trial: hear a choice"),
     "answer": CommandRule(
         "answer [A|B|1|2]", (0, 1), ANSWER_CHOICES, "answer the trial (no choice: the one heard)"
     ),
-    "part": CommandRule("part NAME VALUE", (2,), help="change a part, e.g. part R3 4k7"),
-    "edit": CommandRule("edit", (0,), help="type a part change (part NAME VALUE)"),
+    "part": CommandRule(
+        "part [WAY] [STAGE] PART CHANGE",
+        (2, 3, 4),
+        help="change a part of the candidate heard: 'part low 2 C1 +1' steps C1 of stage 2 "
+        "of the low way one E-series value up, 'part low 2 C1 22n' sets it",
+    ),
+    "corner": CommandRule(
+        "corner [WAY] HZ [HZ]",
+        (1, 2, 3),
+        help="move the corner of a filter given by an alignment, e.g. 'corner low 2.5k'",
+    ),
+    "confirm": CommandRule("confirm", (0,), help="confirm the warning just given (within 3 s)"),
+    "edit": CommandRule("edit", (0,), help="type a command such as 'part low 2 C1 +1'"),
     "help": CommandRule("help", (0,), help="show the keys"),
     "quit": CommandRule("quit", (0,), help="fade out and stop"),
 }
@@ -109,7 +120,7 @@ KEY_BINDINGS: tuple[KeyBinding, ...] = (
     KeyBinding("H", Command("mute", ("high",)), "leave the high way out of the sum (again: back)"),
     KeyBinding("+", Command("louder"), f"output level up {LEVEL_STEP_DB:g} dB"),
     KeyBinding("-", Command("quieter"), f"output level down {LEVEL_STEP_DB:g} dB"),
-    KeyBinding("t", Command("trials"), "start the blind trials, or go to the next trial"),
+    KeyBinding("t", Command("trials"), "in blind trials: say the trial and its keys"),
     KeyBinding("a", Command("listen", ("A",)), "in a trial: hear A"),
     KeyBinding("b", Command("listen", ("B",)), "in a trial: hear B"),
     KeyBinding("x", Command("listen", ("X",)), "in a trial: hear the unknown X"),
@@ -117,7 +128,7 @@ KEY_BINDINGS: tuple[KeyBinding, ...] = (
     KeyBinding("B", Command("answer", ("B",)), "in a trial: answer 'X is B'"),
     KeyBinding("\n", Command("answer"), "in a trial: answer with the one you hear now"),
     KeyBinding("\r", Command("answer"), ""),
-    KeyBinding("e", Command("edit"), "type a part change: part NAME VALUE (e.g. part R3 4k7)"),
+    KeyBinding("e", Command("edit"), "type a command, e.g. 'part low 2 C1 +1', 'corner 2.5k'"),
     KeyBinding("?", Command("help"), "show these keys"),
     KeyBinding("q", Command("quit"), "fade out and stop"),
 )

@@ -1,0 +1,392 @@
+"""Putting a listening session together: device, input, twins, runner, stream.
+
+:func:`prepare` does everything that may fail or take time before a stream opens: it picks
+the device and checks its settings, validates the recording, builds each candidate's twin
+at the rate it will run at, measures the level match, compiles and primes every kernel of
+the callback path, and makes the read-ahead thread. :class:`Player` then opens, starts and
+stops the stream (``open`` and ``start`` are separate, so that a test can connect the
+stream's ports in between).
+
+Two paths, chosen by the input:
+
+* *in the callback*: live input, or a recording at the stream's rate. The twins run at the
+  stream rate, in the audio callback, on the block just read.
+* *read ahead*: a recording at another rate (a sensor recording, say). The twins run at the
+  recording's own rate in the read-ahead thread, and every chain's output and the dry input
+  are resampled to the stream rate there; the callback only mixes.
+"""
+
+from __future__ import annotations
+
+import gc
+import sys
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from types import ModuleType
+from typing import Any
+
+import numpy as np
+
+from filtertwin import engine, recordings
+from filtertwin.design import Design
+from filtertwin.errors import UserInputError
+from filtertwin.live import candidates as cands
+from filtertwin.live import devices, matching, mixer, ring, routing, safety, stream
+from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
+from filtertwin.live.chains import ChainHost
+from filtertwin.live.resample import StreamResampler, ratio
+from filtertwin.live.session import ListenSession
+
+CHUNK_FRAMES = 1024
+MAX_CHANNELS = 2
+SWITCH_INTERVAL_S = 0.0005
+"""Interpreter thread switch interval while streaming: the audio callback needs the
+interpreter lock within a fraction of a block, not after the default 5 ms."""
+
+
+@dataclass(frozen=True)
+class ListenOptions:
+    """Settings of a listening session (what the command line gives).
+
+    Attributes
+    ----------
+    input_path : Path or None
+        Recording to play in a loop; None filters the device's live input.
+    input_rate_hz : float or None
+        Rate of a CSV (without time column) or NPY recording.
+    column : str or None
+        The one column or channel of the recording to play.
+    device : str or int or None
+        Device number or (part of its) name; None for the default device.
+    rate_hz : float or None
+        Stream rate; default the device's default rate.
+    block_frames : int
+        Frames per callback.
+    latency : str or float or None
+        sounddevice latency ("low", "high" or seconds); None: "high" for a recording,
+        "low" for live input.
+    match : str or None
+        "loudness", "gain" or "off"; None: loudness for a recording, gain for live input.
+    match_seconds : float
+        Length of the excerpt measured for loudness matching.
+    level_db, ceiling_dbfs, ramp_s : float
+        Output level, ceiling and ramp time (:class:`~filtertwin.live.safety.OutputSafety`).
+    fade_s : float
+        Crossfade time of a switch.
+    ways_out : bool
+        One output channel pair per way instead of the stereo mix.
+    read_ahead_s : float
+        Audio held ready by the read-ahead thread.
+    blind : str or None
+        "abx" or "preference" for blind trials.
+    trials : int
+        Number of blind trials.
+    seed : int or None
+        Seed of the blind plan (None: drawn from the clock, and printed at the end).
+    log_path : Path or None
+        Trial log (CSV).
+    """
+
+    input_path: Path | None = None
+    input_rate_hz: float | None = None
+    column: str | None = None
+    device: str | int | None = None
+    rate_hz: float | None = None
+    block_frames: int = 256
+    latency: str | float | None = None
+    match: str | None = None
+    match_seconds: float = 10.0
+    level_db: float = 0.0
+    ceiling_dbfs: float = safety.MAX_CEILING_DBFS
+    ramp_s: float = 1.0
+    fade_s: float = 0.03
+    ways_out: bool = False
+    read_ahead_s: float = 0.25
+    blind: str | None = None
+    trials: int = 0
+    seed: int | None = None
+    log_path: Path | None = None
+
+
+def warm_up() -> None:
+    """Compile every kernel of the live path (before any stream opens)."""
+    engine.warm_up()
+    safety.warm_up()
+    mixer.warm_up()
+    ring.warm_up()
+    stream.warm_up()
+
+
+def _read_excerpt(info: recordings.RecordingInfo, seconds: float, channels: int) -> np.ndarray:
+    wanted = max(1, round(seconds * info.rate_hz))
+    pieces, frames = [], 0
+    for block in recordings.read_blocks(info, recordings.SCAN_FRAMES):
+        pieces.append(block[:, :channels])
+        frames += len(block)
+        if frames >= wanted:
+            break
+    return np.concatenate(pieces)[:wanted]
+
+
+def _inspect_input(options: ListenOptions) -> recordings.RecordingInfo:
+    assert options.input_path is not None
+    info = recordings.inspect(
+        options.input_path, rate_hz=options.input_rate_hz, column=options.column
+    )
+    if info.channels > MAX_CHANNELS:
+        raise UserInputError(
+            f"{info.path} has {info.channels} channels ({', '.join(info.channel_names)}); "
+            "listen to one with --column NAME, or give a mono or stereo file"
+        )
+    return info
+
+
+def _match(
+    options: ListenOptions,
+    candidates: Sequence[cands.ListenCandidate],
+    twins: Sequence[Any],
+    program: np.ndarray | None,
+    rate_hz: float,
+) -> matching.LevelMatch:
+    mode = options.match or ("loudness" if program is not None else "gain")
+    if mode == "off":
+        return matching.no_match(len(candidates))
+    if mode == "gain":
+        return matching.match_by_gain([c.design for c in candidates])
+    if program is None:
+        raise UserInputError(
+            "--match loudness needs a recording (--input); for live input use --match gain"
+        )
+    return matching.match_by_loudness(program, rate_hz, twins)
+
+
+def _blind(
+    options: ListenOptions, candidates: Sequence[cands.ListenCandidate]
+) -> BlindSession | None:
+    if options.blind is None:
+        return None
+    if len(candidates) != 2:
+        raise UserInputError(
+            f"blind trials compare two designs, {len(candidates)} were given; give exactly two"
+        )
+    seed = options.seed if options.seed is not None else time.time_ns() % 2**32
+    kind: Kind = "abx" if options.blind == "abx" else "preference"
+    plan = plan_trials((candidates[0].name, candidates[1].name), options.trials, seed, kind)
+    log = TrialLog(options.log_path, plan) if options.log_path is not None else None
+    return BlindSession(plan, log)
+
+
+class Player:
+    """A prepared session and its stream (see :func:`prepare`)."""
+
+    def __init__(
+        self,
+        *,
+        sd: ModuleType,
+        device: devices.Device,
+        options: ListenOptions,
+        rate_hz: float,
+        core: stream.StreamCore,
+        session: ListenSession,
+        feeder: stream.Feeder | None,
+        in_channels: int,
+    ) -> None:
+        self.sd = sd
+        self.device = device
+        self.options = options
+        self.rate_hz = rate_hz
+        self.core = core
+        self.session = session
+        self.feeder = feeder
+        self.in_channels = in_channels
+        self.stream: Any = None
+        self.started_s: float | None = None
+        self._saved_switch_interval_s: float | None = None
+
+    def describe(self) -> str:
+        """One line: device, rate, block size and what is played."""
+        source = f"{self.options.input_path} in a loop" if self.feeder is not None else "live input"
+        return (
+            f"device {self.device.describe()}; stream {self.rate_hz:g} Hz, "
+            f"{self.core.block_frames} frames per block; {source}"
+        )
+
+    def open(self) -> None:
+        """Open the stream (not started yet).
+
+        Raises
+        ------
+        UserInputError
+            If PortAudio cannot open it (one line naming the device).
+        """
+        options = self.options
+        kwargs: dict[str, Any] = {
+            "samplerate": self.rate_hz,
+            "blocksize": self.core.block_frames,
+            "dtype": "float32",
+            "latency": options.latency or ("high" if self.feeder is not None else "low"),
+        }
+        try:
+            if self.feeder is None:
+                self.stream = self.sd.Stream(
+                    device=(self.device.index, self.device.index),
+                    channels=(self.in_channels, self.core.out_channels),
+                    callback=self.core.callback,
+                    **kwargs,
+                )
+            else:
+                self.stream = self.sd.OutputStream(
+                    device=self.device.index,
+                    channels=self.core.out_channels,
+                    callback=self.core.output_callback,
+                    **kwargs,
+                )
+        except self.sd.PortAudioError as error:
+            raise devices.audio_error(error, self.device) from None
+
+    def start(self) -> None:
+        """Fill the read-ahead buffer, set the first mix and start the stream."""
+        if self.stream is None:
+            self.open()
+        if self.feeder is not None:
+            self.feeder.start()
+            if self.feeder.error is not None:
+                raise self.feeder.error
+        self.session.start(time.monotonic())
+        if self._saved_switch_interval_s is None:
+            self._saved_switch_interval_s = sys.getswitchinterval()
+            sys.setswitchinterval(SWITCH_INTERVAL_S)
+            # everything made so far lives as long as the stream: keep it out of the cyclic
+            # collector, whose full passes would otherwise hold the interpreter for ~0.1 s
+            gc.collect()
+            gc.freeze()
+        try:
+            self.stream.start()
+        except self.sd.PortAudioError as error:
+            raise devices.audio_error(error, self.device) from None
+        self.started_s = time.monotonic()
+
+    def cpu_load(self) -> float | None:
+        """The stream's CPU load estimate (fraction), or None before it runs."""
+        return None if self.stream is None else float(self.stream.cpu_load)
+
+    def played_s(self) -> float:
+        """Seconds since the stream started."""
+        return 0.0 if self.started_s is None else time.monotonic() - self.started_s
+
+    def fade_out(self, timeout_s: float | None = None) -> None:
+        """Ramp the output to silence and wait until it is silent (or the timeout)."""
+        self.core.safety.fade_out()
+        if self.stream is None or not self.stream.active:
+            return
+        limit = self.options.ramp_s + 0.5 if timeout_s is None else timeout_s
+        deadline = time.monotonic() + limit
+        while not self.core.safety.is_silent() and time.monotonic() < deadline:
+            time.sleep(0.01)
+        time.sleep(2 * self.core.period_s)  # the last blocks reach the device
+
+    def close(self) -> None:
+        """Stop and close the stream and the read-ahead thread (safe to call twice)."""
+        if self.stream is not None:
+            try:
+                self.stream.stop()
+            finally:
+                self.stream.close()
+                self.stream = None
+        if self.feeder is not None:
+            self.feeder.stop()
+        if self._saved_switch_interval_s is not None:
+            sys.setswitchinterval(self._saved_switch_interval_s)
+            self._saved_switch_interval_s = None
+            gc.unfreeze()
+
+
+def prepare(
+    named_designs: Sequence[tuple[str, Design]],
+    options: ListenOptions,
+    say: Callable[[str], None] = print,
+    sd: ModuleType | None = None,
+) -> Player:
+    """Everything before the stream opens (see the module docstring).
+
+    Raises
+    ------
+    UserInputError
+        One line for every problem a user can fix: PortAudio missing, no device, the
+        device's rate or channels, the recording, the designs, the blind-trial settings.
+    """
+    sd = devices.load_sounddevice() if sd is None else sd
+    candidates = cands.make_candidates(named_designs)
+    pair_ways = cands.output_ways(candidates) if options.ways_out else routing.STEREO_MIX
+    out_channels = 2 * max(1, len(pair_ways))
+    info = _inspect_input(options) if options.input_path is not None else None
+    direction: devices.Direction = "output" if info is not None else "duplex"
+    device = devices.find_device(options.device, direction, sd)
+    rate_hz = options.rate_hz or device.default_rate_hz
+    devices.check_settings(device, rate_hz, out_channels, "output", sd)
+    if info is None:
+        in_channels = min(MAX_CHANNELS, device.input_channels)
+        devices.check_settings(device, rate_hz, in_channels, "input", sd)
+    else:
+        in_channels = info.channels
+    blind = _blind(options, candidates)
+
+    in_callback = info is None or abs(info.rate_hz - rate_hz) <= 1e-6 * rate_hz
+    processing_rate_hz = rate_hz if in_callback else info.rate_hz  # type: ignore[union-attr]
+    twins = cands.build_twins(candidates, processing_rate_hz)
+    sos, levels = cands.chains(twins)
+    program = None
+    if info is not None and options.match in (None, "loudness"):
+        program = _read_excerpt(info, options.match_seconds, in_channels)
+    match = _match(options, candidates, twins, program, processing_rate_hz)
+
+    warm_up()
+    output_safety = safety.OutputSafety(
+        rate_hz, options.level_db, options.ceiling_dbfs, ramp_s=options.ramp_s
+    )
+    block = options.block_frames
+    feeder = None
+    host: ChainHost
+    if in_callback:
+        runner = engine.CascadeRunner(sos, in_channels, block, levels, dtype=np.float32)
+        buffer = None
+        if info is not None:
+            capacity = max(4 * block, round(options.read_ahead_s * rate_hz))
+            buffer = ring.BlockRing(1, capacity, in_channels)
+            feeder = stream.Feeder(info, buffer, CHUNK_FRAMES, in_channels)
+        core = stream.StreamCore(
+            n_chains=len(sos), channels=in_channels, block_frames=block, rate_hz=rate_hz,
+            runner=runner, ring=buffer, safety=output_safety, pairs=out_channels // 2,
+            fade_s=options.fade_s,
+        )  # fmt: skip
+        host = core
+    else:
+        assert info is not None
+        up, down = ratio(info.rate_hz, rate_hz)
+        pre_runner = engine.CascadeRunner(sos, in_channels, CHUNK_FRAMES, levels)
+        prefilter = stream.PreFilter(
+            pre_runner, StreamResampler(up, down, (len(sos) + 1) * in_channels)
+        )
+        capacity = max(4 * block, round(options.read_ahead_s * rate_hz))
+        buffer = ring.BlockRing(len(sos) + 1, capacity, in_channels)
+        feeder = stream.Feeder(info, buffer, CHUNK_FRAMES, in_channels, prefilter)
+        core = stream.StreamCore(
+            n_chains=len(sos), channels=in_channels, block_frames=block, rate_hz=rate_hz,
+            runner=None, ring=buffer, safety=output_safety, pairs=out_channels // 2,
+            fade_s=options.fade_s,
+        )  # fmt: skip
+        host = prefilter
+        say(
+            f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
+            f"result is resampled to {rate_hz:g} Hz (x {up}/{down}) ahead of the stream"
+        )
+    core.prime()
+    session = ListenSession(
+        candidates, twins, core, host, processing_rate_hz, match, pair_ways, program, blind, say
+    )
+    return Player(
+        sd=sd, device=device, options=options, rate_hz=rate_hz, core=core, session=session,
+        feeder=feeder, in_channels=in_channels,
+    )  # fmt: skip

@@ -1,0 +1,250 @@
+"""The status line (redrawn about ten times a second) and the summary printed at the end.
+
+:class:`StatusReader` gathers the facts from the stream's counters and meters (written by
+the audio callback into preallocated arrays, only read here) into a :class:`StatusFacts`;
+:func:`status_line` and :func:`summary_lines` turn facts into text. Nothing here runs in the
+audio thread.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from filtertwin.live.session import ListenSession
+from filtertwin.live.stream import BLOCKS, CPU_HISTORY, STARVED_FRAMES, XRUNS
+
+METER_FLOOR_DB = -48.0
+CLIP_HOLD_S = 1.0
+
+
+@dataclass(frozen=True)
+class StatusFacts:
+    """What the status line shows.
+
+    Attributes
+    ----------
+    hearing : str
+        What is heard ("A", "bypass", "trial 2/8 X").
+    way_peaks : tuple of (str, float)
+        Peak (full-scale units, falling) of each way of the heard candidate.
+    output_peak : float
+        Peak of the output after the ceiling.
+    limiting : bool
+        The ceiling reduced the level since the last redraw.
+    clipping : tuple of str
+        Stages that reached their amplifier's swing within the last second ("low s2").
+    xruns, starved_frames : int
+        Blocks with stream status flags; frames the read-ahead did not deliver in time.
+    cpu_load : float or None
+        The stream's own CPU load estimate (fraction), when known.
+    callback_median_s, callback_max_s : float
+        Time spent in the callback over the recent blocks.
+    period_s : float
+        Duration of one block.
+    level_db : float
+        Output level set.
+    ramp_gain : float
+        Level-ramp gain reached now, over the gain of the level set (1.0 when there).
+    elapsed_s : float
+        Time since the stream started.
+    """
+
+    hearing: str
+    way_peaks: tuple[tuple[str, float], ...]
+    output_peak: float
+    limiting: bool
+    clipping: tuple[str, ...]
+    xruns: int
+    starved_frames: int
+    cpu_load: float | None
+    callback_median_s: float
+    callback_max_s: float
+    period_s: float
+    level_db: float
+    ramp_gain: float
+    elapsed_s: float
+
+
+def dbfs(value: float) -> str:
+    """A peak in dBFS with one decimal, or "-inf"."""
+    return f"{20 * math.log10(value):5.1f}" if value > 0 else " -inf"
+
+
+def meter_bar(peak: float, width: int = 8) -> str:
+    """A bar of ``width`` cells from -48 dBFS (empty) to 0 dBFS (full)."""
+    if peak <= 0:
+        return "." * width
+    fraction = (20 * math.log10(peak) - METER_FLOOR_DB) / -METER_FLOOR_DB
+    cells = max(0, min(width, round(fraction * width)))
+    return "#" * cells + "." * (width - cells)
+
+
+def status_line(facts: StatusFacts) -> str:
+    """The status line, e.g. ``A | low ####.... -18.2 | out -12.0 dBFS | ...``."""
+    ways = " ".join(f"{way} {meter_bar(peak)} {dbfs(peak)}" for way, peak in facts.way_peaks)
+    level = f"level {facts.level_db:+.0f} dB"
+    if facts.ramp_gain < 0.999:
+        level += f" (ramp {100 * facts.ramp_gain:.0f} %)"
+    cpu = f"cb {1e6 * facts.callback_median_s:.0f}/{1e6 * facts.callback_max_s:.0f} us"
+    cpu += f" ({100 * facts.callback_median_s / facts.period_s:.1f} %)"
+    if facts.cpu_load is not None:
+        cpu += f" load {100 * facts.cpu_load:.0f} %"
+    fields = [
+        facts.hearing,
+        ways or "-",
+        f"out {dbfs(facts.output_peak)} dBFS" + (" LIMIT" if facts.limiting else ""),
+        "clip " + (",".join(facts.clipping) if facts.clipping else "-"),
+        f"xruns {facts.xruns}"
+        + (f" starved {facts.starved_frames}" if facts.starved_frames else ""),
+        cpu,
+        level,
+        f"{facts.elapsed_s:.1f} s",
+    ]
+    return " | ".join(fields)
+
+
+class StatusReader:
+    """Reads the stream's meters and counters for the status line (control thread).
+
+    Parameters
+    ----------
+    session : ListenSession
+        The session (what is heard, the core, the runner's clip counts).
+    cpu_load : callable
+        Returns the stream's CPU load (fraction) or None.
+    clock : callable
+        Seconds, monotonic.
+    """
+
+    def __init__(
+        self,
+        session: ListenSession,
+        cpu_load: Callable[[], float | None] = lambda: None,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        self.session = session
+        self.core = session.core
+        self.cpu_load = cpu_load
+        self.clock = clock
+        self.started_s = clock()
+        self._limited = 0
+        self._clip_counts = session.swapper.clip_counts().copy()
+        self._clip_seen_s: dict[tuple[int, int], float] = {}
+
+    def _recent_callback_s(self) -> tuple[float, float]:
+        done = int(self.core.counters[BLOCKS])
+        recent = max(1, min(done, round(1.0 / self.core.period_s), CPU_HISTORY))
+        if done == 0:
+            return 0.0, 0.0
+        index = (np.arange(done - recent, done)) % CPU_HISTORY
+        times = self.core.cpu_s[index]
+        return float(np.median(times)), float(np.max(times))
+
+    def _clipping(self, now_s: float) -> tuple[str, ...]:
+        counts = self.session.swapper.clip_counts()
+        if counts.shape != self._clip_counts.shape:
+            self._clip_counts = np.zeros_like(counts)
+        grown = np.argwhere(counts > self._clip_counts)
+        self._clip_counts = counts.copy()
+        for chain, section in grown:
+            self._clip_seen_s[(int(chain), int(section))] = now_s
+        index = self.session.selection.candidate
+        if index is None:
+            return ()
+        first = sum(len(c.ways) for c in self.session.candidates[:index])
+        twin = self.session.twins[index]
+        flags = []
+        for k, way in enumerate(self.session.candidates[index].ways):
+            stages = twin.filters[k].stage_of_section
+            for section, stage in enumerate(stages):
+                seen = self._clip_seen_s.get((first + k, section))
+                label = f"{way} s{stage}"
+                if seen is not None and now_s - seen <= CLIP_HOLD_S and label not in flags:
+                    flags.append(label)
+        return tuple(flags)
+
+    def facts(self) -> StatusFacts:
+        """The facts now."""
+        now_s = self.clock()
+        core, session = self.core, self.session
+        index = session.selection.candidate
+        peaks: list[tuple[str, float]] = []
+        if index is not None:
+            first = sum(len(c.ways) for c in session.candidates[:index])
+            peaks = [
+                (way, float(core.meters[first + k]))
+                for k, way in enumerate(session.candidates[index].ways)
+            ]
+        else:
+            peaks = [("dry", float(core.meters[core.n_chains]))]
+        limited = core.safety.limited_frames
+        limiting = limited > self._limited
+        self._limited = limited
+        median_s, max_s = self._recent_callback_s()
+        target = 10 ** (core.safety.level_db / 20)
+        return StatusFacts(
+            hearing=session.now_hearing(),
+            way_peaks=tuple(peaks),
+            output_peak=float(core.meters[core.n_chains + 1]),
+            limiting=limiting,
+            clipping=self._clipping(now_s),
+            xruns=int(core.counters[XRUNS]),
+            starved_frames=int(core.counters[STARVED_FRAMES]),
+            cpu_load=self.cpu_load(),
+            callback_median_s=median_s,
+            callback_max_s=max_s,
+            period_s=core.period_s,
+            level_db=core.safety.level_db,
+            ramp_gain=min(1.0, core.safety.gain / target) if target > 0 else 1.0,
+            elapsed_s=now_s - self.started_s,
+        )
+
+
+def summary_lines(session: ListenSession, played_s: float) -> list[str]:
+    """The short summary printed when the stream stops."""
+    core = session.core
+    done = int(core.counters[BLOCKS])
+    lines = [
+        f"played {played_s:.1f} s: {done} blocks of {core.block_frames} frames, "
+        f"{int(core.counters[XRUNS])} xruns, {int(core.counters[STARVED_FRAMES])} frames "
+        "not read ahead in time"
+    ]
+    if done:
+        times = core.cpu_s[: min(done, CPU_HISTORY)]
+        period_us = 1e6 * core.period_s
+        median_us, p99_us = (1e6 * float(np.percentile(times, q)) for q in (50, 99))
+        lines.append(
+            f"callback time: median {median_us:.0f} us, 99th percentile {p99_us:.0f} us "
+            f"({100 * median_us / period_us:.1f} % and {100 * p99_us / period_us:.1f} % of "
+            f"the {period_us:.0f} us period)"
+        )
+    safety = core.safety
+    lines.append(
+        f"output ceiling {safety.ceiling_dbfs:g} dBFS: limited {safety.limited_frames} frames, "
+        f"{safety.nonfinite_samples} non-finite samples silenced"
+    )
+    lines.append("stage clipping at the amplifier swing: " + _clip_summary(session))
+    if session.edits_made:
+        lines.append(f"live edits: {session.edits_made}")
+    return lines
+
+
+def _clip_summary(session: ListenSession) -> str:
+    counts = session.swapper.clip_counts()
+    found = []
+    chain = 0
+    for candidate, twin in zip(session.candidates, session.twins, strict=True):
+        for way, filter_twin in zip(candidate.ways, twin.filters, strict=True):
+            per_stage: dict[int, int] = {}
+            for section, stage in enumerate(filter_twin.stage_of_section):
+                per_stage[stage] = per_stage.get(stage, 0) + int(counts[chain, section])
+            for stage, n in per_stage.items():
+                if n:
+                    found.append(f"{candidate.label} {way} stage {stage}: {n} samples")
+            chain += 1
+    return "; ".join(found) if found else "none"

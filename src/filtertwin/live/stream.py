@@ -1,0 +1,340 @@
+"""The real-time part of ``filtertwin listen``: the audio callback and what feeds it.
+
+:class:`StreamCore` holds everything the audio callback touches, made before the stream
+opens. Per block the callback only copies, multiplies and adds into those arrays:
+
+1. the input block: from the read-ahead ring (a recording) or from ``indata`` (live input);
+2. every chain's output: the :class:`~filtertwin.engine.CascadeRunner` filters the block
+   (or, when the read-ahead thread already filtered it, the ring carries the outputs);
+3. one :class:`~filtertwin.live.mixer.SelectionMixer` per output pair (crossfades);
+4. :class:`~filtertwin.live.safety.OutputSafety` on the whole output, last;
+5. peak meters (falling at ``METER_FALL_DB_PER_S``), counters and the callback's own time.
+
+The control thread reads meters and counters and changes the mix with :meth:`request`,
+swaps chains with the runner's ``set_chain``, or replaces :attr:`StreamCore.runner` whole
+(one attribute store, taken up at the next block).
+
+:class:`Feeder` is the read-ahead thread: it reads a recording in a loop with
+:func:`filtertwin.recordings.read_blocks` into a bounded :class:`~filtertwin.live.ring.BlockRing`.
+For a recording at another rate than the stream, a :class:`PreFilter` runs the twin at
+the recording's own rate in that thread and resamples every chain's output and the dry
+input to the stream rate.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections.abc import Callable
+from typing import Any
+
+import numba
+import numpy as np
+
+from filtertwin.engine import CascadeRunner
+from filtertwin.live.mixer import SelectionMixer
+from filtertwin.live.resample import StreamResampler
+from filtertwin.live.ring import BlockRing
+from filtertwin.live.safety import OutputSafety
+from filtertwin.recordings import RecordingInfo, read_blocks
+
+BLOCKS, XRUNS, STARVED_FRAMES, ODD_BLOCKS = 0, 1, 2, 3
+"""Indices into :attr:`StreamCore.counters`."""
+CPU_HISTORY = 4096
+"""Callback times kept (the most recent blocks)."""
+METER_FALL_DB_PER_S = 20.0
+
+
+@numba.njit(cache=True)
+def _meter_kernel(
+    chains: np.ndarray, dry: np.ndarray, out: np.ndarray, meters: np.ndarray, fall: float
+) -> None:
+    """Peak of every chain, the dry input and the output; held peaks fall by ``fall``."""
+    n_chains, frames, channels = chains.shape
+    for k in range(n_chains):
+        peak = 0.0
+        for f in range(frames):
+            for c in range(channels):
+                a = abs(np.float64(chains[k, f, c]))
+                if a > peak:
+                    peak = a
+        meters[k] = max(peak, meters[k] * fall)
+    peak = 0.0
+    for f in range(frames):
+        for c in range(channels):
+            a = abs(np.float64(dry[f, c]))
+            if a > peak:
+                peak = a
+    meters[n_chains] = max(peak, meters[n_chains] * fall)
+    peak = 0.0
+    for f in range(out.shape[0]):
+        for c in range(out.shape[1]):
+            a = abs(np.float64(out[f, c]))
+            if a > peak:
+                peak = a
+    meters[n_chains + 1] = max(peak, meters[n_chains + 1] * fall)
+
+
+class StreamCore:
+    """The audio callback and its preallocated arrays.
+
+    Parameters
+    ----------
+    n_chains : int
+        Chains (candidate ways) the mixer sees.
+    channels : int
+        Channels of the input and of each chain (1 or 2); mono is duplicated on output.
+    block_frames : int
+        Frames per callback.
+    rate_hz : float
+        Stream rate.
+    runner : CascadeRunner or None
+        float32 runner filtering in the callback; None when the ring carries the chains'
+        outputs (filtered in the read-ahead thread).
+    ring : BlockRing or None
+        Source of input (and, without runner, chain outputs); None for live input.
+    safety : OutputSafety
+        Ramp and ceiling, applied to the whole output.
+    pairs : int
+        Output channel pairs (1: stereo mix; more: one per way).
+    fade_s : float
+        Crossfade time of a switch.
+    """
+
+    def __init__(
+        self,
+        *,
+        n_chains: int,
+        channels: int,
+        block_frames: int,
+        rate_hz: float,
+        runner: CascadeRunner | None,
+        ring: BlockRing | None,
+        safety: OutputSafety,
+        pairs: int = 1,
+        fade_s: float = 0.03,
+    ) -> None:
+        if channels not in (1, 2):
+            raise ValueError(f"channels must be 1 or 2, got {channels}")
+        if runner is None and ring is None:
+            raise ValueError("without a runner the ring must carry the chains' outputs")
+        self.n_chains = n_chains
+        self.channels = channels
+        self.block_frames = block_frames
+        self.rate_hz = rate_hz
+        self.runner = runner
+        self.ring = ring
+        self.safety = safety
+        self.out_channels = 2 * pairs
+        n_sources = 1 if runner is not None else n_chains + 1
+        self.sources = np.zeros((n_sources, block_frames, channels), dtype=np.float32)
+        self.dry = self.sources[n_sources - 1]
+        self._ring_chains = self.sources[:n_chains]
+        self.mixers = [SelectionMixer(n_chains, rate_hz, fade_s) for _ in range(pairs)]
+        self.mix = np.zeros((pairs, block_frames, channels), dtype=np.float32)
+        self._pair_slices = [slice(2 * p, 2 * p + 2) for p in range(pairs)]
+        self._mix_in_place = pairs == 1 and channels == 2
+        self.meters = np.zeros(n_chains + 2)
+        self._fall = 10.0 ** (-METER_FALL_DB_PER_S * block_frames / rate_hz / 20.0)
+        self.counters = np.zeros(4, dtype=np.int64)
+        self.cpu_s = np.zeros(CPU_HISTORY)
+        self._clock = time.perf_counter
+
+    @property
+    def period_s(self) -> float:
+        """Duration of one block."""
+        return self.block_frames / self.rate_hz
+
+    def request(self, gains_per_pair: list[np.ndarray]) -> None:
+        """Crossfade every output pair to its new source gains (from the control thread)."""
+        for mixer, gains in zip(self.mixers, gains_per_pair, strict=True):
+            mixer.request(gains)
+
+    def blocks_done(self) -> int:
+        """Callbacks completed so far."""
+        return int(self.counters[BLOCKS])
+
+    def callback(
+        self, indata: np.ndarray, outdata: np.ndarray, frames: int, time_info: Any, status: Any
+    ) -> None:
+        """sounddevice callback of a duplex stream (live input)."""
+        self.process(indata, outdata, bool(status))
+
+    def output_callback(
+        self, outdata: np.ndarray, frames: int, time_info: Any, status: Any
+    ) -> None:
+        """sounddevice callback of an output stream (a recording)."""
+        self.process(None, outdata, bool(status))
+
+    def process(self, indata: np.ndarray | None, outdata: np.ndarray, xrun: bool) -> None:
+        """Fill ``outdata`` (frames, out_channels) float32 for one block. Allocates no arrays.
+
+        Parameters
+        ----------
+        indata : numpy.ndarray or None
+            Live input ``(frames, channels)``, or None to read the ring.
+        outdata : numpy.ndarray
+            The block to fill.
+        xrun : bool
+            True when the stream reported a status flag for this block.
+        """
+        started = self._clock()
+        counters = self.counters
+        if xrun:
+            counters[XRUNS] += 1
+        if outdata.shape[0] != self.block_frames:
+            outdata.fill(0.0)
+            counters[ODD_BLOCKS] += 1
+            return
+        if indata is None:
+            got = self.ring.read_into(self.sources)  # type: ignore[union-attr]
+            counters[STARVED_FRAMES] += self.block_frames - got
+        else:
+            np.copyto(self.dry, indata)
+        runner = self.runner
+        chains = self._ring_chains if runner is None else runner.process(self.dry)
+        if self._mix_in_place:
+            self.mixers[0].process(chains, self.dry, outdata)
+        else:
+            for mixer, mix, pair in zip(self.mixers, self.mix, self._pair_slices, strict=True):
+                mixer.process(chains, self.dry, mix)
+                np.copyto(outdata[:, pair], mix)
+        self.safety.process(outdata)
+        _meter_kernel(chains, self.dry, outdata, self.meters, self._fall)
+        done = counters[BLOCKS]
+        self.cpu_s[done % CPU_HISTORY] = self._clock() - started
+        counters[BLOCKS] = done + 1
+
+    def prime(self) -> None:
+        """Run the callback path once on silence, compiling every kernel signature it uses.
+
+        Counters, meters and the safety ramp are left as they were.
+        """
+        saved = (self.counters.copy(), self.meters.copy(), self.cpu_s.copy())
+        safety, self.safety = self.safety, OutputSafety(self.rate_hz)  # its ramp stays put
+        out = np.zeros((self.block_frames, self.out_channels), dtype=np.float32)
+        indata = np.zeros((self.block_frames, self.channels), dtype=np.float32)
+        ring_positions = None if self.ring is None else self.ring.positions.copy()
+        self.process(indata if self.ring is None else None, out, False)
+        if self.ring is not None and ring_positions is not None:
+            self.ring.positions[:] = ring_positions
+        self.counters[:], self.meters[:], self.cpu_s[:] = saved
+        self.safety = safety
+
+
+def warm_up() -> None:
+    """Compile the meter kernel now, before a stream starts."""
+    block = np.zeros((2, 2), dtype=np.float32)
+    _meter_kernel(np.zeros((1, 2, 2), dtype=np.float32), block, block, np.zeros(3), 0.5)
+
+
+class PreFilter:
+    """Filter at the recording's rate and resample to the stream rate (read-ahead thread).
+
+    Parameters
+    ----------
+    runner : CascadeRunner
+        float64 runner at the recording's rate (replaceable: :attr:`runner`).
+    resampler : StreamResampler
+        For ``(n_chains + 1) * channels`` channels: every chain's output and the dry input.
+    """
+
+    def __init__(self, runner: CascadeRunner, resampler: StreamResampler) -> None:
+        self.runner = runner
+        self.resampler = resampler
+        self.blocks = 0
+
+    def blocks_done(self) -> int:
+        """Blocks filtered so far."""
+        return self.blocks
+
+    def __call__(self, block: np.ndarray) -> np.ndarray:
+        """``(frames, channels)`` float64 at the recording rate -> ``(n_chains + 1, m,
+        channels)`` float32 at the stream rate (chains first, dry input last)."""
+        frames, channels = block.shape
+        chains = self.runner.process(block)
+        joined = np.concatenate([chains, block[np.newaxis]])
+        flat = joined.transpose(1, 0, 2).reshape(frames, -1)
+        out = self.resampler.process(flat)
+        self.blocks += 1
+        return np.ascontiguousarray(
+            out.reshape(len(out), -1, channels).transpose(1, 0, 2), dtype=np.float32
+        )
+
+
+class Feeder:
+    """Read-ahead thread: a recording, looped, into a ring (optionally pre-filtered).
+
+    Parameters
+    ----------
+    info : RecordingInfo
+        The recording.
+    ring : BlockRing
+        Where the blocks go.
+    chunk_frames : int
+        Frames read (at the recording's rate) per step.
+    channels : int
+        Channels written (the recording's channels, at most 2).
+    prefilter : callable, optional
+        ``(frames, channels)`` float64 -> ``(sources, m, channels)`` float32; default: the
+        block itself as one source.
+    """
+
+    def __init__(
+        self,
+        info: RecordingInfo,
+        ring: BlockRing,
+        chunk_frames: int,
+        channels: int,
+        prefilter: Callable[[np.ndarray], np.ndarray] | None = None,
+    ) -> None:
+        self.info = info
+        self.ring = ring
+        self.chunk_frames = chunk_frames
+        self.channels = channels
+        self.prefilter = prefilter
+        self.error: BaseException | None = None
+        self.loops = 0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, name="filtertwin-read-ahead", daemon=True)
+        # wait a small part of the time the full ring lasts before looking for room again
+        self._poll_s = min(0.01, ring.capacity_frames / info.rate_hz / 8)
+
+    def _blocks(self) -> Any:
+        while True:
+            for block in read_blocks(self.info, self.chunk_frames):
+                yield block[:, : self.channels]
+            self.loops += 1
+
+    def _prepare(self, block: np.ndarray) -> np.ndarray:
+        if self.prefilter is None:
+            return np.ascontiguousarray(block[np.newaxis], dtype=np.float32)
+        return self.prefilter(np.ascontiguousarray(block))
+
+    def _run(self) -> None:
+        try:
+            for block in self._blocks():
+                data = self._prepare(block)
+                offset = 0
+                while offset < data.shape[1]:
+                    if self._stop.is_set():
+                        return
+                    written = self.ring.write(data, offset)
+                    offset += written
+                    if offset < data.shape[1]:
+                        time.sleep(self._poll_s)
+        except BaseException as error:  # handed to the control thread, which reports it
+            self.error = error
+
+    def start(self, fill_timeout_s: float = 10.0) -> None:
+        """Start the thread and wait until the ring is full (or the timeout, or an error)."""
+        self._thread.start()
+        deadline = time.monotonic() + fill_timeout_s
+        while self.ring.room_frames > 0 and self.error is None and time.monotonic() < deadline:
+            time.sleep(0.002)
+
+    def stop(self) -> None:
+        """Stop the thread (safe to call twice, or before start)."""
+        self._stop.set()
+        if self._thread.is_alive():
+            self._thread.join()

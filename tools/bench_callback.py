@@ -1,0 +1,129 @@
+"""Cost of the live audio callback per block, without a stream.
+
+    python tools/bench_callback.py [--blocks N] [--frames 64 256]
+
+Builds the callback of `filtertwin listen` as a run on a recording builds it: two
+candidates of 8 second-order sections each, stereo, float32, the read-ahead ring, one
+selection mixer with a crossfade always under way, the output safety and the peak meters.
+Calls the real callback function (``StreamCore.output_callback``) with synthetic blocks many
+times and reports the median and the 99th percentile of its time, in microseconds and as a
+share of the block period at 48 kHz (target: median below 5 % at 64 frames).
+
+For scale, the same run measures ``scipy.signal.sosfilt`` with ``zi`` on one chain's block
+(8 sections, stereo) and prints the ratio; machines are shared and noisy, so compare the
+ratio between runs rather than the microseconds.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import os
+import platform
+import time
+
+import numba
+import numpy as np
+import scipy
+from scipy import signal
+
+from filtertwin.engine import CascadeRunner
+from filtertwin.live.player import warm_up
+from filtertwin.live.ring import BlockRing
+from filtertwin.live.safety import OutputSafety
+from filtertwin.live.stream import StreamCore
+
+RATE_HZ = 48000.0
+SECTIONS = 8
+SWITCH_EVERY = 16  # blocks; the 30 ms crossfade is longer, so a fade is always running
+
+
+def machine() -> str:
+    model = platform.processor() or "unknown CPU"
+    try:
+        with open("/proc/cpuinfo", encoding="utf-8") as f:
+            for line in f:
+                if line.startswith("model name"):
+                    model = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    return (
+        f"{model}, {os.cpu_count()} logical cores; Python {platform.python_version()}, "
+        f"numpy {np.__version__}, numba {numba.__version__}, scipy {scipy.__version__}"
+    )
+
+
+def make_core(frames: int) -> StreamCore:
+    a = signal.butter(2 * SECTIONS, 3000, fs=RATE_HZ, output="sos")
+    b = signal.bessel(2 * SECTIONS, 3000, fs=RATE_HZ, output="sos", norm="mag")
+    runner = CascadeRunner([a, b], 2, frames, dtype=np.float32)
+    ring = BlockRing(1, 64 * frames, 2)
+    core = StreamCore(
+        n_chains=2, channels=2, block_frames=frames, rate_hz=RATE_HZ, runner=runner,
+        ring=ring, safety=OutputSafety(RATE_HZ, ramp_s=0.01),
+    )  # fmt: skip
+    core.prime()
+    return core
+
+
+def time_callback(frames: int, blocks: int) -> np.ndarray:
+    core = make_core(frames)
+    rng = np.random.default_rng(1)
+    source = (0.1 * rng.standard_normal((1, 32 * frames, 2))).astype(np.float32)
+    out = np.zeros((frames, 2), dtype=np.float32)
+    gains = [np.array([1.0, 0.0, 0.0]), np.array([0.0, 0.9, 0.0])]
+    times = np.empty(blocks)
+    clock = time.perf_counter_ns
+    for n in range(blocks):
+        if core.ring.room_frames >= source.shape[1]:
+            core.ring.write(source)
+        if n % SWITCH_EVERY == 0:
+            core.request([gains[(n // SWITCH_EVERY) % 2]])
+        started = clock()
+        core.output_callback(out, frames, None, 0)
+        times[n] = clock() - started
+    return times / 1e3
+
+
+def time_sosfilt(frames: int, blocks: int) -> np.ndarray:
+    sos = signal.butter(2 * SECTIONS, 3000, fs=RATE_HZ, output="sos")
+    zi = np.zeros((SECTIONS, 2, 2))
+    x = (0.1 * np.random.default_rng(2).standard_normal((frames, 2))).astype(np.float32)
+    times = np.empty(blocks)
+    clock = time.perf_counter_ns
+    for n in range(blocks):
+        started = clock()
+        _, zi = signal.sosfilt(sos, x, axis=0, zi=zi)
+        times[n] = clock() - started
+    return times / 1e3
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--blocks", type=int, default=20000, help="callbacks timed per size")
+    parser.add_argument("--frames", type=int, nargs="+", default=[64, 256])
+    args = parser.parse_args()
+    print(f"date: {datetime.datetime.now().astimezone().isoformat(timespec='seconds')}")
+    print(f"machine: {machine()}")
+    warm_up()
+    print(f"callback: 2 candidates x {SECTIONS} sections, stereo float32, read-ahead ring, "
+          "crossfade always running, safety, meters; 48 kHz")  # fmt: skip
+    for frames in args.frames:
+        period_us = 1e6 * frames / RATE_HZ
+        cb = time_callback(frames, args.blocks)[100:]  # the first calls fill caches
+        ref = time_sosfilt(frames, args.blocks)[100:]
+        med, p99 = np.median(cb), np.percentile(cb, 99)
+        ref_med = np.median(ref)
+        print(
+            f"  {frames:4d} frames (period {period_us:7.1f} us): median {med:6.1f} us "
+            f"({100 * med / period_us:4.2f} %), 99th percentile {p99:6.1f} us "
+            f"({100 * p99 / period_us:4.2f} %); scipy sosfilt with zi, one chain: "
+            f"{ref_med:6.1f} us; callback / sosfilt = {med / ref_med:.2f}"
+        )
+    verdict = "met" if np.median(time_callback(64, 5000)) < 0.05 * 1e6 * 64 / RATE_HZ else "MISSED"
+    print(f"target (median < 5 % of the 64-frame period): {verdict}")
+
+
+if __name__ == "__main__":
+    main()
