@@ -17,6 +17,7 @@ COMMAND_MODULES: tuple[str, ...] = (
     "tolerance",
     "listen",
     "devices",
+    "demo",
 )
 
 

@@ -187,7 +187,9 @@ def cmd_render(args: argparse.Namespace) -> int:
     plan = render.plan_outputs([f.name for f in twin.filters], folder, suffix)
     reported = [folder / summary.REPORT_NAME, folder / summary.SUMMARY_NAME]
     figure_dir = folder / summary.FIGURES_FOLDER
-    reported += [figure_dir / f"{name}.png" for name in ("spectra", "response", "tolerance")]
+    reported += [
+        figure_dir / f"{name}.png" for name in ("spectra", "response", "tolerance", "crossover")
+    ]
     render.refuse_input_overwrite([p.path for p in plan] + reported, info.path)
 
     created = [p for p in (folder, *folder.parents) if not p.exists()]  # deepest first
@@ -205,6 +207,11 @@ def cmd_render(args: argparse.Namespace) -> int:
                 extra_summary = {"tolerance": tolerance.to_dict()}
                 if not args.no_report:
                     sections.append(_tolerance_section(tolerance, figure_dir, info.path, extra))
+            crossover = _crossover(design)
+            if crossover is not None:
+                extra_summary["crossover"] = crossover.to_dict()
+                if not args.no_report:
+                    sections.append(_crossover_section(crossover, figure_dir, info.path, extra))
             written = summary.write_render_report(
                 folder, result, info, design, twin, build=args.build, extra_sections=sections,
                 extra_figures=extra, extra_summary=extra_summary, with_report=not args.no_report,
@@ -220,6 +227,29 @@ def cmd_render(args: argparse.Namespace) -> int:
         raise
     _print_summary(result, twin, design, folder, extra + written)
     return 0
+
+
+def _crossover(design: Any) -> Any:
+    """The crossover check of a design whose filters are the ways of a crossover, else None."""
+    from filtertwin.checks.crossover import check_crossover
+
+    if len(design.filters) < 2:
+        return None
+    try:
+        return check_crossover(design)
+    except UserInputError:  # filters that do not cross over (e.g. unrelated candidates)
+        return None
+
+
+def _crossover_section(check: Any, figure_dir: Path, source: Path, written: list[Path]) -> Any:
+    """Draw the crossover figure into ``figure_dir`` (noted in ``written``); its section."""
+    from filtertwin.report.check_figures import crossover_figure
+    from filtertwin.report.summary import crossover_section
+
+    figure_dir.mkdir(exist_ok=True)
+    path = crossover_figure(check, figure_dir / "crossover.png", protect=[source])
+    written.append(path)
+    return crossover_section(check, path)
 
 
 def _tolerance_section(result: Any, figure_dir: Path, source: Path, written: list[Path]) -> Any:

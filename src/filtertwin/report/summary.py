@@ -24,10 +24,12 @@ from filtertwin.report.html import CAUTION, ReportSection, write_html
 from filtertwin.twin import Twin
 
 if TYPE_CHECKING:
+    from filtertwin.checks.crossover import CrossoverCheck
     from filtertwin.checks.tolerance import ToleranceResult
 
 __all__ = [
     "FIDELITY_TOL_DB",
+    "crossover_section",
     "tolerance_section",
     "FIDELITY_TOL_DEG",
     "design_sections",
@@ -327,6 +329,29 @@ def _check_rows(result: RenderResult, twin: Twin) -> list[tuple[str, str, str, s
                          f"{f.over_full_scale} samples beyond full scale clipped in the file",
                          "FAIL"))  # fmt: skip
     return rows
+
+
+def crossover_section(check: CrossoverCheck, figure: Path | None = None) -> ReportSection:
+    """The crossover check of a rendered multi-way design: crossover points, sum, polarity."""
+    rows = [
+        (f"{c.lower} / {c.upper}", f"{c.f_hz:.1f}", f"{c.level_db:+.2f}", f"{c.sum_db:+.2f}",
+         f"{c.phase_diff_deg:+.1f}")
+        for c in check.crossovers
+    ]  # fmt: skip
+    lo, hi = check.band_hz
+    return ReportSection(
+        f"Crossover check: {check.verdict}",
+        [
+            f"The ways summed (analog as-built model, polarity included) deviate at most "
+            f"{check.max_dev_db:.3f} dB from {check.reference_db:+.2f} dB between {lo:g} and "
+            f"{hi:g} Hz (at {check.max_dev_at_hz:.0f} Hz); the verdict allows "
+            f"{check.tolerance_db:g} dB.",
+            f"Polarity: {check.polarity.advice()}",
+        ],
+        tables=[(("ways", "crossover Hz", "each way dB", "sum dB", "phase difference deg"), rows)],
+        figures=[figure] if figure is not None else [],
+        captions=["Each way, their sum, and the phase of each way."],
+    )
 
 
 def tolerance_section(result: ToleranceResult, figure: Path | None = None) -> ReportSection:
