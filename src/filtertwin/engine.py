@@ -1,0 +1,826 @@
+"""Compiled streaming runner for cascades of second-order sections (biquads).
+
+Every cascade ("chain") filters the same input block: the ways of a crossover, candidate
+designs A and B, each on all channels. The arithmetic is scipy's transposed direct form II in
+float64, in scipy's association order, so float64 output is bit-identical to
+``scipy.signal.sosfilt``; float32 blocks are widened on the way in and rounded on the way out.
+
+How the kernel is laid out (why it is fast):
+
+* every (chain, channel) pair is a *lane*; lanes are packed four to a 256-bit vector, so four
+  channels or chains cost about as much as one;
+* sections are skewed in time: in step ``t`` section ``s`` works on the four frames from
+  ``4 (t - s)``, keeping its state in registers meanwhile, so the sections of one step do not
+  wait for each other (a cascade is otherwise one long chain of dependent multiplies and adds
+  per sample);
+* blocks go through a small float64 staging area in chunks of ``_CHUNK_FRAMES`` frames, and
+  state values below ``FLUSH_BELOW`` are set to zero after every chunk: a decaying state would
+  otherwise become subnormal and every operation on it far slower;
+* all buffers are made at construction; ``process`` only calls the compiled kernel.
+
+Limiting to the amplifier's output swing, when a section has a finite level, clamps that
+section's output to +/- level before it reaches both the next section and the section's own
+feedback (the amplifier's output is what its feedback network sees), and counts the clamped
+samples. A block whose input holds NaN or inf, or after which a chain's state is no longer
+finite, resets that chain's state and zeroes that chain's output for the block.
+"""
+
+from __future__ import annotations
+
+import operator
+from collections.abc import Sequence
+
+import numpy as np
+from llvmlite import ir
+from numba import njit, types
+from numba.extending import intrinsic, models, overload, register_model
+
+__all__ = ["FLUSH_BELOW", "CascadeRunner", "sosfilt_blocks", "validate_sos", "warm_up"]
+
+FLUSH_BELOW = 1e-30
+"""State values smaller than this (in absolute value, full-scale units) are set to zero."""
+
+_CHUNK_FRAMES = 256  # frames staged per pass; also how often the state is flushed
+_FRAMES_PER_STEP = 4  # frames each section takes per step (the state stays in registers)
+_WIDTH = 4  # float64 lanes per vector (256 bits): one lane group
+# Coefficients: for each lane group and section a block of rows, each row _WIDTH lanes wide:
+_B0, _B1, _B2, _A1, _A2, _LEVEL = (row * _WIDTH for row in range(6))
+_SEC_BLOCK = 6 * _WIDTH
+# Working memory: for each lane group and section (plus one slot for the cascade's output):
+# z0, z1, clamped-sample count, one spare row, then the section's input for the frames of a step
+_Z0, _Z1, _COUNT, _INPUT = (row * _WIDTH for row in (0, 1, 2, 4))
+_MEM_BLOCK = _INPUT + _FRAMES_PER_STEP * _WIDTH
+
+
+# --- a 4 x float64 vector value for the kernel ----------------------------------------------
+# numba does not vectorise across the lanes of this kernel on its own, so the kernel spells the
+# vector operations out with these few primitives. Each one is plain IEEE arithmetic on every
+# element (no fused multiply-add), which keeps results identical to scalar code.
+
+
+class _Float64x4(types.Type):
+    def __init__(self) -> None:
+        super().__init__(name="filtertwin.engine.float64x4")
+
+
+_VEC = _Float64x4()
+_LL_VEC = ir.VectorType(ir.DoubleType(), _WIDTH)
+
+
+@register_model(_Float64x4)
+class _Float64x4Model(models.PrimitiveModel):
+    def __init__(self, dmm, fe_type):
+        super().__init__(dmm, fe_type, _LL_VEC)
+
+
+def _element_pointer(context, builder, array_type, array, index):
+    data = context.make_array(array_type)(context, builder, array).data
+    return builder.bitcast(builder.gep(data, [index]), _LL_VEC.as_pointer())
+
+
+@intrinsic
+def _vload(typingctx, array, index):
+    """Four float64 from ``array[index:index + 4]``."""
+
+    def codegen(context, builder, sig, args):
+        ptr = _element_pointer(context, builder, sig.args[0], args[0], args[1])
+        return builder.load(ptr, align=8, typ=_LL_VEC)
+
+    return _VEC(array, index), codegen
+
+
+@intrinsic
+def _vstore(typingctx, array, index, value):
+    """Store four float64 to ``array[index:index + 4]``."""
+
+    def codegen(context, builder, sig, args):
+        ptr = _element_pointer(context, builder, sig.args[0], args[0], args[1])
+        builder.store(args[2], ptr, align=8)
+        return context.get_dummy_value()
+
+    return types.none(array, index, value), codegen
+
+
+def _vector_binary(instruction: str):
+    @intrinsic
+    def operation(typingctx, a, b):
+        def codegen(context, builder, sig, args):
+            return getattr(builder, instruction)(args[0], args[1])
+
+        return _VEC(a, b), codegen
+
+    return operation
+
+
+_vadd = _vector_binary("fadd")
+_vsub = _vector_binary("fsub")
+_vmul = _vector_binary("fmul")
+
+
+def _overload_vector_operator(op, impl):
+    @overload(op)
+    def vector_operator(a, b):
+        if isinstance(a, _Float64x4) and isinstance(b, _Float64x4):
+            return lambda a, b: impl(a, b)
+        return None
+
+
+_overload_vector_operator(operator.add, _vadd)
+_overload_vector_operator(operator.sub, _vsub)
+_overload_vector_operator(operator.mul, _vmul)
+
+
+@intrinsic
+def _vzeros(typingctx):
+    def codegen(context, builder, sig, args):
+        return ir.Constant(_LL_VEC, [0.0] * _WIDTH)
+
+    return _VEC(), codegen
+
+
+@intrinsic
+def _vall_zero(typingctx, v):
+    """True if every element of ``v`` equals zero (so none is NaN)."""
+
+    def codegen(context, builder, sig, args):
+        zero = builder.fcmp_ordered("==", args[0], ir.Constant(_LL_VEC, [0.0] * _WIDTH))
+        bits = builder.bitcast(zero, ir.IntType(_WIDTH))
+        return builder.icmp_unsigned("==", bits, ir.Constant(ir.IntType(_WIDTH), 2**_WIDTH - 1))
+
+    return types.boolean(v), codegen
+
+
+@intrinsic
+def _vclamp(typingctx, y, level):
+    """``y`` clamped to +/- ``level``, element by element (NaN stays NaN)."""
+
+    def codegen(context, builder, sig, args):
+        y, level = args
+        low = builder.fneg(level)
+        above = builder.fcmp_ordered(">", y, level)
+        below = builder.fcmp_ordered("<", y, low)
+        return builder.select(above, level, builder.select(below, low, y))
+
+    return _VEC(y, level), codegen
+
+
+@intrinsic
+def _vexceeds(typingctx, y, level):
+    """1.0 where ``|y| > level``, else 0.0."""
+
+    def codegen(context, builder, sig, args):
+        y, level = args
+        above = builder.fcmp_ordered(">", y, level)
+        below = builder.fcmp_ordered("<", y, builder.fneg(level))
+        return builder.uitofp(builder.or_(above, below), _LL_VEC)
+
+    return _VEC(y, level), codegen
+
+
+# --- kernel -----------------------------------------------------------------------------------
+
+
+@njit
+def _gather(x, start, frames, n_chains, mem, stage, width):
+    """Copy input frames into the staging rows (frame-major, one lane per chain and channel)."""
+    channels = x.shape[1]
+    for ch in range(channels):
+        column = x[start : start + frames, ch]
+        for chain in range(n_chains):
+            first = stage + chain * channels + ch
+            for f in range(frames):
+                mem[first + f * width] = column[f]
+
+
+@njit(inline="always")
+def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, limit, per_step):
+    """Run every section over ``frames`` staged frames, in place.
+
+    Sections are skewed: in step ``t`` section ``s`` takes the ``per_step`` frames starting at
+    ``(t - s) * per_step``, so the sections of one step are independent. ``frames`` must be a
+    multiple of ``per_step``. Returns False if any staged input was NaN or inf.
+    """
+    steps = frames // per_step
+    last = n_sections - 1
+    width = n_groups * _WIDTH
+    nonfinite = _vzeros()  # stays zero while every input is finite (x - x == 0)
+    level = _vzeros()
+    clamped = _vzeros()
+    for t in range(steps + last):
+        s_low = max(0, t - steps + 1)
+        s_high = min(last, t)
+        for g in range(n_groups):
+            c_group = g * n_sections * _SEC_BLOCK
+            m_group = g * (n_sections + 1) * _MEM_BLOCK
+            staged = stage + g * _WIDTH
+            if t < steps:
+                for k in range(per_step):
+                    x = _vload(mem, staged + (t * per_step + k) * width)
+                    nonfinite = nonfinite + (x - x)
+                    _vstore(mem, m_group + _INPUT + k * _WIDTH, x)
+            for s in range(s_high, s_low - 1, -1):
+                c = c_group + s * _SEC_BLOCK
+                m = m_group + s * _MEM_BLOCK
+                b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
+                a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
+                z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
+                if limit:
+                    level, clamped = _vload(sec, c + _LEVEL), _vload(mem, m + _COUNT)
+                for k in range(per_step):
+                    x = _vload(mem, m + _INPUT + k * _WIDTH)
+                    # scipy's order: y = b0 x + z0; z0 = (b1 x - a1 y) + z1; z1 = b2 x - a2 y
+                    y = b0 * x + z0
+                    if limit:
+                        clamped = clamped + _vexceeds(y, level)
+                        y = _vclamp(y, level)
+                    z0 = (b1 * x - a1 * y) + z1
+                    z1 = b2 * x - a2 * y
+                    _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
+                _vstore(mem, m + _Z0, z0)
+                _vstore(mem, m + _Z1, z1)
+                if limit:
+                    _vstore(mem, m + _COUNT, clamped)
+            if t >= last:
+                for k in range(per_step):
+                    y = _vload(mem, m_group + n_sections * _MEM_BLOCK + _INPUT + k * _WIDTH)
+                    _vstore(mem, staged + ((t - last) * per_step + k) * width, y)
+    return _vall_zero(nonfinite)
+
+
+@njit
+def _cascade(sec, mem, frames, n_sections, n_groups, stage):
+    whole = frames - frames % _FRAMES_PER_STEP
+    rest = stage + whole * n_groups * _WIDTH
+    finite = _cascade_steps(sec, mem, whole, n_sections, n_groups, stage, False, _FRAMES_PER_STEP)
+    if frames > whole:
+        finite &= _cascade_steps(sec, mem, frames - whole, n_sections, n_groups, rest, False, 1)
+    return finite
+
+
+@njit
+def _cascade_limited(sec, mem, frames, n_sections, n_groups, stage):
+    whole = frames - frames % _FRAMES_PER_STEP
+    rest = stage + whole * n_groups * _WIDTH
+    finite = _cascade_steps(sec, mem, whole, n_sections, n_groups, stage, True, _FRAMES_PER_STEP)
+    if frames > whole:
+        finite &= _cascade_steps(sec, mem, frames - whole, n_sections, n_groups, rest, True, 1)
+    return finite
+
+
+@njit
+def _scatter(out, start, frames, mem, stage, width):
+    n_chains, _, channels = out.shape
+    for chain in range(n_chains):
+        for ch in range(channels):
+            column = out[chain, start : start + frames, ch]
+            first = stage + chain * channels + ch
+            for f in range(frames):
+                column[f] = mem[first + f * width]
+
+
+@njit
+def _flush(mem, n_sections, n_groups):
+    for g in range(n_groups):
+        for s in range(n_sections):
+            m = (g * (n_sections + 1) + s) * _MEM_BLOCK
+            for i in range(m + _Z0, m + _Z1 + _WIDTH):
+                if abs(mem[i]) < FLUSH_BELOW:
+                    mem[i] = 0.0
+
+
+@njit
+def _load_state(mem, n_chains, n_sections, channels, work):
+    """Copy the public state, (chains, sections, channels, 2) at the start of ``mem``, to work."""
+    i = 0
+    for chain in range(n_chains):
+        for s in range(n_sections):
+            for ch in range(channels):
+                lane = chain * channels + ch
+                m = ((lane // _WIDTH) * (n_sections + 1) + s) * _MEM_BLOCK + lane % _WIDTH
+                work[m + _Z0] = mem[i]
+                work[m + _Z1] = mem[i + 1]
+                i += 2
+
+
+@njit
+def _store_state(mem, n_sections, work, out, frames, input_finite):
+    """Copy the work state back to the public state and add up the clip counts.
+
+    A chain whose state is not finite, or every chain when the input was not, is reset and
+    its output for the block zeroed. Returns how many chains were reset.
+    """
+    n_chains, _, channels = out.shape
+    counts = n_chains * n_sections * channels * 2
+    i = 0
+    n_reset = 0
+    for chain in range(n_chains):
+        first = i
+        finite = input_finite
+        for s in range(n_sections):
+            for ch in range(channels):
+                lane = chain * channels + ch
+                m = ((lane // _WIDTH) * (n_sections + 1) + s) * _MEM_BLOCK + lane % _WIDTH
+                z0, z1 = work[m + _Z0], work[m + _Z1]
+                finite &= z0 - z0 == 0.0 and z1 - z1 == 0.0
+                mem[i] = z0
+                mem[i + 1] = z1
+                i += 2
+                mem[counts + chain * n_sections + s] += work[m + _COUNT]
+                work[m + _COUNT] = 0.0
+        if not finite:
+            n_reset += 1
+            mem[first:i] = 0.0
+            out[chain, :frames, :] = 0.0
+    return n_reset
+
+
+def _memory_layout(n_chains: int, n_sections: int, channels: int) -> tuple[int, int, int]:
+    """Sizes in ``mem``: public state, public clip counts, and the 64-byte aligned work rows."""
+    n_state = n_chains * n_sections * channels * 2
+    n_counts = n_chains * n_sections
+    work = -(-(n_state + n_counts) // 8) * 8
+    n_groups = -(-n_chains * channels // _WIDTH)
+    n_work = n_groups * (n_sections + 1) * _MEM_BLOCK + _CHUNK_FRAMES * n_groups * _WIDTH
+    return n_state, work, work + n_work
+
+
+_layout = njit(_memory_layout)
+
+
+@njit(cache=True)
+def _run_block(x, out, sec, mem):
+    """Filter ``x`` (frames, channels) through every chain into ``out`` (chains, frames, ch).
+
+    ``mem`` starts with the public state (chains, sections, channels, 2) and clip counts
+    (chains, sections), read before and written after the block, followed by the work rows and
+    the staging area. Returns the number of chains reset for non-finite values, or -1 if the
+    shapes disagree.
+    """
+    frames, channels = x.shape
+    n_chains = out.shape[0]
+    n_groups = -(-n_chains * channels // _WIDTH)
+    n_sections = sec.shape[0] // (n_groups * _SEC_BLOCK)
+    _, start_work, size = _layout(n_chains, n_sections, channels)
+    if (
+        out.shape[1] != frames
+        or out.shape[2] != channels
+        or sec.shape[0] != n_groups * n_sections * _SEC_BLOCK
+        or mem.shape[0] != size
+    ):
+        return -1
+    work = mem[start_work:]
+    width = n_groups * _WIDTH
+    stage = n_groups * (n_sections + 1) * _MEM_BLOCK
+    limit = False
+    for i in range(_LEVEL, sec.shape[0], _SEC_BLOCK):
+        for w in range(_WIDTH):
+            limit |= sec[i + w] < np.inf
+    _load_state(mem, n_chains, n_sections, channels, work)
+    finite = True
+    for start in range(0, frames, _CHUNK_FRAMES):
+        n = min(_CHUNK_FRAMES, frames - start)
+        _gather(x, start, n, n_chains, work, stage, width)
+        if limit:
+            finite &= _cascade_limited(sec, work, n, n_sections, n_groups, stage)
+        else:
+            finite &= _cascade(sec, work, n, n_sections, n_groups, stage)
+        _scatter(out, start, n, work, stage, width)
+        _flush(work, n_sections, n_groups)
+    return _store_state(mem, n_sections, work, out, frames, finite)
+
+
+def _kernel_signature(dtype: type[np.floating]) -> tuple[types.Type, ...]:
+    io = types.float32 if dtype is np.float32 else types.float64
+    return (
+        types.Array(io, 2, "A", readonly=True),
+        types.Array(io, 3, "A"),
+        types.Array(types.float64, 1, "C"),
+        types.Array(types.float64, 1, "C"),
+    )
+
+
+def warm_up() -> None:
+    """Compile (or load from numba's on-disk cache) every kernel signature the runner uses.
+
+    Call once before any stream starts; :class:`CascadeRunner` also calls it. Afterwards the
+    kernel accepts exactly float32 and float64 blocks and never compiles on the audio path.
+    The kernel (with the helpers it calls built in) is cached, so later processes only load it.
+    """
+    if len(_run_block.signatures) < 2:
+        try:
+            _compile_kernels()
+        except Exception:  # an unreadable cache entry, e.g. written while this
+            # file was imported under another module name: drop the cache and compile afresh
+            _run_block._cache.flush()  # type: ignore[attr-defined]
+            _compile_kernels()
+    _run_block.disable_compile()
+
+
+def _compile_kernels() -> None:
+    for dtype in (np.float32, np.float64):
+        _run_block.compile(_kernel_signature(dtype))
+
+
+# --- validation -------------------------------------------------------------------------------
+
+
+def validate_sos(sos: object) -> np.ndarray:
+    """Check second-order sections and return them as a new ``(n, 6)`` float64 array.
+
+    Parameters
+    ----------
+    sos : array_like
+        Sections ``[b0, b1, b2, a0, a1, a2]`` per row, as made by
+        ``scipy.signal.butter(..., output='sos')``.
+
+    Returns
+    -------
+    numpy.ndarray
+        The sections, float64, shape ``(n, 6)`` with ``n >= 1``.
+
+    Raises
+    ------
+    TypeError
+        If ``sos`` is not real-valued numbers.
+    ValueError
+        If the shape is not ``(n, 6)`` with ``n >= 1``, a value is not finite, or a row's
+        ``a0`` is not exactly 1.
+
+    References
+    ----------
+    scipy.signal.sosfilt: the same section layout and the same ``a0 == 1`` rule.
+
+    Examples
+    --------
+    >>> from scipy.signal import butter
+    >>> validate_sos(butter(4, 0.1, output="sos")).shape
+    (2, 6)
+    """
+    array = np.asarray(sos)
+    if array.dtype.kind not in "biuf":
+        raise TypeError(f"sos must hold real numbers, got dtype {array.dtype}")
+    array = np.array(array, dtype=np.float64)
+    if array.ndim != 2 or array.shape[0] < 1 or array.shape[1] != 6:
+        raise ValueError(f"sos must have shape (n_sections >= 1, 6), got {array.shape}")
+    if not np.all(np.isfinite(array)):
+        raise ValueError("sos values must be finite; found NaN or inf")
+    bad_rows = np.flatnonzero(array[:, 3] != 1.0)
+    if bad_rows.size:
+        row = int(bad_rows[0])
+        raise ValueError(
+            f"sos a0 (column 3) must be 1 in every row; row {row} has a0={float(array[row, 3])}; "
+            "divide that row by its a0"
+        )
+    return array
+
+
+def _validate_levels(levels: object, n_sections: int, chain: int) -> np.ndarray:
+    array = np.array(levels, dtype=np.float64)
+    if array.shape != (n_sections,):
+        raise ValueError(
+            f"clip levels of chain {chain} must have shape ({n_sections},), one per section, "
+            f"got {array.shape}"
+        )
+    if np.any(np.isnan(array)) or np.any(array <= 0.0):
+        raise ValueError(
+            f"clip levels of chain {chain} must be > 0 full-scale units (np.inf = no limit), "
+            f"got {array.tolist()}"
+        )
+    return array
+
+
+def _aligned_zeros(size: int) -> np.ndarray:
+    """float64 zeros starting on a 64-byte boundary, so no vector access splits a cache line."""
+    spare = 64 // 8
+    buffer = np.zeros(size + spare)
+    skip = (-buffer.ctypes.data % 64) // 8
+    return buffer[skip : skip + size]
+
+
+def _positive_int(value: object, name: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, int | np.integer):
+        raise TypeError(f"{name} must be an int, got {type(value).__name__}")
+    if value < 1:
+        raise ValueError(f"{name} must be >= 1, got {value}")
+    return int(value)
+
+
+# --- runner -----------------------------------------------------------------------------------
+
+
+class CascadeRunner:
+    """Stateful runner for several cascades of biquads over the same multi-channel stream.
+
+    Parameters
+    ----------
+    chains : sequence of array_like
+        One SOS array ``(n_i, 6)`` with ``a0 == 1`` per chain; chains may differ in ``n_i``.
+    channels : int
+        Channels of every input block.
+    max_frames : int
+        Largest block, in frames, for :meth:`process` without ``out`` (the size of the
+        runner's own output buffer). With ``out`` given, blocks may be of any length.
+    clip_levels : sequence of array_like, optional
+        Per chain, one level per section in full-scale units: that section's output is
+        clamped to +/- level (``np.inf`` means no limit). Default: no limits.
+    dtype : {numpy.float64, numpy.float32}
+        Sample type of input and output blocks. The filter always computes in float64.
+
+    Attributes
+    ----------
+    n_chains, channels, max_frames : int
+        As constructed.
+    n_sections : tuple of int
+        Sections per chain; ``max_sections = max(n_sections)``.
+    dtype : numpy.dtype
+        Sample type of input and output blocks.
+    state : numpy.ndarray
+        float64 ``(n_chains, max_sections, channels, 2)``, every section's ``z0, z1`` (see the
+        property).
+    clip_counts : numpy.ndarray
+        int64 ``(n_chains, max_sections)``, samples clamped so far (see the property).
+    nonfinite_resets : int
+        Blocks found non-finite (NaN or inf in the input or in a chain's state) so far.
+
+    Raises
+    ------
+    TypeError, ValueError
+        For arguments of the wrong kind or value, naming the argument and the rule.
+
+    References
+    ----------
+    scipy.signal.sosfilt: the filter structure (transposed direct form II) and its order of
+    operations, reproduced exactly.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from scipy.signal import butter
+    >>> low = butter(4, 0.05, output="sos")
+    >>> high = butter(4, 0.05, btype="high", output="sos")
+    >>> runner = CascadeRunner([low, high], channels=2, max_frames=64)
+    >>> runner.process(np.zeros((64, 2))).shape
+    (2, 64, 2)
+    """
+
+    def __init__(
+        self,
+        chains: Sequence[np.ndarray],
+        channels: int,
+        max_frames: int,
+        clip_levels: Sequence[np.ndarray] | None = None,
+        dtype: type[np.floating] | np.dtype = np.float64,
+    ) -> None:
+        sos_list = [validate_sos(sos) for sos in chains]
+        if not sos_list:
+            raise ValueError("chains must hold at least one SOS array")
+        self.channels = _positive_int(channels, "channels")
+        self.max_frames = _positive_int(max_frames, "max_frames")
+        self.dtype = np.dtype(dtype)
+        if self.dtype not in (np.dtype(np.float32), np.dtype(np.float64)):
+            raise ValueError(f"dtype must be float32 or float64, got {self.dtype}")
+        self.n_chains = len(sos_list)
+        self.n_sections = tuple(sos.shape[0] for sos in sos_list)
+        if clip_levels is None:
+            clip_levels = [np.full(n, np.inf) for n in self.n_sections]
+        if len(clip_levels) != self.n_chains:
+            raise ValueError(
+                f"clip_levels must have one array per chain ({self.n_chains}), "
+                f"got {len(clip_levels)}"
+            )
+        levels = [
+            _validate_levels(level, n, chain)
+            for chain, (level, n) in enumerate(zip(clip_levels, self.n_sections, strict=True))
+        ]
+        warm_up()
+        self._allocate()
+        for chain, (sos, level) in enumerate(zip(sos_list, levels, strict=True)):
+            self._write_chain(self._sec4, chain, sos, level)
+        self.nonfinite_resets = 0
+
+    def _allocate(self) -> None:
+        """Make every buffer the kernel touches, and index arrays from (chain, ch) to lanes."""
+        n_sec = max(self.n_sections)
+        lane = np.arange(self.n_chains * self.channels).reshape(self.n_chains, self.channels)
+        n_groups = -(-lane.size // _WIDTH)
+        self._group, self._lane = np.divmod(lane, _WIDTH)
+
+        self._sec = _aligned_zeros(n_groups * n_sec * _SEC_BLOCK)
+        self._spare = _aligned_zeros(self._sec.size)
+        self._sec4 = self._sec.reshape(n_groups, n_sec, 6, _WIDTH)
+        self._spare4 = self._spare.reshape(n_groups, n_sec, 6, _WIDTH)
+        self._sec4[:, :, 0, :] = 1.0  # pass-through sections pad short chains and spare lanes
+        self._sec4[:, :, 5, :] = np.inf
+
+        n_state, _, size = _memory_layout(self.n_chains, n_sec, self.channels)
+        self._mem = _aligned_zeros(size)
+        self._state = self._mem[:n_state].reshape(self.n_chains, n_sec, self.channels, 2)
+        self._counts = self._mem[n_state : n_state + self.n_chains * n_sec]
+        self._counts = self._counts.reshape(self.n_chains, n_sec)
+
+        self._out = np.zeros((self.n_chains, self.max_frames, self.channels), dtype=self.dtype)
+        self._views: dict[int, np.ndarray] = {}
+
+    def _write_chain(
+        self, sec4: np.ndarray, chain: int, sos: np.ndarray, level: np.ndarray
+    ) -> None:
+        g = self._group[chain][:, None]
+        w = self._lane[chain][:, None]
+        s = np.arange(sos.shape[0])[None, :]
+        for row, column in enumerate((0, 1, 2, 4, 5)):
+            sec4[g, s, row, w] = sos[:, column]
+        sec4[g, s, 5, w] = level
+
+    @property
+    def state(self) -> np.ndarray:
+        """float64 ``(n_chains, max_sections, channels, 2)``: every section's ``z0, z1``.
+
+        The runner's own array: read it between blocks, or write into it
+        (``runner.state[chain, :n] = ...``) to set the state the next block starts from.
+        Sections beyond a shorter chain's count stay zero.
+        """
+        return self._state
+
+    @property
+    def clip_counts(self) -> np.ndarray:
+        """int64 ``(n_chains, max_sections)``: samples clamped so far, summed over channels."""
+        return self._counts.astype(np.int64)
+
+    def process(self, block: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """Filter one block through every chain, carrying the state to the next call.
+
+        Parameters
+        ----------
+        block : numpy.ndarray
+            ``(frames, channels)`` of the runner's dtype, ``frames <= max_frames``. Not changed.
+        out : numpy.ndarray, optional
+            ``(n_chains, frames, channels)`` of the runner's dtype to write into.
+
+        Returns
+        -------
+        numpy.ndarray
+            ``out``, or when it is None a view of the runner's own buffer, valid until the
+            next call.
+
+        Raises
+        ------
+        TypeError
+            If ``block`` or ``out`` is not a 2-D / 3-D array of the runner's dtype.
+        ValueError
+            If a shape does not match the runner.
+        """
+        if out is None:
+            out = self._views.get(len(block))
+            if out is None:
+                out = self._make_view(block)
+        elif np.shape(out)[::2] != (self.n_chains, self.channels):
+            raise ValueError(self._shape_problem(block, out))
+        try:
+            n_reset = _run_block(block, out, self._sec, self._mem)
+        except TypeError:
+            raise TypeError(self._type_problem(block, out)) from None
+        if n_reset:
+            if n_reset < 0:
+                raise ValueError(self._shape_problem(block, out))
+            self.nonfinite_resets += 1
+        return out
+
+    def process_inplace(self, block: np.ndarray) -> None:
+        """Filter ``block`` (frames, channels) in place; only for a runner with one chain."""
+        if self.n_chains != 1:
+            raise ValueError(
+                f"process_inplace needs a runner with one chain, this one has {self.n_chains}; "
+                "use process"
+            )
+        self.process(block, block[np.newaxis])
+
+    def set_chain(self, index: int, sos: np.ndarray, clip_levels: np.ndarray | None = None) -> None:
+        """Swap one chain's coefficients (and optionally clip levels), keeping its state.
+
+        The swap takes effect whole between two blocks, never within one: the new values go to
+        a spare buffer that replaces the active one in a single attribute store, and the
+        kernel holds the GIL while it runs, so a control thread may call this while another
+        thread calls :meth:`process`.
+
+        Parameters
+        ----------
+        index : int
+            Chain to change, ``0 <= index < n_chains``.
+        sos : array_like
+            New sections, the same count as the chain had at construction.
+        clip_levels : array_like, optional
+            New per-section levels; None keeps the chain's current levels.
+
+        Raises
+        ------
+        ValueError
+            If ``index`` is out of range, ``sos`` is invalid or has another section count,
+            or ``clip_levels`` is invalid.
+        """
+        if not 0 <= index < self.n_chains:
+            raise ValueError(f"index must be 0 <= index < {self.n_chains}, got {index}")
+        new = validate_sos(sos)
+        n = self.n_sections[index]
+        if new.shape[0] != n:
+            raise ValueError(
+                f"set_chain needs {n} sections for chain {index} (as at construction), "
+                f"got {new.shape[0]}; build a new runner to change the section count"
+            )
+        if clip_levels is None:
+            level = self._sec4[self._group[index, 0], :n, 5, self._lane[index, 0]].copy()
+        else:
+            level = _validate_levels(clip_levels, n, index)
+        np.copyto(self._spare4, self._sec4)
+        self._write_chain(self._spare4, index, new, level)
+        # one attribute store: a block sees either the old or the new coefficients, whole
+        self._sec, self._spare = self._spare, self._sec
+        self._sec4, self._spare4 = self._spare4, self._sec4
+
+    def reset(self) -> None:
+        """Set every section's state to zero (the clip counts are kept)."""
+        self._state[...] = 0.0
+
+    def _make_view(self, block: np.ndarray) -> np.ndarray:
+        frames = np.shape(block)[0]
+        if not 0 <= frames <= self.max_frames:
+            raise ValueError(
+                f"block has {frames} frames, more than max_frames={self.max_frames}; "
+                "split it or build the runner with a larger max_frames"
+            )
+        view = self._out[:, :frames, :]
+        self._views[frames] = view
+        return view
+
+    def _type_problem(self, block: object, out: object) -> str:
+        for name, value, ndim in (("block", block, 2), ("out", out, 3)):
+            if not isinstance(value, np.ndarray) or value.ndim != ndim:
+                return f"{name} must be a {ndim}-D numpy array"
+            if value.dtype != self.dtype:
+                return (
+                    f"{name} has dtype {value.dtype}, this runner was built for {self.dtype}; "
+                    f"convert with .astype(np.{self.dtype}) or build it with that dtype"
+                )
+        return "block and out must be native-byte-order, aligned arrays; out must be writable"
+
+    def _shape_problem(self, block: np.ndarray, out: np.ndarray) -> str:
+        if np.ndim(block) != 2 or np.shape(block)[1] != self.channels:
+            return f"block must have shape (frames, {self.channels}), got {np.shape(block)}"
+        want = (self.n_chains, block.shape[0], self.channels)
+        return f"out must have shape {want}, got {np.shape(out)}"
+
+
+def sosfilt_blocks(
+    sos: np.ndarray, x: np.ndarray, zi: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Filter ``x`` along axis 0 with one cascade; the same as ``scipy.signal.sosfilt``.
+
+    Parameters
+    ----------
+    sos : array_like
+        ``(n_sections, 6)`` sections with ``a0 == 1``.
+    x : array_like
+        ``(frames,)`` or ``(frames, channels)`` samples.
+    zi : array_like, optional
+        Initial state in scipy's layout for axis 0: ``(n_sections, 2)`` for 1-D ``x``,
+        ``(n_sections, 2, channels)`` for 2-D ``x``. Default zeros.
+
+    Returns
+    -------
+    y : numpy.ndarray
+        float64, the shape of ``x``.
+    zf : numpy.ndarray
+        Final state, the layout of ``zi``.
+
+    Raises
+    ------
+    ValueError
+        If ``sos``, ``x`` or ``zi`` has the wrong shape, or ``sos`` is invalid.
+
+    References
+    ----------
+    scipy.signal.sosfilt(sos, x, axis=0, zi=zi), which this reproduces bit for bit in float64.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from scipy.signal import butter
+    >>> y, zf = sosfilt_blocks(butter(2, 0.1, output="sos"), np.ones(4))
+    >>> zf.shape
+    (1, 2)
+    """
+    sos = validate_sos(sos)
+    samples = np.asarray(x, dtype=np.float64)
+    if samples.ndim not in (1, 2):
+        raise ValueError(f"x must be 1-D (frames,) or 2-D (frames, channels), got {samples.shape}")
+    block = samples.reshape(samples.shape[0], -1)
+    channels = block.shape[1]
+    runner = CascadeRunner([sos], channels=channels, max_frames=max(block.shape[0], 1))
+    zf_shape = (sos.shape[0], 2) + samples.shape[1:]
+    if zi is not None:
+        initial = np.asarray(zi, dtype=np.float64)
+        if initial.shape != zf_shape:
+            raise ValueError(f"zi must have shape {zf_shape}, got {initial.shape}")
+        runner.state[0] = initial.reshape(sos.shape[0], 2, channels).transpose(0, 2, 1)
+    y = runner.process(block)[0].reshape(samples.shape).copy()
+    zf = runner.state[0].transpose(0, 2, 1).reshape(zf_shape).copy()
+    return y, zf
