@@ -13,7 +13,7 @@ import pytest
 import scipy.signal
 import soundfile as sf
 
-from filtertwin import cli, examples, recordings, render
+from filtertwin import cli, examples, outputs, recordings, render
 from filtertwin.commands import render as render_command
 from filtertwin.design import build_design
 from filtertwin.errors import UserInputError
@@ -222,7 +222,7 @@ def test_a_failure_while_writing_is_raised_and_leaves_nothing(tmp_path, monkeypa
     def failing(self, block):
         raise OSError("no space left on device")
 
-    monkeypatch.setattr(recordings.SafeWriter, "write", failing)
+    monkeypatch.setattr(outputs.SafeWriter, "write", failing)
     with pytest.raises(OSError, match="no space left"):
         _render_files(twin, source, tmp_path / "out", 1000)
     assert list((tmp_path / "out").iterdir()) == []
@@ -245,7 +245,9 @@ def test_the_command_writes_audio_figures_report_and_a_complete_summary(tmp_path
     assert {f["role"] for f in summary["files"]} == {"before", "filter", "sum"}
     assert all(isinstance(f["peak_dbfs"], float) for f in summary["files"])
     page = (out / "report.html").read_text()
-    assert page.count("data:image/png;base64,") == len(summary["figures"]) == 2
+    # spectra, twin against analog, and the crossover check of this 3-way design
+    assert page.count("data:image/png;base64,") == len(summary["figures"]) == 3
+    assert "figures/crossover.png" in summary["figures"] and "Crossover check: PASS" in page
     assert "<th>built f0</th>" in page and "Filter &#x27;low&#x27;: stages and parts" in page
     assert "loud playback harms hearing" in page
     assert source.read_bytes() == original  # the input is never touched
@@ -269,7 +271,7 @@ def test_a_csv_sensor_capture_renders_to_csv_equal_to_sosfilt(tmp_path, capsys):
     rate = 1000.0
     values = _noise(1500, channels=1, level=2.0)[:, 0]
     source = tmp_path / "accel.csv"
-    recordings.write_csv(source, values, rate, ["accel_g"])
+    outputs.write_csv(source, values, rate, ["accel_g"])
     out = tmp_path / "out"
     status = cli.main(["render", "turntable-rumble", str(source), "--out", str(out),
                        "--oversample", "1", "--no-report"])  # fmt: skip
@@ -363,4 +365,5 @@ def test_the_worst_build_render_uses_the_tolerance_analysis_worst_parts(tmp_path
     nominal = build_twin(_design("bookshelf-2way"), RATE_HZ, oversampling=1)
     assert not np.allclose(nominal.filters[0].sos, worst.filters[0].sos)  # other parts
     page = (out / "report.html").read_text()
-    assert page.count("data:image/png;base64,") == 3 and "Tolerance builds" in page
+    # spectra, twin against analog, crossover check, tolerance envelope
+    assert page.count("data:image/png;base64,") == 4 and "Tolerance builds" in page

@@ -30,7 +30,7 @@ def _load(design_arg: str):
 
 
 def _write_text_atomic(path: Path, text: str, protect: Sequence[Path] = ()) -> None:
-    from filtertwin.recordings import atomic_path
+    from filtertwin.outputs import atomic_path
 
     resolved = path.resolve()
     for p in protect:

@@ -27,10 +27,10 @@ from pathlib import Path
 import numpy as np
 import scipy.signal
 
-from filtertwin import recordings
+from filtertwin import outputs, recordings
 from filtertwin.engine import CascadeRunner
 from filtertwin.errors import UserInputError
-from filtertwin.recordings import RecordingInfo
+from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.spectra import Spectrum, WelchAccumulator, segment_frames
 from filtertwin.twin import Twin
 
@@ -452,13 +452,13 @@ class RenderResult:
 
 
 class _CsvWriter:
-    """A streaming CSV output in the layout of :func:`filtertwin.recordings.write_csv`."""
+    """A streaming CSV output in the layout of :func:`filtertwin.outputs.write_csv`."""
 
     def __init__(self, path: Path, rate_hz: float, names: Sequence[str], protect: Path) -> None:
         self.path = path
         self.rate_hz = rate_hz
         self.frames = 0
-        self._context = recordings.atomic_path(path, protect=[protect])
+        self._context = outputs.atomic_path(path, protect=[protect])
         self._temporary = self._context.__enter__()
         self._fh = open(self._temporary, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
         self._fh.write(",".join(("time_s", *names)) + "\n")
@@ -488,11 +488,11 @@ class _Output:
         self.subtype = subtype
         self.peak = np.zeros(info.channels)
         self.over = 0
-        self.writer: recordings.SafeWriter | _CsvWriter
+        self.writer: outputs.SafeWriter | _CsvWriter
         if subtype is None:
             self.writer = _CsvWriter(planned.path, info.rate_hz, info.channel_names, info.path)
         else:
-            self.writer = recordings.SafeWriter(
+            self.writer = outputs.SafeWriter(
                 planned.path, info.rate_hz, info.channels, subtype=subtype, protect=[info.path]
             )
 

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 from scipy import signal
 
-from filtertwin import recordings
+from filtertwin import outputs
 
 SEED = 60063
 AUDIO_RATE_HZ = 48000
@@ -79,16 +79,16 @@ def write_vibration(folder: Path) -> tuple[Path, Path, Path]:
     _write_audio(wav, accel_g, "FLOAT", VIB_RATE_HZ)
     head = accel_g[: int(VIB_CSV_SECONDS * VIB_RATE_HZ)]
     csv = folder / "vibration_51k2.csv"
-    recordings.write_csv(csv, head, VIB_RATE_HZ, ["accel_g"])
+    outputs.write_csv(csv, head, VIB_RATE_HZ, ["accel_g"])
     manifest = folder / "vibration_51k2.json"
-    with recordings.atomic_path(manifest) as tmp:
+    with outputs.atomic_path(manifest) as tmp:
         tmp.write_text(json.dumps(vibration_manifest(), indent=2) + "\n", encoding="utf-8")
     return wav, csv, manifest
 
 
 def _write_audio(path: Path, data: np.ndarray, subtype: str, rate_hz: int = AUDIO_RATE_HZ) -> None:
     channels = 1 if data.ndim == 1 else data.shape[1]
-    with recordings.SafeWriter(path, rate_hz, channels, subtype=subtype) as writer:
+    with outputs.SafeWriter(path, rate_hz, channels, subtype=subtype) as writer:
         writer.write(data)
 
 

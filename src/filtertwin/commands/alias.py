@@ -82,7 +82,7 @@ def _out_folder(text: str) -> Path:
 
 
 def run(args: argparse.Namespace) -> int:
-    from filtertwin import recordings
+    from filtertwin import outputs, recordings
     from filtertwin.checks.alias import check_alias
     from filtertwin.design import load
     from filtertwin.report.check_figures import alias_figure
@@ -114,11 +114,11 @@ def run(args: argparse.Namespace) -> int:
         name = f"{stem}-adc-{label.replace('_', '-')}"
         if info.kind == "csv":
             path = out / f"{name}.csv"
-            recordings.write_csv(path, data, captures.rate_hz, info.channel_names, protect=protect)
+            outputs.write_csv(path, data, captures.rate_hz, info.channel_names, protect=protect)
         else:
             path = out / f"{name}.wav"
-            with recordings.SafeWriter(path, captures.rate_hz, 1, subtype="FLOAT",
-                                       protect=protect) as writer:  # fmt: skip
+            with outputs.SafeWriter(path, captures.rate_hz, 1, subtype="FLOAT",
+                                    protect=protect) as writer:  # fmt: skip
                 writer.write(data)
         files[label] = str(path)
     files["figure"] = str(alias_figure(check, out / f"{stem}-alias.png", protect=protect))

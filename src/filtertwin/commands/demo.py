@@ -58,7 +58,8 @@ def _design_overview() -> None:
         design = load(name)
         stages = sum(len(f.stages) for f in design.filters)
         warned = f", {len(design.warnings)} warning(s)" if design.warnings else ""
-        print(f"  {name:<24s} {len(design.filters)} filter(s), {stages} stage(s){warned}: {summary}")
+        size = f"{len(design.filters)} filter(s), {stages} stage(s)"
+        print(f"  {name:<24s} {size}{warned}: {summary}")
 
 
 def _audio_device_present() -> bool:

@@ -219,6 +219,8 @@ def cmd_render(args: argparse.Namespace) -> int:
         except BaseException:
             for path in [f.path for f in result.files] + extra:
                 path.unlink(missing_ok=True)
+            if figure_dir.is_dir() and not any(figure_dir.iterdir()):
+                figure_dir.rmdir()
             raise
     except BaseException:
         for made in created:

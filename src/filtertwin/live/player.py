@@ -38,6 +38,7 @@ from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
 from filtertwin.live.resample import StreamResampler, ratio
 from filtertwin.live.session import ListenSession
+from filtertwin.recordinginfo import RecordingInfo
 
 CHUNK_FRAMES = 1024
 MAX_CHANNELS = 2
@@ -119,7 +120,7 @@ def warm_up() -> None:
     stream.warm_up()
 
 
-def _read_excerpt(info: recordings.RecordingInfo, seconds: float, channels: int) -> np.ndarray:
+def _read_excerpt(info: RecordingInfo, seconds: float, channels: int) -> np.ndarray:
     wanted = max(1, round(seconds * info.rate_hz))
     pieces, frames = [], 0
     for block in recordings.read_blocks(info, recordings.SCAN_FRAMES):
@@ -130,7 +131,7 @@ def _read_excerpt(info: recordings.RecordingInfo, seconds: float, channels: int)
     return np.concatenate(pieces)[:wanted]
 
 
-def _inspect_input(options: ListenOptions) -> recordings.RecordingInfo:
+def _inspect_input(options: ListenOptions) -> RecordingInfo:
     assert options.input_path is not None
     info = recordings.inspect(
         options.input_path, rate_hz=options.input_rate_hz, column=options.column

@@ -36,7 +36,8 @@ from filtertwin.live.mixer import SelectionMixer
 from filtertwin.live.resample import StreamResampler
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
-from filtertwin.recordings import RecordingInfo, read_blocks
+from filtertwin.recordinginfo import RecordingInfo
+from filtertwin.recordings import read_blocks
 
 BLOCKS, XRUNS, STARVED_FRAMES, ODD_BLOCKS = 0, 1, 2, 3
 """Indices into :attr:`StreamCore.counters`."""

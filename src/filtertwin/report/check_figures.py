@@ -20,7 +20,7 @@ from filtertwin import units
 from filtertwin.checks.alias import AliasCheck
 from filtertwin.checks.crossover import CrossoverCheck
 from filtertwin.checks.tolerance import FilterTolerance, ToleranceResult
-from filtertwin.recordings import atomic_path
+from filtertwin.outputs import atomic_path
 
 __all__ = ["alias_figure", "crossover_figure", "tolerance_figure"]
 

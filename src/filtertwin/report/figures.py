@@ -19,7 +19,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from filtertwin.design import Design
-from filtertwin.recordings import atomic_path
+from filtertwin.outputs import atomic_path
 from filtertwin.spectra import Spectrum
 from filtertwin.twin import FIDELITY_WINDOW_DB, FilterTwin, Twin
 

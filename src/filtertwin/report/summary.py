@@ -16,7 +16,8 @@ from typing import TYPE_CHECKING, Any
 
 from filtertwin import __version__, units
 from filtertwin.design import Design
-from filtertwin.recordings import RecordingInfo, atomic_path
+from filtertwin.outputs import atomic_path
+from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.render import RenderResult, WrittenFile
 from filtertwin.report import figures
 from filtertwin.report.design_text import design_dict

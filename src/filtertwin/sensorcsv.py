@@ -1,0 +1,356 @@
+"""Sensor tables: CSV (also ``.tsv`` and ``.txt``) captures validated and read in batches.
+
+A table has one row per sample, optionally a header row (and a row of units under it) and
+``#`` comment lines; fields are separated by commas, semicolons, tabs or runs of spaces. The
+sample rate comes from a time column (seconds, or ``ms``/``us`` by its name) or is given.
+:func:`inspect_csv` checks every row once; :func:`csv_blocks` then reads the chosen columns
+in blocks, parsing :data:`CSV_BATCH_LINES` lines at a time. Users reach both through
+:func:`filtertwin.recordings.inspect` and :func:`filtertwin.recordings.read_blocks`.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterator
+from itertools import islice
+from pathlib import Path
+from typing import TextIO
+
+import numpy as np
+
+from filtertwin.errors import UserInputError
+from filtertwin.recordinginfo import (
+    FILE_SIGNATURES,
+    CsvLayout,
+    RecordingInfo,
+    choose_indices,
+    fail,
+    head_bytes,
+    is_text,
+)
+
+__all__ = ["CSV_BATCH_LINES", "CSV_SUFFIXES", "csv_blocks", "inspect_csv"]
+
+CSV_BATCH_LINES = 8192
+"""Lines parsed at a time; also the number of intervals that set the typical time step."""
+CSV_SUFFIXES = frozenset({".csv", ".tsv", ".txt"})
+"""File extensions read as sensor tables."""
+
+_TIME_SCALES_S = {
+    **dict.fromkeys(("t", "time", "time_s", "t_s", "seconds", "sec", "s", "timestamp"), 1.0),
+    **dict.fromkeys(("time_ms", "t_ms", "ms", "milliseconds"), 1e-3),
+    **dict.fromkeys(("time_us", "t_us", "us", "microseconds"), 1e-6),
+}
+
+
+def inspect_csv(
+    path: Path,
+    rate_hz: float | None,
+    column: str | int | None,
+    time_column: str | int | None,
+    jitter_limit: float,
+) -> RecordingInfo:
+    """Validate a sensor table completely; the CSV part of :func:`filtertwin.recordings.inspect`.
+
+    Parameters
+    ----------
+    path : Path
+        An existing, non-empty file.
+    rate_hz : float or None
+        Sample rate in Hz, checked positive by the caller; required without a time column.
+    column : str or int or None
+        Header name or 0-based field index of the one column to read; default every numeric
+        field except the time column.
+    time_column : str or int or None
+        Time column (seconds; ``ms``/``us`` names are scaled); default the field whose header
+        is a time name.
+    jitter_limit : float
+        Largest allowed deviation of a sample interval from the typical one, as a fraction.
+
+    Returns
+    -------
+    RecordingInfo
+        ``kind`` ``"csv"``, with the fields to read and the row layout.
+
+    Raises
+    ------
+    UserInputError
+        One line naming file, line and column and the fix.
+    """
+    _check_text(path)
+    layout, names, numeric = _csv_head(path)
+    every = range(len(names))
+    if time_column is not None:
+        found = list(choose_indices(path, names, time_column, every, "time column"))
+    else:
+        found = [j for j in every if _time_key(names[j]) in _TIME_SCALES_S][:1]
+    tcol = found[0] if found else None
+    scale = _TIME_SCALES_S.get(_time_key(names[found[0]]), 1.0) if found else 1.0
+    data = [j for j in every if j != tcol and (column is not None or numeric[j])]
+    chosen = choose_indices(path, names, column, data, "column")
+    if not chosen:
+        raise UserInputError(f"{path} has no numeric data column besides the time column")
+    if tcol is None and rate_hz is None:
+        raise UserInputError(
+            f"{path} has no time column (a header such as time, t, time_s or seconds) and no"
+            " sample rate was given; give the rate with --rate HZ or add a time column"
+        )
+    usecols = chosen if tcol is None else (tcol, *chosen)
+    frames, time_rate_hz = _scan_csv(path, layout, names, usecols, tcol, scale, jitter_limit)
+    rate_hz = _csv_rate(path, frames, rate_hz, time_rate_hz, jitter_limit)
+    return RecordingInfo(
+        path, "csv", rate_hz, len(chosen), frames, tuple(names[j] for j in chosen), None,
+        chosen, layout,
+    )  # fmt: skip
+
+
+def csv_blocks(info: RecordingInfo, block_frames: int) -> Iterator[np.ndarray]:
+    """Yield the chosen columns as float64 blocks of exactly ``block_frames`` rows (last: rest).
+
+    Parameters
+    ----------
+    info : RecordingInfo
+        From :func:`inspect_csv`.
+    block_frames : int
+        Rows per block, at least 1.
+
+    Returns
+    -------
+    Iterator of numpy.ndarray
+        float64 arrays of shape ``(n, info.channels)``, each new.
+    """
+    return _rechunk(_csv_pieces(info), block_frames)
+
+
+def _check_text(path: Path) -> None:
+    head = head_bytes(path)
+    for magic, what, suffix in FILE_SIGNATURES:
+        if head.startswith(magic):
+            fail(f"{path} is really {what}, not a text table; rename it to {suffix}")
+    if not is_text(head):
+        fail(f"{path} is binary, not a UTF-8 text table; export the capture as CSV text")
+
+
+def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool]]:
+    """Find delimiter, header names and which fields of the first data row are numbers.
+
+    The first row is a header if it has text where the row below has a number; a row of text
+    right under the header (units, such as ``s,g``) is skipped as well.
+    """
+    content: list[tuple[int, str]] = []
+    with _open_text(path) as fh:
+        for index, line in enumerate(fh):
+            if line.strip() and not line.lstrip().startswith("#"):
+                content.append((index, line.strip()))
+                if len(content) == 3:
+                    break
+    if not content:
+        fail(f"{path} has no data rows; export the capture again")
+    delimiter = next((d for d in (",", ";", "\t") if d in content[0][1]), None)
+    rows = [_split(line, delimiter) for _, line in content]
+    numbers = [[_is_number(field) for field in row] for row in rows]
+
+    def labels_over(i: int) -> bool:
+        return any(not a and b for a, b in zip(numbers[0], numbers[i], strict=False))
+
+    header_rows = 0
+    if len(rows) == 1 and not all(numbers[0]):
+        fail(f"{path} has a header but no data rows; export the capture again")
+    elif len(rows) > 1 and labels_over(1):
+        header_rows = 1
+    elif len(rows) > 2 and not any(numbers[1]) and labels_over(2):
+        header_rows = 2
+    data_row = rows[header_rows]
+    labels = rows[0] if header_rows else [""] * len(data_row)
+    names = tuple(label or f"col{j}" for j, label in enumerate(labels))
+    numeric = numbers[header_rows] + [False] * (len(names) - len(data_row))
+    return CsvLayout(delimiter, content[header_rows][0]), names, numeric
+
+
+def _scan_csv(
+    path: Path,
+    layout: CsvLayout,
+    names: tuple[str, ...],
+    usecols: tuple[int, ...],
+    tcol: int | None,
+    scale: float,
+    jitter_limit: float,
+) -> tuple[int, float | None]:
+    """Count the rows and check the time stamps; return (frames, rate from time column)."""
+    frames = 0
+    t_first = t_last = typical = None
+    for lines, values in _csv_batches(path, layout, names, usecols):
+        frames += len(values)
+        if tcol is None:
+            continue
+        t = values[:, 0] * scale
+        steps = np.diff(t if t_last is None else np.concatenate([[t_last], t]))
+        if len(steps):
+            at_lines = lines[len(lines) - len(steps) :]
+            typical = _check_steps(path, names[tcol], steps, at_lines, typical, jitter_limit)
+        t_first = t[0] if t_first is None else t_first
+        t_last = t[-1]
+    if t_first is None or t_last is None or frames < 2:
+        return frames, None
+    return frames, (frames - 1) / (t_last - t_first)
+
+
+def _check_steps(
+    path: Path, name: str, steps: np.ndarray, lines: np.ndarray, typical: float | None, limit: float
+) -> float:
+    """Check that time increases evenly; return the typical step (median of the first batch)."""
+    if not np.all(steps > 0):
+        at = int(np.argmax(steps <= 0))
+        fail(
+            f"{path} line {lines[at]}: time ({name!r}) does not increase; sort the rows"
+            " or remove repeated lines"
+        )
+    if typical is None:
+        typical = float(np.median(steps))
+    off = np.abs(steps - typical) / typical
+    if np.any(off > limit):
+        at = int(np.argmax(off > limit))
+        fail(
+            f"{path} line {lines[at]}: sample interval {steps[at]:.6g} s is {off[at]:.1%} off"
+            f" the typical {typical:.6g} s (limit {limit:.1%}); resample the capture evenly"
+            " or raise the jitter limit"
+        )
+    return typical
+
+
+def _csv_rate(
+    path: Path, frames: int, given: float | None, from_time: float | None, limit: float
+) -> float:
+    if frames == 0:
+        fail(f"{path} has a header but no data rows; export the capture again")
+    if from_time is None:
+        if given is None:
+            fail(f"{path}: one row gives no sample interval; give the rate with --rate HZ")
+        return float(given)
+    if given is not None and abs(given - from_time) > limit * from_time:
+        fail(
+            f"{path}: the given rate {given:g} Hz disagrees with the time column"
+            f" ({from_time:.6g} Hz); drop the rate or fix the time stamps"
+        )
+    return float(given if given is not None else from_time)
+
+
+def _csv_pieces(info: RecordingInfo) -> Iterator[np.ndarray]:
+    assert info.layout is not None
+    names = tuple(f"col{j}" for j in range(max(info.source_channels) + 1))
+    for _, values in _csv_batches(info.path, info.layout, names, info.source_channels):
+        yield values
+
+
+def _csv_batches(
+    path: Path, layout: CsvLayout, names: tuple[str, ...], usecols: tuple[int, ...]
+) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+    """Yield (1-based line numbers, values of ``usecols``) for batches of data rows."""
+    with _open_text(path) as fh:
+        line_no = layout.skip_lines
+        for _ in islice(fh, layout.skip_lines):
+            pass
+        while True:
+            try:
+                batch = list(islice(fh, CSV_BATCH_LINES))
+            except UnicodeDecodeError:
+                fail(f"{path}: bytes after line {line_no} are not UTF-8 text; save as UTF-8")
+            if not batch:
+                return
+            rows, numbers = [], []
+            for offset, line in enumerate(batch, start=line_no + 1):
+                if line.strip() and not line.lstrip().startswith("#"):
+                    rows.append(line)
+                    numbers.append(offset)
+            line_no += len(batch)
+            if rows:
+                lines = np.array(numbers)
+                yield lines, _parse_rows(path, rows, lines, layout, names, usecols)
+
+
+def _parse_rows(
+    path: Path,
+    rows: list[str],
+    lines: np.ndarray,
+    layout: CsvLayout,
+    names: tuple[str, ...],
+    usecols: tuple[int, ...],
+) -> np.ndarray:
+    try:
+        values = np.loadtxt(
+            rows, delimiter=layout.delimiter, quotechar='"', comments=None, usecols=usecols,
+            dtype=np.float64, ndmin=2,
+        )  # fmt: skip
+    except ValueError as exc:
+        _explain_row_error(path, rows, lines, layout, names, usecols)
+        reason = " ".join(str(exc).split())  # numpy refused a row that float() accepts
+        fail(f"{path} lines {lines[0]}-{lines[-1]}: {reason}; fix the values")
+    bad = ~np.isfinite(values)
+    if bad.any():
+        i, k = np.argwhere(bad)[0]
+        fail(
+            f"{path} line {lines[i]}, column {names[usecols[k]]!r} (index {usecols[k]}):"
+            f" {values[i, k]} is not a finite number; repair or drop the row"
+        )
+    return values
+
+
+def _explain_row_error(
+    path: Path,
+    rows: list[str],
+    lines: np.ndarray,
+    layout: CsvLayout,
+    names: tuple[str, ...],
+    usecols: tuple[int, ...],
+) -> None:
+    for row, line in zip(rows, lines, strict=True):
+        fields = _split(row.strip(), layout.delimiter)
+        for j in usecols:
+            if j >= len(fields):
+                fail(
+                    f"{path} line {line} has {len(fields)} fields, so column {names[j]!r}"
+                    f" (index {j}) is missing; complete or drop the row"
+                )
+            if not _is_number(fields[j]):
+                fail(
+                    f"{path} line {line}, column {names[j]!r} (index {j}): {fields[j][:20]!r}"
+                    " is not a number; fix the value or choose another column"
+                )
+
+
+def _time_key(name: str) -> str:
+    """'Time (ms)' -> 'time_ms', 'T [s]' -> 't_s', 'seconds' -> 'seconds'."""
+    key = re.sub(r"\s*[\(\[]\s*(\w+)\s*[\)\]]\s*$", r"_\1", name.strip().lower())
+    return re.sub(r"[\s\-]+", "_", key)
+
+
+def _split(line: str, delimiter: str | None) -> list[str]:
+    return [field.strip().strip('"').strip() for field in line.split(delimiter)]
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _open_text(path: Path) -> TextIO:
+    return open(path, encoding="utf-8-sig", errors="strict")
+
+
+def _rechunk(pieces: Iterator[np.ndarray], block_frames: int) -> Iterator[np.ndarray]:
+    """Regroup arrays of any lengths into blocks of exactly ``block_frames`` (last: rest)."""
+    pending: list[np.ndarray] = []
+    count = 0
+    for piece in pieces:
+        pending.append(piece)
+        count += len(piece)
+        while count >= block_frames:
+            joined = pending[0] if len(pending) == 1 else np.concatenate(pending)
+            yield joined[:block_frames].copy()
+            pending = [joined[block_frames:]] if count > block_frames else []
+            count -= block_frames
+    if count:
+        yield np.concatenate(pending)
