@@ -208,7 +208,7 @@ def write_inputs(folder: Path) -> dict[str, str]:
 BAD_INPUTS = [
     (("mono", "--adc-rate", "8k", "--band", "5k"), r"band of interest 5000 Hz .* Nyquist"),
     (("mono", "--adc-rate", "96k"), r"ADC rate 96000 Hz is above the recording's rate 48000 Hz"),
-    (("mono", "--adc-rate", "fast"), r"--adc-rate 'fast'"),
+    (("mono", "--adc-rate", "fast"), r"argument --adc-rate: cannot read 'fast'"),
     (("mono", "--adc-rate", "8k", "--bits", "40"), r"outside 1\.\.32"),
     (("mono", "--adc-rate", "8k", "--out", "aa.toml"), r"--out aa.toml: is a file"),
     (("stereo", "--adc-rate", "8k"), r"has 2 channels .* choose one with --column"),

@@ -255,7 +255,10 @@ def test_bad_inputs_are_refused_with_what_and_how():
     [
         (["--builds", "0"], r"number of builds 0 must be a whole number"),
         (["--builds", "10", "--stop-hz", "5k"], r"choose one with --filter NAME"),
-        (["--builds", "10", "--stop-hz", "fast", "--filter", "woofer"], r"--stop-hz 'fast'"),
+        (
+            ["--builds", "10", "--stop-hz", "fast", "--filter", "woofer"],
+            r"argument --stop-hz: cannot read 'fast'",
+        ),
         (["--builds", "10", "--seed", "-1"], r"--seed -1 must be a whole number >= 0"),
         (["--builds", "10", "--ripple-db", "-2"], r"ripple -2 dB must be positive"),
     ],

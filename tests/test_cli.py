@@ -79,3 +79,12 @@ def test_unknown_design_name_is_one_line_exit_2(tmp_path):
     r = run("design", "no-such-example", cwd=tmp_path)
     assert r.returncode == 2
     assert len(r.stderr.strip().splitlines()) == 1 and "no such design file or example" in r.stderr
+
+
+def test_a_bad_option_value_is_one_line_naming_the_option(tmp_path):
+    r = run("render", "bookshelf-2way", "x.wav", "--out", str(tmp_path), "--oversample", "3")
+    assert r.returncode == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1
+    assert "argument --oversample: must be 1, 2, 4, 8 or auto, got '3'" in lines[0]
+    assert "see 'filtertwin render --help'" in lines[0]

@@ -12,9 +12,10 @@ import json
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, NoReturn
 
 from filtertwin import __version__
+from filtertwin.commands.options import frequency_hz, oversampling
 from filtertwin.errors import UserInputError
 
 SAFETY_NOTE = (
@@ -79,28 +80,15 @@ def cmd_examples(args: argparse.Namespace) -> int:
     return 0
 
 
-def _oversample(text: str) -> int | str:
-    if text == "auto":
-        return text
-    if text in ("1", "2", "4", "8"):
-        return int(text)
-    raise argparse.ArgumentTypeError("must be 1, 2, 4, 8 or auto")
+class OneLineParser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line (what, which option, see --help), exit 2."""
 
-
-def _positive_float(text: str) -> float:
-    from filtertwin import units
-
-    try:
-        value = units.parse_quantity(text, None)
-    except ValueError as exc:
-        raise argparse.ArgumentTypeError(str(exc)) from None
-    if value <= 0:
-        raise argparse.ArgumentTypeError(f"must be positive, got {text}")
-    return value
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"{self.prog}: {message}; see '{self.prog} --help'\n")
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = OneLineParser(
         prog="filtertwin",
         description=(
             "Design Sallen-Key active filters with real parts, model the circuit as built, "
@@ -116,10 +104,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print JSON (SI units) instead of tables")
     p.add_argument("--bom", metavar="FILE.csv", help="write the parts list as CSV")
     p.add_argument(
-        "--rate", type=_positive_float, help="also build the digital twin at this rate (Hz)"
+        "--rate", type=frequency_hz, help="also build the digital twin at this rate (Hz)"
     )
     p.add_argument(
-        "--oversample", type=_oversample, default=1, help="twin oversampling: 1, 2, 4, 8 or auto"
+        "--oversample", type=oversampling, default=1, help="twin oversampling: 1, 2, 4, 8 or auto"
     )
     p.set_defaults(func=cmd_design)
 
@@ -141,7 +129,10 @@ def _extra_commands() -> list[Callable[[Any], None]]:
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as done:  # --help, --version, or a bad option (one line printed)
+        return int(done.code or 0)
     if not getattr(args, "func", None):
         parser.print_help()
         return 2

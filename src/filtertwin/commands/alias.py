@@ -10,24 +10,11 @@ import json
 from pathlib import Path
 from typing import Any
 
+from filtertwin.commands.options import column, frequency_hz
 from filtertwin.errors import UserInputError
 
 DEFAULT_OUT = "filtertwin-alias"
 DEFAULT_BITS = 16
-
-
-def _hz(text: str | None, option: str) -> float | None:
-    from filtertwin import units
-
-    if text is None:
-        return None
-    try:
-        value = units.parse_quantity(text, "Hz")
-    except (ValueError, TypeError) as exc:
-        raise UserInputError(f"{option} {text!r}: {exc}; write it like 8000 or 8k") from None
-    if value <= 0:
-        raise UserInputError(f"{option} {text!r} must be a positive frequency; e.g. 8k")
-    return value
 
 
 def register(subparsers: Any) -> None:
@@ -45,7 +32,9 @@ def register(subparsers: Any) -> None:
     )
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
     p.add_argument("recording", help="WAV/FLAC, CSV (time column or --rate) or NPY (--rate)")
-    p.add_argument("--adc-rate", required=True, metavar="HZ", help="the ADC's sample rate")
+    p.add_argument(
+        "--adc-rate", required=True, type=frequency_hz, metavar="HZ", help="the ADC's sample rate"
+    )
     need = p.add_mutually_exclusive_group()
     need.add_argument(
         "--bits", type=int, metavar="N",
@@ -53,7 +42,7 @@ def register(subparsers: Any) -> None:
     )  # fmt: skip
     need.add_argument("--reject-db", type=float, metavar="X", help="required attenuation, dB")
     p.add_argument(
-        "--band", metavar="HZ",
+        "--band", type=frequency_hz, metavar="HZ",
         help="top of the band of interest (default: the filter's corner, at most ADC rate / 2)",
     )  # fmt: skip
     p.add_argument(
@@ -62,15 +51,12 @@ def register(subparsers: Any) -> None:
     )  # fmt: skip
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.add_argument("--filter", metavar="NAME", help="the anti-alias filter (designs with several)")
-    p.add_argument("--rate", metavar="HZ", help="sample rate of a CSV without time column or NPY")
+    p.add_argument(
+        "--rate", type=frequency_hz, metavar="HZ",
+        help="sample rate of a CSV without time column or NPY",
+    )  # fmt: skip
     p.add_argument("--column", metavar="NAME", help="CSV column or audio/NPY channel to read")
     p.set_defaults(func=run)
-
-
-def _column(text: str | None) -> str | int | None:
-    if text is None:
-        return None
-    return int(text) if text.isdigit() else text
 
 
 def _out_folder(text: str) -> Path:
@@ -88,12 +74,8 @@ def run(args: argparse.Namespace) -> int:
     from filtertwin.report.check_figures import alias_figure
 
     design = load(args.design)
-    adc_rate = _hz(args.adc_rate, "--adc-rate")
-    band = _hz(args.band, "--band")
-    assert adc_rate is not None
-    info = recordings.inspect(
-        args.recording, rate_hz=_hz(args.rate, "--rate"), column=_column(args.column)
-    )
+    adc_rate, band = args.adc_rate, args.band
+    info = recordings.inspect(args.recording, rate_hz=args.rate, column=column(args.column))
     if info.channels != 1:
         names = ", ".join(info.channel_names)
         raise UserInputError(

@@ -11,24 +11,13 @@ import json
 from pathlib import Path
 from typing import Any
 
+from filtertwin.commands.options import frequency_hz
 from filtertwin.errors import UserInputError
 
 # the defaults of filtertwin.checks.crossover, repeated so that --help stays fast (a test
 # checks that they agree)
 DEFAULT_BAND_HZ = (20.0, 20000.0)
 DEFAULT_TOLERANCE_DB = 1.0
-
-
-def _hz(text: str, option: str) -> float:
-    from filtertwin import units
-
-    try:
-        value = units.parse_quantity(text, "Hz")
-    except (ValueError, TypeError) as exc:
-        raise UserInputError(f"{option} {text!r}: {exc}; write it like 20 or 20k") from None
-    if value <= 0:
-        raise UserInputError(f"{option} {text!r} must be a positive frequency; e.g. 20")
-    return value
 
 
 def register(subparsers: Any) -> None:
@@ -46,7 +35,7 @@ def register(subparsers: Any) -> None:
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
     lo, hi = DEFAULT_BAND_HZ
     p.add_argument(
-        "--band", nargs=2, metavar=("LO", "HI"), default=None,
+        "--band", nargs=2, type=frequency_hz, metavar=("LO", "HI"), default=None,
         help=f"band where the sum must be flat (default {lo:g} Hz to {hi:g} Hz)",
     )  # fmt: skip
     p.add_argument(
@@ -65,7 +54,7 @@ def run(args: argparse.Namespace) -> int:
     design = load(args.design)
     band = DEFAULT_BAND_HZ
     if args.band is not None:
-        band = (_hz(args.band[0], "--band LO"), _hz(args.band[1], "--band HI"))
+        band = (args.band[0], args.band[1])
     check = check_crossover(design, band_hz=band, tolerance_db=args.tolerance_db)
     files = {}
     if args.out:

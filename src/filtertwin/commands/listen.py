@@ -8,6 +8,7 @@ from contextlib import ExitStack
 from pathlib import Path
 from typing import Any
 
+from filtertwin.commands.options import frequency_hz, positive
 from filtertwin.errors import UserInputError
 
 SAFETY_EPILOG = """\
@@ -24,31 +25,6 @@ Keys: 1-9 candidate, 0 bypass, s/l/m/h solo sum/low/mid/high, L/M/H mute a way, 
 level, e type a command (part low 2 C1 +1, corner low 2.5k), ? all keys, q quit.
 Blind trials: a/b/x listen, A/B answer (ABX); 1/2 listen, Enter answers (preference).
 A script has lines 'TIME_S COMMAND [ARGS]', e.g. '2.5 select 2', '5 part low 2 C1 +1'."""
-
-
-def _positive(kind: type, what: str) -> Any:
-    def parse(text: str) -> Any:
-        try:
-            value = kind(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"{what} must be a number, got {text!r}") from None
-        if value <= 0:
-            raise argparse.ArgumentTypeError(f"{what} must be positive, got {text!r}")
-        return value
-
-    return parse
-
-
-def _frequency(text: str) -> float:
-    from filtertwin import units
-
-    try:
-        value = units.parse_quantity(text, "Hz")
-    except ValueError as error:
-        raise argparse.ArgumentTypeError(str(error)) from None
-    if value <= 0:
-        raise argparse.ArgumentTypeError(f"must be positive, got {text}")
-    return value
 
 
 def _latency(text: str) -> str | float:
@@ -90,12 +66,12 @@ def register(subparsers: Any) -> None:
     add("--input", metavar="FILE", help="recording to play in a loop (WAV, FLAC, CSV, NPY; "
         "any rate); default: the device's live input")  # fmt: skip
     add("--column", metavar="NAME", help="the one column or channel to play")
-    add("--input-rate", type=_frequency, metavar="HZ",
+    add("--input-rate", type=frequency_hz, metavar="HZ",
         help="rate of a CSV without time column or of an NPY file")  # fmt: skip
     add("--device", metavar="DEV", help="device number or part of its name (see: devices)")
-    add("--rate", type=_frequency, metavar="HZ",
+    add("--rate", type=frequency_hz, metavar="HZ",
         help="stream rate (default: the device's default rate)")  # fmt: skip
-    add("--blocksize", type=_positive(int, "block size"), default=256, metavar="N",
+    add("--blocksize", type=positive(int, "block size"), default=256, metavar="N",
         help="frames per audio block (default 256)")  # fmt: skip
     add("--latency", type=_latency, metavar="low|high|S",
         help="device latency (default: high for a recording, low for live input)")  # fmt: skip
@@ -103,28 +79,28 @@ def register(subparsers: Any) -> None:
     add("--match", choices=("loudness", "gain", "off"),
         help="level matching: BS.1770 loudness of the recording (default with --input), "
         "passband gain (default for live input), or off")  # fmt: skip
-    add("--match-seconds", type=_positive(float, "--match-seconds"), default=10.0,
+    add("--match-seconds", type=positive(float, "--match-seconds"), default=10.0,
         metavar="S", help="seconds of the recording measured (default 10)")  # fmt: skip
     add("--level", type=float, default=0.0, metavar="DB",
         help="output level after the ramp, -60 to +12 dB (default 0)")  # fmt: skip
     add("--ceiling", type=float, default=-1.0, metavar="DBFS",
         help="output ceiling, -60 to -1 dBFS (default -1; never higher)")  # fmt: skip
-    add("--crossfade", type=_positive(float, "--crossfade"), default=30.0, metavar="MS",
+    add("--crossfade", type=positive(float, "--crossfade"), default=30.0, metavar="MS",
         help="crossfade time of a switch (default 30 ms)")  # fmt: skip
     add("--ways-out", action="store_true",
         help="each way on its own channel pair (active monitoring; see below)")  # fmt: skip
     trials = p.add_argument_group("blind trials (two designs)")
     kind = trials.add_mutually_exclusive_group()
-    kind.add_argument("--abx", type=_positive(int, "--abx"), metavar="N",
+    kind.add_argument("--abx", type=positive(int, "--abx"), metavar="N",
                       help="N ABX trials: is X the A or the B?")  # fmt: skip
-    kind.add_argument("--prefer", type=_positive(int, "--prefer"), metavar="N",
+    kind.add_argument("--prefer", type=positive(int, "--prefer"), metavar="N",
                       help="N blind preference trials: which of 1 and 2 is better?")  # fmt: skip
     trials.add_argument("--seed", type=int, help="seed of the hidden assignments")
     trials.add_argument("--log", metavar="FILE", help="write every trial to this CSV file")
     add = p.add_argument_group("running").add_argument
     add("--script", metavar="FILE|-",
         help="timed commands, lines 'TIME_S COMMAND [ARGS]'; - reads stdin")  # fmt: skip
-    add("--duration", type=_positive(float, "--duration"), metavar="S",
+    add("--duration", type=positive(float, "--duration"), metavar="S",
         help="stop after S seconds")  # fmt: skip
     p.set_defaults(func=cmd_listen)
 

@@ -13,6 +13,7 @@ import time
 from pathlib import Path
 from typing import Any, TextIO
 
+from filtertwin.commands.options import column, frequency_hz, oversampling
 from filtertwin.errors import UserInputError
 
 SAFETY_LINE = (
@@ -48,7 +49,7 @@ def register(subparsers: Any) -> None:
         "--block", type=_block, default=16384, metavar="N", help="frames per block (default 16384)"
     )
     p.add_argument(
-        "--oversample", type=_oversample, default="auto", metavar="1|2|4|8|auto",
+        "--oversample", type=oversampling, default="auto", metavar="1|2|4|8|auto",
         help="run the twin at 1, 2, 4 or 8 times the input rate; auto (default) picks the "
         "smallest factor whose fidelity is within 0.1 dB and 1 degree",
     )  # fmt: skip
@@ -65,7 +66,7 @@ def register(subparsers: Any) -> None:
         help="random seed of the tolerance builds (default 1)",
     )  # fmt: skip
     p.add_argument(
-        "--rate", type=_rate, metavar="HZ",
+        "--rate", type=frequency_hz, metavar="HZ",
         help="sample rate of a sensor capture (NPY, CSV without a time column)",
     )  # fmt: skip
     p.add_argument(
@@ -97,30 +98,6 @@ def _count(text: str) -> int:
     if not text.isdigit() or int(text) < 2:
         raise argparse.ArgumentTypeError(f"must be a whole number >= 2, got {text}")
     return int(text)
-
-
-def _oversample(text: str) -> int | str:
-    if text == "auto":
-        return text
-    if text in ("1", "2", "4", "8"):
-        return int(text)
-    raise argparse.ArgumentTypeError("must be 1, 2, 4, 8 or auto")
-
-
-def _rate(text: str) -> float:
-    from filtertwin import units
-
-    try:
-        value = units.parse_quantity(text, None)
-    except ValueError as exc:
-        raise argparse.ArgumentTypeError(str(exc)) from None
-    if not (math.isfinite(value) and value > 0):
-        raise argparse.ArgumentTypeError(f"must be a positive rate in Hz, got {text}")
-    return value
-
-
-def _column(text: str | None) -> str | int | None:
-    return int(text) if text is not None and text.isdigit() else text
 
 
 class _ProgressBar:
@@ -160,7 +137,7 @@ def cmd_render(args: argparse.Namespace) -> int:
     """Run ``filtertwin render``; returns the exit status (0)."""
     from filtertwin import recordings
 
-    info = recordings.inspect(args.input, rate_hz=args.rate, column=_column(args.column))
+    info = recordings.inspect(args.input, rate_hz=args.rate, column=column(args.column))
 
     from filtertwin import examples, render
     from filtertwin.design import build_design

@@ -11,26 +11,13 @@ import json
 from pathlib import Path
 from typing import Any
 
+from filtertwin.commands.options import frequency_hz
 from filtertwin.errors import UserInputError
 
 # the choices and defaults of filtertwin.checks.tolerance, repeated so that --help stays fast
 # (a test checks that they agree)
 DISTRIBUTIONS = ("uniform", "gaussian")
 DEFAULT_RIPPLE_DB = 1.0
-
-
-def _hz(text: str | None, option: str) -> float | None:
-    from filtertwin import units
-
-    if text is None:
-        return None
-    try:
-        value = units.parse_quantity(text, "Hz")
-    except (ValueError, TypeError) as exc:
-        raise UserInputError(f"{option} {text!r}: {exc}; write it like 4400 or 4.4k") from None
-    if value <= 0:
-        raise UserInputError(f"{option} {text!r} must be a positive frequency; e.g. 4.4k")
-    return value
 
 
 def register(subparsers: Any) -> None:
@@ -57,7 +44,7 @@ def register(subparsers: Any) -> None:
         "--ripple-db", type=float, metavar="X",
         help=f"passband limit, +/- dB around the passband gain (default {DEFAULT_RIPPLE_DB:g})",
     )  # fmt: skip
-    p.add_argument("--stop-hz", metavar="F", help="stopband edge frequency")
+    p.add_argument("--stop-hz", type=frequency_hz, metavar="F", help="stopband edge frequency")
     p.add_argument("--stop-db", type=float, metavar="Y", help="least stopband attenuation, dB")
     p.add_argument("--filter", metavar="NAME", help="only this filter of the design")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
@@ -74,7 +61,7 @@ def run(args: argparse.Namespace) -> int:
         raise UserInputError(f"--seed {args.seed} must be a whole number >= 0")
     result = run_tolerance(
         design, args.builds, distribution=args.distribution, seed=args.seed,
-        ripple_db=args.ripple_db, stop_hz=_hz(args.stop_hz, "--stop-hz"),
+        ripple_db=args.ripple_db, stop_hz=args.stop_hz,
         stop_db=args.stop_db, filter_name=args.filter,
     )  # fmt: skip
     files = {}
