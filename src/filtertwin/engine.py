@@ -347,7 +347,7 @@ def _memory_layout(n_chains: int, n_sections: int, channels: int) -> tuple[int, 
 _layout = njit(_memory_layout)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _run_block(x, out, sec, mem):
     """Filter ``x`` (frames, channels) through every chain into ``out`` (chains, frames, ch).
 

@@ -18,7 +18,9 @@ a failure leaves none of them behind.
 from __future__ import annotations
 
 import math
+import queue
 import re
+import threading
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -480,6 +482,9 @@ class _CsvWriter:
             self._temporary.unlink(missing_ok=True)
 
 
+_WRITE_QUEUE_BLOCKS = 4  # blocks waiting per output file: bounded memory
+
+
 class _Output:
     """One planned output being written, with its peak and over-full-scale counters."""
 
@@ -495,8 +500,44 @@ class _Output:
             self.writer = outputs.SafeWriter(
                 planned.path, info.rate_hz, info.channels, subtype=subtype, protect=[info.path]
             )
+        self._failure: BaseException | None = None
+        self._queue: queue.Queue[np.ndarray | None] = queue.Queue(maxsize=_WRITE_QUEUE_BLOCKS)
+        self._thread = threading.Thread(target=self._drain, name=f"write {planned.name}")
+        self._thread.start()
 
     def write(self, block: np.ndarray) -> None:
+        """Queue a copy of ``block`` for the writer thread (blocks while the queue is full)."""
+        self._raise_failure()
+        self._queue.put(np.array(block, copy=True))
+
+    def stop(self) -> None:
+        """End the writer thread without waiting for its queue (after a failure)."""
+        if self._thread.is_alive():
+            self._failure = self._failure or RuntimeError("render stopped")
+            self._queue.put(None)
+            self._thread.join()
+
+    def finish(self) -> None:
+        """Wait until every queued block is written; re-raise a writer failure."""
+        self._queue.put(None)
+        self._thread.join()
+        self._raise_failure()
+
+    def _raise_failure(self) -> None:
+        if self._failure is not None:
+            raise self._failure
+
+    def _drain(self) -> None:
+        # a thread per output: libsndfile writes release the GIL, so files are written while
+        # the runner (nogil) filters the next block
+        while (block := self._queue.get()) is not None:
+            if self._failure is None:
+                try:
+                    self._write_now(block)
+                except BaseException as exc:  # handed to the main thread by finish()/write()
+                    self._failure = exc
+
+    def _write_now(self, block: np.ndarray) -> None:
         if len(block):
             magnitude = np.abs(block)
             for c in range(len(self.peak)):  # per channel: far faster than max(axis=0)
@@ -569,10 +610,13 @@ def render(
         spectra = _accumulators(plan, info, settings.spectra)
         _stream(stream, info, outputs, spectra, settings.block_frames, progress)
         for out in outputs:
+            out.finish()
+        for out in outputs:
             out.writer.close()
             done.append(out.planned.path)
     except BaseException:
         for out in outputs:
+            out.stop()
             out.writer.discard()
         for path in done:
             path.unlink(missing_ok=True)
