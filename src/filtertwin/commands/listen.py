@@ -22,7 +22,8 @@ again within 3 s (a script writes 'confirm'). Never connect a tweeter without it
 protection while you try things out.
 
 Keys: 1-9 candidate, 0 bypass, s/l/m/h solo sum/low/mid/high, L/M/H mute a way, + and -
-level, e type a command (part low 2 C1 +1, corner low 2.5k), ? all keys, q quit.
+level, c ADC capture on/off (--adc-rate), e type a command (part low 2 C1 +1, corner low
+2.5k), ? all keys, q quit.
 Blind trials: a/b/x listen, A/B answer (ABX); 1/2 listen, Enter answers (preference).
 A script has lines 'TIME_S COMMAND [ARGS]', e.g. '2.5 select 2', '5 part low 2 C1 +1'."""
 
@@ -89,6 +90,9 @@ def register(subparsers: Any) -> None:
         help="crossfade time of a switch (default 30 ms)")  # fmt: skip
     add("--ways-out", action="store_true",
         help="each way on its own channel pair (active monitoring; see below)")  # fmt: skip
+    add("--adc-rate", type=frequency_hz, metavar="HZ",
+        help="with a recording sampled faster: key c hears what an ideal ADC at this rate "
+        "captures of it (aliases included), with and without each candidate")  # fmt: skip
     trials = p.add_argument_group("blind trials (two designs)")
     kind = trials.add_mutually_exclusive_group()
     kind.add_argument("--abx", type=positive(int, "--abx"), metavar="N",
@@ -106,7 +110,7 @@ def register(subparsers: Any) -> None:
 
 
 def _options(args: argparse.Namespace) -> Any:
-    from filtertwin.live.player import ListenOptions
+    from filtertwin.live.player import ADC_NEEDS_RECORDING, ListenOptions
     from filtertwin.live.safety import OutputSafety
 
     blind = "abx" if args.abx else "preference" if args.prefer else None
@@ -120,6 +124,8 @@ def _options(args: argparse.Namespace) -> Any:
         raise UserInputError(
             f"blind trials compare two designs, {len(args.designs)} were given; give exactly two"
         )
+    if args.adc_rate is not None and not args.input:
+        raise UserInputError(ADC_NEEDS_RECORDING)
     if args.match == "loudness" and not args.input:
         raise UserInputError(
             "--match loudness needs a recording (--input); for live input use --match gain"
@@ -144,6 +150,7 @@ def _options(args: argparse.Namespace) -> Any:
         trials=args.abx or args.prefer or 0,
         seed=args.seed,
         log_path=Path(args.log) if args.log else None,
+        adc_rate_hz=args.adc_rate,
     )
 
 

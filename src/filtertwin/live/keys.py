@@ -35,6 +35,8 @@ from filtertwin.errors import UserInputError
 LEVEL_STEP_DB = 1.0
 WAYS = ("low", "mid", "high", "sum")
 LISTEN_CHOICES = ("A", "B", "X", "1", "2")
+CAPTURE_CHOICES = ("on", "off")
+LOWER_CASE_ARGS = ("solo", "mute", "capture")
 ANSWER_CHOICES = ("A", "B", "1", "2")
 
 
@@ -92,6 +94,12 @@ RULES: dict[str, CommandRule] = {
         (1, 2, 3),
         help="move the corner of a filter given by an alignment, e.g. 'corner low 2.5k'",
     ),
+    "capture": CommandRule(
+        "capture [on|off]",
+        (0, 1),
+        CAPTURE_CHOICES,
+        "with --adc-rate: hear what the ADC captures, or the signal itself (no word: switch)",
+    ),
     "confirm": CommandRule("confirm", (0,), help="confirm the warning just given (within 3 s)"),
     "edit": CommandRule("edit", (0,), help="type a command such as 'part low 2 C1 +1'"),
     "help": CommandRule("help", (0,), help="show the keys"),
@@ -120,6 +128,7 @@ KEY_BINDINGS: tuple[KeyBinding, ...] = (
     KeyBinding("H", Command("mute", ("high",)), "leave the high way out of the sum (again: back)"),
     KeyBinding("+", Command("louder"), f"output level up {LEVEL_STEP_DB:g} dB"),
     KeyBinding("-", Command("quieter"), f"output level down {LEVEL_STEP_DB:g} dB"),
+    KeyBinding("c", Command("capture"), "with --adc-rate: ADC capture on or off (aliases)"),
     KeyBinding("t", Command("trials"), "in blind trials: say the trial and its keys"),
     KeyBinding("a", Command("listen", ("A",)), "in a trial: hear A"),
     KeyBinding("b", Command("listen", ("B",)), "in a trial: hear B"),
@@ -171,7 +180,7 @@ def parse_command(text: str) -> Command:
     if len(args) not in rule.n_args:
         raise UserInputError(f"wrong number of arguments to {name}; use '{rule.usage}'")
     if rule.choices:
-        args = tuple(arg.lower() if name in ("solo", "mute") else arg.upper() for arg in args)
+        args = tuple(arg.lower() if name in LOWER_CASE_ARGS else arg.upper() for arg in args)
         for arg in args:
             if arg not in rule.choices:
                 raise UserInputError(

@@ -11,9 +11,11 @@ Two paths, chosen by the input:
 
 * *in the callback*: live input, or a recording at the stream's rate. The twins run at the
   stream rate, in the audio callback, on the block just read.
-* *read ahead*: a recording at another rate (a sensor recording, say). The twins run at the
-  recording's own rate in the read-ahead thread, and every chain's output and the dry input
-  are resampled to the stream rate there; the callback only mixes.
+* *read ahead*: a recording at another rate (a sensor recording, say), or any recording
+  with ``--adc-rate``. The twins run at the recording's own rate in the read-ahead thread,
+  and every chain's output and the dry input are resampled to the stream rate there (with
+  ``--adc-rate`` also what an ideal ADC captures of each, :mod:`filtertwin.live.capture`);
+  the callback only mixes.
 """
 
 from __future__ import annotations
@@ -33,10 +35,11 @@ from filtertwin import engine, recordings
 from filtertwin.design import Design
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
+from filtertwin.live import capture as capture_mod
 from filtertwin.live import devices, matching, mixer, ring, routing, safety, stream
 from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
-from filtertwin.live.resample import StreamResampler, ratio
+from filtertwin.live.resample import ratio
 from filtertwin.live.session import ListenSession
 from filtertwin.recordinginfo import RecordingInfo
 
@@ -88,6 +91,9 @@ class ListenOptions:
         Seed of the blind plan (None: drawn from the clock, and printed at the end).
     log_path : Path or None
         Trial log (CSV).
+    adc_rate_hz : float or None
+        Rate of an ideal ADC whose capture of the recording can be heard (a recording
+        sampled faster than it only).
     """
 
     input_path: Path | None = None
@@ -109,6 +115,7 @@ class ListenOptions:
     trials: int = 0
     seed: int | None = None
     log_path: Path | None = None
+    adc_rate_hz: float | None = None
 
 
 def warm_up() -> None:
@@ -304,6 +311,56 @@ class Player:
             gc.unfreeze()
 
 
+ADC_NEEDS_RECORDING = (
+    "--adc-rate needs a recording sampled faster than the ADC (--input REC); "
+    "the live input cannot show what the ADC would fold"
+)
+
+
+def _read_ahead(
+    options: ListenOptions,
+    info: RecordingInfo,
+    rate_hz: float,
+    chains: tuple[list[np.ndarray], list[np.ndarray]],
+    output_safety: safety.OutputSafety,
+    pairs: int,
+    say: Callable[[str], None],
+) -> tuple[stream.StreamCore, stream.PreFilter, stream.Feeder, capture_mod.CapturePlan | None]:
+    """The read-ahead path: the twins (and the ADC capture) in the read-ahead thread."""
+    sos, levels = chains
+    channels = info.channels
+    width = (len(sos) + 1) * channels  # every chain and the dry input, side by side
+    up, down = ratio(info.rate_hz, rate_hz)
+    resampler = capture_mod.resampler(up, down, width)
+    plan = adc = None
+    if options.adc_rate_hz is not None:
+        plan = capture_mod.plan_capture(options.adc_rate_hz, info.rate_hz, rate_hz, str(info.path))
+        adc = capture_mod.AdcCapture(plan, width, capture_mod.lag_s(resampler, info.rate_hz))
+    captures = 0 if plan is None else len(sos) + 1
+    pre_runner = engine.CascadeRunner(sos, channels, CHUNK_FRAMES, levels)
+    prefilter = stream.PreFilter(pre_runner, resampler, adc)
+    capacity = max(4 * options.block_frames, round(options.read_ahead_s * rate_hz))
+    buffer = ring.BlockRing(len(sos) + 1 + captures, capacity, channels)
+    feeder = stream.Feeder(info, buffer, CHUNK_FRAMES, channels, prefilter)
+    core = stream.StreamCore(
+        n_chains=len(sos), channels=channels, block_frames=options.block_frames,
+        rate_hz=rate_hz, runner=None, ring=buffer, safety=output_safety, pairs=pairs,
+        fade_s=options.fade_s, captures=captures,
+    )  # fmt: skip
+    if resampler is not None:
+        say(
+            f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
+            f"result is resampled to {rate_hz:g} Hz (x {up}/{down}) ahead of the stream"
+        )
+    if plan is not None:
+        say(
+            f"ADC capture ({plan.label}, key c or 'capture on|off'): sampled at "
+            f"{plan.adc_rate_hz:g} Hz with no filter of its own, played back band-limited at "
+            f"{rate_hz:g} Hz"
+        )
+    return core, prefilter, feeder, plan
+
+
 def prepare(
     named_designs: Sequence[tuple[str, Design]],
     options: ListenOptions,
@@ -323,6 +380,10 @@ def prepare(
     pair_ways = cands.output_ways(candidates) if options.ways_out else routing.STEREO_MIX
     out_channels = 2 * max(1, len(pair_ways))
     info = _inspect_input(options) if options.input_path is not None else None
+    if options.adc_rate_hz is not None:
+        if info is None:
+            raise UserInputError(ADC_NEEDS_RECORDING)
+        capture_mod.check_adc_rate(options.adc_rate_hz, info.rate_hz, str(info.path))
     direction: devices.Direction = "output" if info is not None else "duplex"
     device = devices.find_device(options.device, direction, sd)
     rate_hz = options.rate_hz or device.default_rate_hz
@@ -334,7 +395,8 @@ def prepare(
         in_channels = info.channels
     blind = _blind(options, candidates)
 
-    in_callback = info is None or abs(info.rate_hz - rate_hz) <= 1e-6 * rate_hz
+    same_rate = info is None or abs(info.rate_hz - rate_hz) <= 1e-6 * rate_hz
+    in_callback = same_rate and options.adc_rate_hz is None
     processing_rate_hz = rate_hz if in_callback else info.rate_hz  # type: ignore[union-attr]
     twins = cands.build_twins(candidates, processing_rate_hz)
     sos, levels = cands.chains(twins)
@@ -349,6 +411,7 @@ def prepare(
     )
     block = options.block_frames
     feeder = None
+    plan = None
     host: ChainHost
     if in_callback:
         runner = engine.CascadeRunner(sos, in_channels, block, levels, dtype=np.float32)
@@ -365,28 +428,14 @@ def prepare(
         host = core
     else:
         assert info is not None
-        up, down = ratio(info.rate_hz, rate_hz)
-        pre_runner = engine.CascadeRunner(sos, in_channels, CHUNK_FRAMES, levels)
-        prefilter = stream.PreFilter(
-            pre_runner, StreamResampler(up, down, (len(sos) + 1) * in_channels)
-        )
-        capacity = max(4 * block, round(options.read_ahead_s * rate_hz))
-        buffer = ring.BlockRing(len(sos) + 1, capacity, in_channels)
-        feeder = stream.Feeder(info, buffer, CHUNK_FRAMES, in_channels, prefilter)
-        core = stream.StreamCore(
-            n_chains=len(sos), channels=in_channels, block_frames=block, rate_hz=rate_hz,
-            runner=None, ring=buffer, safety=output_safety, pairs=out_channels // 2,
-            fade_s=options.fade_s,
-        )  # fmt: skip
-        host = prefilter
-        say(
-            f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
-            f"result is resampled to {rate_hz:g} Hz (x {up}/{down}) ahead of the stream"
+        core, host, feeder, plan = _read_ahead(
+            options, info, rate_hz, (sos, levels), output_safety, out_channels // 2, say
         )
     core.prime()
     session = ListenSession(
-        candidates, twins, core, host, processing_rate_hz, match, pair_ways, program, blind, say
-    )
+        candidates, twins, core, host, processing_rate_hz, match, pair_ways, program, blind, say,
+        capture_plan=plan,
+    )  # fmt: skip
     return Player(
         sd=sd, device=device, options=options, rate_hz=rate_hz, core=core, session=session,
         feeder=feeder, in_channels=in_channels,

@@ -67,6 +67,10 @@ class StreamResampler:
         The rate changes by ``up / down`` (lowest terms not required).
     channels : int
         Channels of every block.
+    taps : numpy.ndarray, optional
+        Another FIR at the rate ``up`` times the input's (for ``up/down`` in lowest terms),
+        e.g. an interpolator that leaves the aliases in (:mod:`filtertwin.live.capture`);
+        default: :func:`design_filter`.
 
     Examples
     --------
@@ -75,13 +79,15 @@ class StreamResampler:
     (6, 1)
     """
 
-    def __init__(self, up: int, down: int, channels: int) -> None:
+    def __init__(self, up: int, down: int, channels: int, taps: np.ndarray | None = None) -> None:
         if up < 1 or down < 1 or channels < 1:
             raise ValueError(f"up, down and channels must be >= 1, got {up}, {down}, {channels}")
         g = math.gcd(up, down)
+        if taps is not None and g != 1:
+            raise ValueError(f"with taps given, up/down must be in lowest terms, got {up}/{down}")
         self.up, self.down = up // g, down // g
         self.channels = channels
-        self.taps = design_filter(self.up, self.down)
+        self.taps = design_filter(self.up, self.down) if taps is None else np.asarray(taps, float)
         self._per_phase = -(-len(self.taps) // self.up)
         padded = np.zeros(self.up * self._per_phase)
         padded[: len(self.taps)] = self.taps
@@ -89,6 +95,11 @@ class StreamResampler:
         self._history = np.zeros((self._per_phase - 1, channels))
         self._frames_in = 0
         self._frames_out = 0
+
+    @property
+    def lag_frames(self) -> float:
+        """How many input frames the output lags (the centre of a symmetric filter)."""
+        return (len(self.taps) - 1) / 2 / self.up
 
     def process(self, block: np.ndarray) -> np.ndarray:
         """Resample the next block.

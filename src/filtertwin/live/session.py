@@ -18,7 +18,7 @@ import numpy as np
 
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
-from filtertwin.live import edits, keys, matching, routing
+from filtertwin.live import capture, edits, keys, matching, routing
 from filtertwin.live.blind import BlindSession, describe_score
 from filtertwin.live.chains import ChainHost, ChainSwapper
 from filtertwin.live.mixer import SUM, Selection
@@ -54,6 +54,9 @@ class ListenSession:
         Blind trials (two candidates); names stay hidden until the end.
     say : callable
         Where messages go (one line each).
+    capture_plan : CapturePlan, optional
+        The ADC capture (``--adc-rate``): the core then carries a capture of every chain and
+        of the dry input, and ``capture on|off`` chooses between them and the signals.
     """
 
     def __init__(
@@ -68,6 +71,7 @@ class ListenSession:
         program: np.ndarray | None = None,
         blind: BlindSession | None = None,
         say: Callable[[str], None] = print,
+        capture_plan: capture.CapturePlan | None = None,
     ) -> None:
         self.candidates = list(candidates)
         self.twins = list(twins)
@@ -85,6 +89,8 @@ class ListenSession:
         self.pending: tuple[keys.Command, float] | None = None
         self.quit_requested = False
         self.edits_made = 0
+        self.capture_plan = capture_plan
+        self.capture_on = False
         self.layout = cands.layout(self.candidates, match.gains, match.bypass_gain)
 
     # --- starting and the mix ---------------------------------------------------------------
@@ -99,6 +105,8 @@ class ListenSession:
 
     def _apply(self) -> None:
         gains = routing.pair_gains(self.layout, self.selection, self.pair_ways)
+        if self.capture_plan is not None:
+            gains = [capture.source_gains(g, self.capture_on) for g in gains]
         self.core.request(gains)
 
     def _select(self, selection: Selection) -> None:
@@ -199,6 +207,23 @@ class ListenSession:
         self.say(
             f"output level {level_db:+.1f} dB (ceiling {self.safety.ceiling_dbfs:g} dBFS stays)"
         )
+
+    def _do_capture(self, command: keys.Command, now_s: float) -> None:
+        plan = self.capture_plan
+        if plan is None:
+            raise UserInputError(
+                "there is no ADC capture to hear; start listen with --adc-rate HZ and a "
+                "recording sampled faster than the ADC (--input)"
+            )
+        self.capture_on = command.args[0] == "on" if command.args else not self.capture_on
+        self._apply()
+        if self.capture_on:
+            self.say(
+                f"now: {self.now_hearing()} as an ideal {plan.adc_rate_hz:g} Hz ADC captures "
+                f"it (aliases included), played back band-limited at {plan.stream_rate_hz:g} Hz"
+            )
+        else:
+            self.say(f"now: {self.now_hearing()} itself (ADC capture off)")
 
     def _do_help(self, command: keys.Command, now_s: float) -> None:
         self.say(keys.help_text())

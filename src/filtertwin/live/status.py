@@ -30,6 +30,8 @@ class StatusFacts:
     ----------
     hearing : str
         What is heard ("A", "bypass", "trial 2/8 X").
+    capture : str
+        "ADC 8 kHz" while the ADC capture is heard, "ADC off" when it could be, else "".
     way_peaks : tuple of (str, float)
         Peak (full-scale units, falling) of each way of the heard candidate.
     output_peak : float
@@ -55,6 +57,7 @@ class StatusFacts:
     """
 
     hearing: str
+    capture: str
     way_peaks: tuple[tuple[str, float], ...]
     output_peak: float
     limiting: bool
@@ -96,6 +99,7 @@ def status_line(facts: StatusFacts) -> str:
         cpu += f" load {100 * facts.cpu_load:.0f} %"
     fields = [
         facts.hearing,
+        *([facts.capture] if facts.capture else []),
         ways or "-",
         f"out {dbfs(facts.output_peak)} dBFS" + (" LIMIT" if facts.limiting else ""),
         "clip " + (",".join(facts.clipping) if facts.clipping else "-"),
@@ -173,15 +177,19 @@ class StatusReader:
         now_s = self.clock()
         core, session = self.core, self.session
         index = session.selection.candidate
+        plan, captured = session.capture_plan, session.capture_on
+        # while the capture is heard, the meters of the captured sources (after the chains)
+        offset = core.n_chains if captured else 0
         peaks: list[tuple[str, float]] = []
         if index is not None:
-            first = sum(len(c.ways) for c in session.candidates[:index])
+            first = offset + sum(len(c.ways) for c in session.candidates[:index])
             peaks = [
                 (way, float(core.meters[first + k]))
                 for k, way in enumerate(session.candidates[index].ways)
             ]
         else:
-            peaks = [("dry", float(core.meters[core.n_chains]))]
+            dry = 2 * core.n_chains if captured else core.dry_meter
+            peaks = [("dry", float(core.meters[dry]))]
         limited = core.safety.limited_frames
         limiting = limited > self._limited
         self._limited = limited
@@ -189,8 +197,9 @@ class StatusReader:
         target = 10 ** (core.safety.level_db / 20)
         return StatusFacts(
             hearing=session.now_hearing(),
+            capture="" if plan is None else plan.label if captured else "ADC off",
             way_peaks=tuple(peaks),
-            output_peak=float(core.meters[core.n_chains + 1]),
+            output_peak=float(core.meters[core.dry_meter + 1]),
             limiting=limiting,
             clipping=self._clipping(now_s),
             xruns=int(core.counters[XRUNS]),

@@ -18,7 +18,8 @@ swaps chains with the runner's ``set_chain``, or replaces :attr:`StreamCore.runn
 :func:`filtertwin.recordings.read_blocks` into a bounded :class:`~filtertwin.live.ring.BlockRing`.
 For a recording at another rate than the stream, a :class:`PreFilter` runs the twin at
 the recording's own rate in that thread and resamples every chain's output and the dry
-input to the stream rate.
+input to the stream rate; with an :class:`~filtertwin.live.capture.AdcCapture` it also
+adds what an ideal ADC would capture of each of them (more sources in the ring).
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ from __future__ import annotations
 import threading
 import time
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numba
 import numpy as np
@@ -38,6 +39,9 @@ from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.recordings import read_blocks
+
+if TYPE_CHECKING:
+    from filtertwin.live.capture import AdcCapture
 
 BLOCKS, XRUNS, STARVED_FRAMES, ODD_BLOCKS = 0, 1, 2, 3
 """Indices into :attr:`StreamCore.counters`."""
@@ -100,6 +104,9 @@ class StreamCore:
         Output channel pairs (1: stereo mix; more: one per way).
     fade_s : float
         Crossfade time of a switch.
+    captures : int
+        ADC capture sources the ring carries after the chains (``n_chains + 1`` or 0; see
+        :func:`filtertwin.live.capture.source_gains`); the mixer sees them as more chains.
     """
 
     def __init__(
@@ -114,12 +121,19 @@ class StreamCore:
         safety: OutputSafety,
         pairs: int = 1,
         fade_s: float = 0.03,
+        captures: int = 0,
     ) -> None:
         if channels not in (1, 2):
             raise ValueError(f"channels must be 1 or 2, got {channels}")
         if runner is None and ring is None:
             raise ValueError("without a runner the ring must carry the chains' outputs")
+        if captures and runner is not None:
+            raise ValueError("capture sources come from the ring: give no runner with them")
         self.n_chains = n_chains
+        self.captures = captures
+        mixed = n_chains + captures
+        self.dry_meter = mixed
+        """Index of the dry input's peak in :attr:`meters` (the output's is the next)."""
         self.channels = channels
         self.block_frames = block_frames
         self.rate_hz = rate_hz
@@ -127,15 +141,15 @@ class StreamCore:
         self.ring = ring
         self.safety = safety
         self.out_channels = 2 * pairs
-        n_sources = 1 if runner is not None else n_chains + 1
+        n_sources = 1 if runner is not None else mixed + 1
         self.sources = np.zeros((n_sources, block_frames, channels), dtype=np.float32)
         self.dry = self.sources[n_sources - 1]
-        self._ring_chains = self.sources[:n_chains]
-        self.mixers = [SelectionMixer(n_chains, rate_hz, fade_s) for _ in range(pairs)]
+        self._ring_chains = self.sources[:mixed]
+        self.mixers = [SelectionMixer(mixed, rate_hz, fade_s) for _ in range(pairs)]
         self.mix = np.zeros((pairs, block_frames, channels), dtype=np.float32)
         self._pair_slices = [slice(2 * p, 2 * p + 2) for p in range(pairs)]
         self._mix_in_place = pairs == 1 and channels == 2
-        self.meters = np.zeros(n_chains + 2)
+        self.meters = np.zeros(mixed + 2)
         self._fall = 10.0 ** (-METER_FALL_DB_PER_S * block_frames / rate_hz / 20.0)
         self.counters = np.zeros(4, dtype=np.int64)
         self.cpu_s = np.zeros(CPU_HISTORY)
@@ -236,13 +250,22 @@ class PreFilter:
     ----------
     runner : CascadeRunner
         float64 runner at the recording's rate (replaceable: :attr:`runner`).
-    resampler : StreamResampler
-        For ``(n_chains + 1) * channels`` channels: every chain's output and the dry input.
+    resampler : StreamResampler or None
+        For ``(n_chains + 1) * channels`` channels: every chain's output and the dry input;
+        None when the recording is at the stream's rate.
+    capture : AdcCapture, optional
+        For as many channels: adds what the ADC captures of each (``--adc-rate``).
     """
 
-    def __init__(self, runner: CascadeRunner, resampler: StreamResampler) -> None:
+    def __init__(
+        self,
+        runner: CascadeRunner,
+        resampler: StreamResampler | None,
+        capture: AdcCapture | None = None,
+    ) -> None:
         self.runner = runner
         self.resampler = resampler
+        self.capture = capture
         self.blocks = 0
 
     def blocks_done(self) -> int:
@@ -250,13 +273,18 @@ class PreFilter:
         return self.blocks
 
     def __call__(self, block: np.ndarray) -> np.ndarray:
-        """``(frames, channels)`` float64 at the recording rate -> ``(n_chains + 1, m,
-        channels)`` float32 at the stream rate (chains first, dry input last)."""
+        """``(frames, channels)`` float64 at the recording rate -> ``(sources, m, channels)``
+        float32 at the stream rate: the chains, then (with a capture) the capture of each
+        chain and of the dry input, and the dry input last."""
         frames, channels = block.shape
         chains = self.runner.process(block)
         joined = np.concatenate([chains, block[np.newaxis]])
         flat = joined.transpose(1, 0, 2).reshape(frames, -1)
-        out = self.resampler.process(flat)
+        out = flat if self.resampler is None else self.resampler.process(flat)
+        if self.capture is not None:
+            out, captured = self.capture.process(out, flat)
+            split = len(chains) * channels
+            out = np.concatenate([out[:, :split], captured, out[:, split:]], axis=1)
         self.blocks += 1
         return np.ascontiguousarray(
             out.reshape(len(out), -1, channels).transpose(1, 0, 2), dtype=np.float32
