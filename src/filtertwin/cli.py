@@ -24,39 +24,20 @@ SAFETY_NOTE = (
 )
 
 
-def _load(design_arg: str):
-    from filtertwin.design import load
-
-    return load(design_arg)
-
-
-def _write_text_atomic(path: Path, text: str, protect: Sequence[Path] = ()) -> None:
-    from filtertwin.outputs import atomic_path
-
-    resolved = path.resolve()
-    for p in protect:
-        if Path(p).resolve() == resolved:
-            raise UserInputError(
-                f"{path}: refusing to overwrite an input file; choose another name"
-            )
-    with atomic_path(path) as tmp:
-        Path(tmp).write_text(text, encoding="utf-8")
-
-
 def cmd_design(args: argparse.Namespace) -> int:
+    from filtertwin.design import load
+    from filtertwin.outputs import atomic_path
     from filtertwin.report.design_text import BOM_COLUMNS, bom_rows, design_dict, design_table
     from filtertwin.twin import build_twin
 
-    design = _load(args.design)
+    design = load(args.design)
     twin = build_twin(design, args.rate, oversampling=args.oversample) if args.rate else None
     if args.bom:
-        import io
-
-        buf = io.StringIO()
-        writer = csv.DictWriter(buf, fieldnames=BOM_COLUMNS, lineterminator="\n")
-        writer.writeheader()
-        writer.writerows(bom_rows(design))
-        _write_text_atomic(Path(args.bom), buf.getvalue(), protect=[Path(design.spec.source)])
+        with atomic_path(args.bom, protect=[design.spec.source]) as tmp:
+            with open(tmp, "w", encoding="utf-8", newline="") as fh:
+                writer = csv.DictWriter(fh, fieldnames=BOM_COLUMNS, lineterminator="\n")
+                writer.writeheader()
+                writer.writerows(bom_rows(design))
     if args.json:
         print(json.dumps(design_dict(design, twin), indent=2))
     else:

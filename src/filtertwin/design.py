@@ -22,6 +22,8 @@ from filtertwin.sallenkey import Amplifier, StageCircuit, StageModel
 from filtertwin.spec import AmplifierSpec, DesignSpec, FilterSpec, PartsSpec
 from filtertwin.synthesis import PartRules, SynthesisError, synthesize
 
+Section = tuple[np.ndarray, np.ndarray]  # (b, a) polynomials in s, highest power first
+
 # common practice (no single source): gain-bandwidth should be 50x to 100x above K * f0 * Q
 GBW_FACTOR = 50.0
 # common practice: an internal peak more than 3 dB above the passband gain costs headroom
@@ -79,19 +81,25 @@ class Filter:
         """Product of the stage gains with an ideal amplifier (sign = polarity)."""
         return self.polarity * math.prod(s.ideal.gain for s in self.stages)
 
-    def analog_sections(self, amplifier: bool = True) -> list[tuple[np.ndarray, np.ndarray]]:
-        """s-domain sections (order <= 2) whose product is the whole filter.
+    def stage_sections(self, amplifier: bool = True) -> list[tuple[int, Section]]:
+        """(stage number, s-domain section) pairs whose product is the whole filter.
 
-        With ``amplifier=True`` each stage with an amplifier pole contributes its second-order
-        part and a first-order section for that pole. The polarity is folded into the first.
+        Sections have order <= 2. With ``amplifier=True`` each stage with an amplifier pole
+        contributes its network part and a first-order section for that pole. The polarity
+        is folded into the first section.
         """
-        sections: list[tuple[np.ndarray, np.ndarray]] = []
-        for stage in self.stages:
-            model = stage.built if amplifier else stage.ideal
-            sections += sallenkey.split_sections(model)
-        b0, a0 = sections[0]
-        sections[0] = (self.polarity * b0, a0)
-        return sections
+        tagged = [
+            (stage.index, section)
+            for stage in self.stages
+            for section in sallenkey.split_sections(stage.built if amplifier else stage.ideal)
+        ]
+        first, (b0, a0) = tagged[0]
+        tagged[0] = (first, (self.polarity * b0, a0))
+        return tagged
+
+    def analog_sections(self, amplifier: bool = True) -> list[Section]:
+        """The sections of :meth:`stage_sections` without their stage numbers."""
+        return [section for _, section in self.stage_sections(amplifier)]
 
     def frequency_response(self, f_hz: np.ndarray, amplifier: bool = True) -> np.ndarray:
         """Complex frequency response at ``f_hz`` (Hz)."""

@@ -247,6 +247,9 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, limit, per_ste
     return _vall_zero(nonfinite)
 
 
+# _cascade and _cascade_limited differ only in the literal `limit` they pass: a compile-time
+# constant lets LLVM drop the clamping from the inner loop of unlimited chains, which a
+# runtime flag would not guarantee.
 @njit
 def _cascade(sec, mem, frames, n_sections, n_groups, stage):
     whole = frames - frames % _FRAMES_PER_STEP

@@ -156,8 +156,8 @@ class StageModel:
         Natural frequency and Q of the dominant pole pair (second-order stage) or the corner
         of the first-order stage (q is nan).
     gain : float
-        Passband gain magnitude (DC for low-pass, high frequency for high-pass, ideal amplifier
-        limit when an amplifier model adds roll-off).
+        Passband gain magnitude with an ideal amplifier (DC for a low-pass, high frequency for
+        a high-pass): the amplifier's K, since the RC network passes 1 there.
     extra_pole_hz : float or None
         The pole added by the amplifier's finite gain-bandwidth, when modelled.
     """
@@ -272,11 +272,7 @@ def analyze(c: StageCircuit, amp: Amplifier | None = None) -> StageModel:
     (1073.0, 0.7416)
     """
     b, a = transfer_function(c, amp)
-    ideal_b, ideal_a = transfer_function(c, None)
-    if c.response == "lowpass":
-        gain = abs(ideal_b[-1] / ideal_a[-1])
-    else:
-        gain = abs(ideal_b[0] / ideal_a[0])
+    gain = c.gain  # the ideal passband gain: DC of a low-pass, infinity of a high-pass
     if c.order == 1:
         roots = np.roots(a)
         idx = np.argsort(np.abs(roots))
@@ -287,20 +283,29 @@ def analyze(c: StageCircuit, amp: Amplifier | None = None) -> StageModel:
     return StageModel(b, a, f0, q, gain, extra)
 
 
-def ideal_f0_q(c: StageCircuit) -> tuple[float, float]:
-    """Textbook closed forms for f0 (Hz) and Q of a second-order stage with gain K.
+def f0_q(response: str, r1: Any, r2: Any, c1: Any, c2: Any, k: Any) -> tuple[Any, Any]:
+    """Textbook closed forms for f0 (Hz) and Q of a gain-K second-order stage.
 
     Low-pass: w0 = 1/sqrt(R1 R2 C1 C2), Q = sqrt(R1 R2 C1 C2) / (C2 (R1 + R2) + R1 C1 (1 - K)).
     High-pass: w0 the same, 1/Q = sqrt(R1 R2 C1 C2) ((C1 + C2) / (R2 C1 C2) + (1 - K)/(R1 C1)).
+    Scalars or numpy arrays (broadcast). Q is -1 where the damping is zero or negative: an
+    oscillator, not a filter stage.
     """
-    assert c.r2 is not None and c.c2 is not None
-    t = math.sqrt(c.r1 * c.r2 * c.c1 * c.c2)
-    k = c.gain
-    if c.response == "lowpass":
-        q = t / (c.c2 * (c.r1 + c.r2) + c.r1 * c.c1 * (1 - k))
+    t = np.sqrt(r1 * r2 * c1 * c2)
+    if response == "lowpass":
+        damping = (c2 * (r1 + r2) + r1 * c1 * (1 - k)) / t
     else:
-        q = 1.0 / (t * ((c.c1 + c.c2) / (c.r2 * c.c1 * c.c2) + (1 - k) / (c.r1 * c.c1)))
-    return 1.0 / (2 * math.pi * t), q
+        damping = t * ((c1 + c2) / (r2 * c1 * c2) + (1 - k) / (r1 * c1))
+    with np.errstate(divide="ignore"):
+        q = np.where(damping > 0, 1.0 / np.where(damping > 0, damping, 1.0), -1.0)
+    return 1.0 / (2 * np.pi * t), q
+
+
+def ideal_f0_q(c: StageCircuit) -> tuple[float, float]:
+    """:func:`f0_q` of a second-order stage's parts (ideal amplifier)."""
+    assert c.r2 is not None and c.c2 is not None
+    f0, q = f0_q(c.response, c.r1, c.r2, c.c1, c.c2, c.gain)
+    return float(f0), float(q)
 
 
 def split_sections(model: StageModel) -> list[tuple[np.ndarray, np.ndarray]]:

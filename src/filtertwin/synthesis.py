@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from filtertwin import eseries
-from filtertwin.sallenkey import StageCircuit
+from filtertwin.sallenkey import StageCircuit, f0_q
 
 
 class SynthesisError(ValueError):
@@ -48,6 +48,12 @@ class PartRules:
         lo, hi = self.resistor_range_ohm
         return eseries.values_in_range(series or self.resistor_series, lo, hi)
 
+    @property
+    def centre_ohm(self) -> float:
+        """Geometric middle of the resistor range: the impedance synthesis leans towards."""
+        lo, hi = self.resistor_range_ohm
+        return math.sqrt(lo * hi)
+
     def capacitors(self) -> np.ndarray:
         lo, hi = self.capacitor_range_f
         return eseries.values_in_range(self.capacitor_series, lo, hi)
@@ -70,8 +76,7 @@ def choose_gain_resistors(k: float, rules: PartRules) -> tuple[float, float] | N
     r = rules.resistors(rules.gain_series)
     rf, rg = np.meshgrid(r, r, indexing="ij")
     err = np.abs(np.log((1.0 + rf / rg) / k))
-    centre = math.sqrt(rules.resistor_range_ohm[0] * rules.resistor_range_ohm[1])
-    score = err + 1e-6 * np.abs(np.log(rg / centre))
+    score = err + 1e-6 * np.abs(np.log(rg / rules.centre_ohm))
     i = np.unravel_index(np.argmin(score), score.shape)
     return float(rf[i]), float(rg[i])
 
@@ -82,19 +87,6 @@ def _bracket(values: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     hi = values[np.clip(idx, 0, len(values) - 1)]
     lo = values[np.clip(idx - 1, 0, len(values) - 1)]
     return lo, hi
-
-
-def _f0_q(response: str, r1, r2, c1, c2, k):
-    """Vectorised textbook f0 (Hz) and Q of a gain-K Sallen-Key stage (see sallenkey.ideal_f0_q)."""
-    t = np.sqrt(r1 * r2 * c1 * c2)
-    if response == "lowpass":
-        damping = (c2 * (r1 + r2) + r1 * c1 * (1 - k)) / t
-    else:
-        damping = t * ((c1 + c2) / (r2 * c1 * c2) + (1 - k) / (r1 * c1))
-    # zero or negative damping: an oscillator, not a filter stage (scored out by the caller)
-    with np.errstate(divide="ignore"):
-        q = np.where(damping > 0, 1.0 / np.where(damping > 0, damping, 1.0), -1.0)
-    return 1.0 / (2 * np.pi * t), q
 
 
 def _solve_r1(response: str, c1, c2, t: float, q: float, k: float) -> np.ndarray:
@@ -173,24 +165,25 @@ def synthesize(
 
 
 def _score(f0, qv, f0_t, q_t, r1, r2, rules, c_ratio=1.0):
-    centre = math.sqrt(rules.resistor_range_ohm[0] * rules.resistor_range_ohm[1])
     err = np.abs(np.log(f0 / f0_t)) + np.abs(np.log(qv / q_t))
     spread = np.abs(np.log(r1 / r2)) + np.abs(np.log(c_ratio))
-    impedance = np.abs(np.log(np.sqrt(r1 * r2) / centre))
+    impedance = np.abs(np.log(np.sqrt(r1 * r2) / rules.centre_ohm))
     return err + _W_SPREAD * spread + _W_CENTRE * impedance, err
 
 
-def _first_order(response, topology, f0_hz, rules, rf, rg) -> StageCircuit:
+def _rc_pairs(f0_hz: float, rules: PartRules) -> tuple[np.ndarray, np.ndarray]:
+    """Every allowed capacitor, twice, with the series resistors just below and above
+    1 / (2 pi f0 C): the candidates of a stage whose f0 is set by one R and one C."""
     caps = rules.capacitors()
-    res = rules.resistors()
-    ideal_r = 1.0 / (2 * math.pi * f0_hz * caps)
-    lo, hi = _bracket(res, ideal_r)
-    r = np.concatenate([lo, hi])
-    c = np.concatenate([caps, caps])
+    lo, hi = _bracket(rules.resistors(), 1.0 / (2 * math.pi * f0_hz * caps))
+    return np.concatenate([lo, hi]), np.concatenate([caps, caps])
+
+
+def _first_order(response, topology, f0_hz, rules, rf, rg) -> StageCircuit:
+    r, c = _rc_pairs(f0_hz, rules)
     f0 = 1.0 / (2 * math.pi * r * c)
-    centre = math.sqrt(rules.resistor_range_ohm[0] * rules.resistor_range_ohm[1])
     err = np.abs(np.log(f0 / f0_hz))
-    score = err + _W_CENTRE * np.abs(np.log(r / centre))
+    score = err + _W_CENTRE * np.abs(np.log(r / rules.centre_ohm))
     i = int(np.argmin(score))
     if err[i] > _MAX_LOG_ERROR:
         raise SynthesisError(
@@ -201,13 +194,8 @@ def _first_order(response, topology, f0_hz, rules, rf, rg) -> StageCircuit:
 
 
 def _equal_component(response, f0_hz, q, k_built, rules, rf, rg) -> StageCircuit:
-    caps = rules.capacitors()
-    res = rules.resistors()
-    ideal_r = 1.0 / (2 * math.pi * f0_hz * caps)
-    lo, hi = _bracket(res, ideal_r)
-    r = np.concatenate([lo, hi])
-    c = np.concatenate([caps, caps])
-    f0, qv = _f0_q(response, r, r, c, c, k_built)
+    r, c = _rc_pairs(f0_hz, rules)
+    f0, qv = f0_q(response, r, r, c, c, k_built)
     score, err = _score(f0, qv, f0_hz, q, r, r, rules)
     i = int(np.argmin(score))
     if err[i] > _MAX_LOG_ERROR:
@@ -241,7 +229,7 @@ def _general(response, topology, f0_hz, q, k_built, rules, rf, rg) -> StageCircu
     r1 = np.concatenate([r1_lo, r1_lo, r1_hi, r1_hi])
     r2 = np.concatenate([r2_lo, r2_hi, r2_lo, r2_hi])
     cc1, cc2 = np.tile(c1s, 4), np.tile(c2s, 4)
-    f0, qv = _f0_q(response, r1, r2, cc1, cc2, k_built)
+    f0, qv = f0_q(response, r1, r2, cc1, cc2, k_built)
     with np.errstate(invalid="ignore"):
         score, err = _score(f0, qv, f0_hz, q, r1, r2, rules, cc1 / cc2)
     score = np.where(np.isfinite(score) & (qv > 0), score, np.inf)
