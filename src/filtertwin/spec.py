@@ -259,7 +259,11 @@ def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:
 
     gbw = figure("gbw", "Hz", '"10 MHz"', base.gbw_hz if base else None)
     swing = figure("swing", "V", '"13 V"', base.swing_v if base else None)
-    slew = _slew(table["slew"], ctx.at("slew")) if "slew" in table else base.slew_v_per_s  # type: ignore[union-attr]
+    if "slew" in table:
+        slew = _slew(table["slew"], ctx.at("slew"))
+    else:
+        assert base is not None  # without a preset, gbw, swing and slew are all given (above)
+        slew = base.slew_v_per_s
     en = figure("noise_voltage", "V", '"4 nV/rtHz"', base.noise_v_per_rthz if base else 10e-9)
     inoise = figure("noise_current", "A", '"1 pA/rtHz"', base.noise_a_per_rthz if base else 1e-12)
     if "open_loop_gain_db" in table:
