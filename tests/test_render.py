@@ -17,6 +17,7 @@ from filtertwin import cli, examples, outputs, recordings, render
 from filtertwin.commands import render as render_command
 from filtertwin.design import build_design
 from filtertwin.errors import UserInputError
+from filtertwin.live.resample import design_filter
 from filtertwin.spec import load_design
 from filtertwin.twin import build_twin
 
@@ -104,7 +105,7 @@ def test_oversampled_render_equals_the_upfirdn_sosfilt_pipeline():
     # reference: scipy.signal.upfirdn with scipy.signal.resample_poly's Kaiser FIR, sosfilt at
     # the high rate, decimation, then the known group delay of the two linear-phase FIRs removed
     h = scipy.signal.firwin(2 * 10 * factor + 1, 1.0 / factor, window=("kaiser", 5.0))
-    delay = render.RESAMPLING_DELAY_FRAMES
+    delay = render.TwinStream(twin, 2, 256).delay_frames
     padded = np.concatenate([x, np.zeros((delay, 2))])
     up = scipy.signal.upfirdn(h * factor, padded, factor, 1, axis=0)[: len(padded) * factor]
     for i, ft in enumerate(twin.filters):
@@ -116,16 +117,17 @@ def test_oversampled_render_equals_the_upfirdn_sosfilt_pipeline():
 @pytest.mark.parametrize("factor", [2, 3, 8])
 def test_streaming_resamplers_match_resample_poly(factor):
     x = _noise(700, channels=2, level=1.0)
-    up = render.Upsampler(factor, 2)
-    padded = np.concatenate([x, np.zeros((render.ZERO_CROSSINGS_PER_SIDE, 2))])
+    up = render.IntegerResampler(factor, 1, 2)
+    zero_crossings = round(up.lag_frames)
+    padded = np.concatenate([x, np.zeros((zero_crossings, 2))])
     got_up = np.concatenate([up.process(b) for b in np.array_split(padded, 9)])
-    delay_hi = render.ZERO_CROSSINGS_PER_SIDE * factor
+    delay_hi = zero_crossings * factor
     expected_up = scipy.signal.resample_poly(x, factor, 1, axis=0)  # scipy.signal.resample_poly
     np.testing.assert_allclose(
         got_up[delay_hi : delay_hi + len(expected_up)], expected_up, rtol=0, atol=1e-12
     )
     high = _noise(700 * factor, channels=2, level=1.0, seed=4)
-    down = render.Downsampler(factor, 2)
+    down = render.IntegerResampler(1, factor, 2)
     padded_hi = np.concatenate([high, np.zeros((delay_hi, 2))])
     sizes = [factor * k for k in (1, 5, 33)]
     pieces, start, k = [], 0, 0
@@ -135,7 +137,7 @@ def test_streaming_resamplers_match_resample_poly(factor):
         k += 1
     got_down = np.concatenate(pieces)
     expected_down = scipy.signal.resample_poly(high, 1, factor, axis=0)  # resample_poly
-    skip = render.ZERO_CROSSINGS_PER_SIDE
+    skip = zero_crossings
     np.testing.assert_allclose(
         got_down[skip : skip + len(expected_down)], expected_down, rtol=0, atol=1e-12
     )
@@ -145,7 +147,7 @@ def test_resampling_filter_is_the_one_resample_poly_applies():
     factor = 4
     impulse = np.zeros(64)
     impulse[32] = 1.0
-    h = render.resampling_filter(factor)
+    h = design_filter(1, factor)  # the FIR render's IntegerResampler applies
     # resample_poly of a unit impulse, up by `factor`, is its FIR (times `factor`) centred
     response = scipy.signal.resample_poly(impulse, factor, 1)
     centre = 32 * factor

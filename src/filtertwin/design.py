@@ -97,6 +97,11 @@ class Filter:
         tagged[0] = (first, (self.polarity * b0, a0))
         return tagged
 
+    @property
+    def passband_db(self) -> float:
+        """:attr:`passband_gain` in dB (its magnitude)."""
+        return 20 * math.log10(abs(self.passband_gain))
+
     def analog_sections(self, amplifier: bool = True) -> list[Section]:
         """The sections of :meth:`stage_sections` without their stage numbers."""
         return [section for _, section in self.stage_sections(amplifier)]
@@ -282,7 +287,7 @@ def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
 def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[DesignWarning]:
     out = []
     lo, hi = parts.resistor_range_ohm
-    passband_db = 20 * math.log10(abs(f.passband_gain))
+    passband_db = f.passband_db
     for s in f.stages:
         for name, value in s.circuit.parts().items():
             if name.startswith("R") and not lo <= value <= hi:

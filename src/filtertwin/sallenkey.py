@@ -170,34 +170,66 @@ class StageModel:
     extra_pole_hz: float | None
 
 
-def _admittances(c: StageCircuit) -> tuple[np.ndarray, ...]:
-    """Y1..Y4 as s-polynomials (highest power first) for a second-order stage."""
-    assert c.r2 is not None and c.c2 is not None
-    if c.response == "lowpass":
-        return (
-            np.array([1.0 / c.r1]),
-            np.array([1.0 / c.r2]),
-            np.array([c.c2, 0.0]),
-            np.array([c.c1, 0.0]),
-        )
-    return (
-        np.array([c.c1, 0.0]),
-        np.array([c.c2, 0.0]),
-        np.array([1.0 / c.r2]),
-        np.array([1.0 / c.r1]),
-    )
+Poly = list[Any]  # coefficients, highest power of s first; each a float or an array over builds
 
 
-def amplifier_polynomials(k: float, amp: Amplifier | None) -> tuple[np.ndarray, np.ndarray]:
+def _pmul(p: Poly, q: Poly) -> Poly:
+    """Product of two polynomials (coefficients may be arrays: element-wise over builds)."""
+    out = [np.zeros_like(p[0]) for _ in range(len(p) + len(q) - 1)]
+    for i, pi in enumerate(p):
+        for j, qj in enumerate(q):
+            out[i + j] = out[i + j] + pi * qj
+    return out
+
+
+def _padd(p: Poly, q: Poly, sign: float = 1.0) -> Poly:
+    """p + sign q, aligned at the constant term."""
+    n = max(len(p), len(q))
+    zero = np.zeros_like(p[0])
+    p = [zero] * (n - len(p)) + p
+    q = [zero] * (n - len(q)) + q
+    return [a + sign * b for a, b in zip(p, q, strict=True)]
+
+
+def amplifier_polynomials(k: Any, amp: Amplifier | None) -> tuple[Poly, Poly]:
     """Closed-loop non-inverting gain G(s) = Gn / Gd of an amplifier set to gain ``k``.
 
     Ideal: G = k. Single-pole model: A(s) = wt / (s + wt / A0), feedback fraction 1/k, so
     G(s) = wt / (s + wt / A0 + wt / k).
     """
+    one = np.ones_like(k, dtype=float)
     if amp is None:
-        return np.array([k]), np.array([1.0])
+        return [k * one], [one]
     wt = 2.0 * math.pi * amp.gbw_hz
-    return np.array([wt]), np.array([1.0, wt / amp.open_loop_gain + wt / k])
+    return [wt * one], [one, wt / amp.open_loop_gain + wt / k]
+
+
+def node_polynomials(
+    response: str, order: int, r1: Any, c1: Any, r2: Any = None, c2: Any = None,
+    k: Any = 1.0, amp: Amplifier | None = None,
+) -> tuple[Poly, Poly]:  # fmt: skip
+    """Numerator and denominator of a stage from the node equations (module docstring).
+
+    Every part value may be a float or an array over builds (the coefficients then are
+    arrays too). Returns coefficient lists, highest power first, ``b`` padded with leading
+    zeros to the length of ``a``; not normalised.
+    """
+    gn, gd = amplifier_polynomials(k, amp)
+    zero = np.zeros_like(r1 * c1)
+    if order == 1:
+        rc = r1 * c1
+        b = _pmul([zero + 1.0] if response == "lowpass" else [rc, zero], gn)
+        a = _pmul([rc, zero + 1.0], gd)
+    else:
+        if response == "lowpass":
+            y1, y2, y3, y4 = [1.0 / r1], [1.0 / r2], [c2, zero], [c1, zero]
+        else:
+            y1, y2, y3, y4 = [c1, zero], [c2, zero], [1.0 / r2], [1.0 / r1]
+        y23 = _padd(y2, y3)
+        load = _padd(_padd(_pmul(y1, y23), _pmul(y2, y3)), _pmul(y4, y23))
+        a = _padd(_pmul(load, gd), _pmul(_pmul(y4, y2), gn), -1.0)
+        b = _pmul(_pmul(y1, y2), gn)
+    return [zero] * (len(a) - len(b)) + b, a
 
 
 def transfer_function(c: StageCircuit, amp: Amplifier | None = None) -> tuple[np.ndarray, ...]:
@@ -215,20 +247,11 @@ def transfer_function(c: StageCircuit, amp: Amplifier | None = None) -> tuple[np
     b, a : ndarray
         Polynomials in s (rad/s), highest power first, normalised so that ``a[0] == 1``.
     """
-    gn, gd = amplifier_polynomials(c.gain, amp)
-    if c.order == 1:
-        rc = c.r1 * c.c1
-        net_b = np.array([1.0]) if c.response == "lowpass" else np.array([rc, 0.0])
-        b = np.polymul(net_b, gn)
-        a = np.polymul(np.array([rc, 1.0]), gd)
-    else:
-        y1, y2, y3, y4 = _admittances(c)
-        y23 = np.polyadd(y2, y3)
-        load = np.polyadd(np.polyadd(np.polymul(y1, y23), np.polymul(y2, y3)), np.polymul(y4, y23))
-        a = np.polysub(np.polymul(load, gd), np.polymul(np.polymul(y4, y2), gn))
-        b = np.polymul(np.polymul(y1, y2), gn)
-    a = np.trim_zeros(np.asarray(a, float), "f")
-    b = np.trim_zeros(np.asarray(b, float), "f")
+    b_list, a_list = node_polynomials(
+        c.response, c.order, c.r1, c.c1, c.r2, c.c2, c.gain, amp
+    )  # fmt: skip
+    a = np.trim_zeros(np.array(a_list, float), "f")
+    b = np.trim_zeros(np.array(b_list, float), "f")
     return b / a[0], a / a[0]
 
 

@@ -25,6 +25,9 @@ from filtertwin.errors import UserInputError
 # error relative to the peak is reported instead.
 FIDELITY_WINDOW_DB = 60.0
 OVERSAMPLING_FACTORS = (1, 2, 4, 8)
+# the twin counts as faithful within these (magnitude dB, phase degrees) over the band
+FIDELITY_TOL_DB = 0.1
+FIDELITY_TOL_DEG = 1.0
 
 
 @dataclass(frozen=True)
@@ -205,8 +208,8 @@ def build_twin(
     oversampling: int | str = 1,
     band_hz: tuple[float, float] | None = None,
     amplifier: bool = True,
-    tol_db: float = 0.1,
-    tol_deg: float = 1.0,
+    tol_db: float = FIDELITY_TOL_DB,
+    tol_deg: float = FIDELITY_TOL_DEG,
     filters: list[str] | None = None,
 ) -> Twin:
     """The digital twin of a design at ``rate_hz``.

@@ -28,6 +28,7 @@ import scipy.ndimage
 import scipy.signal
 
 from filtertwin import twin as twin_mod
+from filtertwin.checks.tolerance import passband_edges_hz
 from filtertwin.design import Design, Filter
 from filtertwin.errors import UserInputError
 
@@ -39,6 +40,7 @@ __all__ = [
     "capture",
     "check_alias",
     "ideal_dynamic_range_db",
+    "interpolator_taps",
     "psd",
     "select_filter",
 ]
@@ -159,6 +161,10 @@ class AliasCheck:
     filter_db: np.ndarray
     captured: Spectra
 
+    @property
+    def verdict(self) -> str:
+        return "PASS" if self.passed else "FAIL"
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (SI units, dB); the spectra are left out."""
         return {
@@ -174,7 +180,7 @@ class AliasCheck:
             "attenuation_db": self.attenuation_db,
             "margin_db": self.margin_db,
             "pass": self.passed,
-            "verdict": "PASS" if self.passed else "FAIL",
+            "verdict": self.verdict,
             "aliased_db": {
                 "without_filter": self.aliased_without_db,
                 "with_filter": self.aliased_with_db,
@@ -263,8 +269,9 @@ def psd(
     return f, p
 
 
-def _interpolator(up: int) -> np.ndarray:
-    """Band-limited interpolation FIR for upsampling by ``up`` (cutoff: input Nyquist)."""
+def interpolator_taps(up: int) -> np.ndarray:
+    """Band-limited interpolation FIR for upsampling by ``up`` (cut-off: the input's Nyquist
+    frequency): Kaiser-windowed sinc, 32 zero crossings each side, gain ``up``."""
     taps = 2 * INTERP_ZERO_CROSSINGS * up + 1
     h = scipy.signal.firwin(taps, 1.0 / up, window=("kaiser", INTERP_KAISER_BETA))
     return h * up
@@ -298,7 +305,7 @@ def capture(samples: np.ndarray, rate_hz: float, adc_rate_hz: float) -> tuple[np
         return np.array(samples[::step], dtype=float), rate_hz / step
     frac = (Fraction(adc_rate_hz) / Fraction(rate_hz)).limit_denominator(MAX_RATIO_DENOMINATOR)
     up, down = frac.numerator, frac.denominator
-    h = _interpolator(up)
+    h = interpolator_taps(up)
     delay = INTERP_ZERO_CROSSINGS * up
     pad = (-delay) % down
     h = np.concatenate([np.zeros(pad), h])
@@ -334,21 +341,15 @@ def select_filter(design: Design, name: str | None) -> Filter:
     return filt
 
 
-def _upper_corner_hz(filt: Filter) -> float:
-    """The filter's spec corner (upper one for a band-pass), or its -3 dB frequency."""
-    if filt.spec.kind == "alignment" and filt.spec.corner_hz:
-        return float(filt.spec.corner_hz[-1])
-    lo, hi = filt.characteristic_hz()
-    grid = np.geomspace(lo / 100, hi * 100, 8000)
-    rel = np.abs(filt.frequency_response(grid)) / abs(filt.passband_gain)
-    above = np.nonzero(rel >= 10 ** (-3.0 / 20))[0]
-    return float(grid[above[-1]]) if len(above) else hi
+def _gain_db(filt: Filter, f_hz: np.ndarray) -> np.ndarray:
+    """The analog as-built model's gain at ``f_hz`` in dB relative to its passband gain."""
+    h = np.abs(filt.frequency_response(np.asarray(f_hz, float)))
+    return 20 * np.log10(np.maximum(h, 1e-300) / abs(filt.passband_gain))
 
 
 def attenuation_db(filt: Filter, f_hz: float) -> float:
     """Attenuation of the analog as-built model at ``f_hz`` relative to its passband gain."""
-    h = abs(complex(filt.frequency_response(np.array([f_hz]))[0]))
-    return -20 * math.log10(max(h, 1e-300) / abs(filt.passband_gain))
+    return -float(_gain_db(filt, np.array([f_hz]))[0])
 
 
 def _validate(
@@ -419,7 +420,7 @@ def _components(
     p_with: np.ndarray,
     ref_without: float,
     ref_with: float,
-    filt: Filter,
+    gain_db: np.ndarray,
     adc_rate_hz: float,
     band_hz: float,
     count: int,
@@ -439,9 +440,8 @@ def _components(
         if _db(power / ref_without) >= floor_db:
             found.append((power, float(p_with[sl].sum() * df), i))
     found.sort(reverse=True)
-    gain = np.abs(filt.frequency_response(f[[i for *_, i in found[:count]]]))
     out = []
-    for (pw, pf, i), g in zip(found[:count], gain, strict=True):
+    for pw, pf, i in found[:count]:
         alias = float(alias_frequency(f[i], adc_rate_hz))
         out.append(
             AliasComponent(
@@ -450,7 +450,7 @@ def _components(
                 in_band=alias <= band_hz,
                 without_filter_db=float(_db(pw / ref_without)),
                 with_filter_db=float(_db(pf / ref_with)),
-                filter_db=float(20 * np.log10(max(g, 1e-300) / abs(filt.passband_gain))),
+                filter_db=float(gain_db[i]),
                 without_filter_peak=math.sqrt(2 * pw),
                 with_filter_peak=math.sqrt(2 * pf),
             )
@@ -516,7 +516,7 @@ def check_alias(
     if reject_db is not None and not (math.isfinite(reject_db) and reject_db > 0):
         raise UserInputError(f"rejection {reject_db:g} dB must be positive; give --reject-db")
     filt = select_filter(design, filter_name)
-    band = band_hz if band_hz is not None else min(_upper_corner_hz(filt), adc_rate_hz / 2)
+    band = band_hz if band_hz is not None else min(passband_edges_hz(filt)[1], adc_rate_hz / 2)
     if reject_db is None:
         required = ideal_dynamic_range_db(bits)
         requirement = f"ideal dynamic range of a {bits}-bit ADC, 6.02 N + 1.76 dB"
@@ -541,16 +541,14 @@ def check_alias(
     aliased_without = float(_db(p_without[folds].sum() * df / ref_without))
     aliased_with = float(_db(p_with[folds].sum() * df / ref_with))
     floor = -(required + IRRELEVANT_MARGIN_DB)
-    comps = _components(f, p_without, p_with, ref_without, ref_with, filt, adc_rate_hz, band,
+    gain_db = _gain_db(filt, f)
+    comps = _components(f, p_without, p_with, ref_without, ref_with, gain_db, adc_rate_hz, band,
                         max_components, floor)  # fmt: skip
 
     cap_without, cap_rate = capture(x, rate_hz, adc_rate_hz)
     cap_with, _ = capture(y, rate_hz, adc_rate_hz)
     fc, pc_without = psd(cap_without, cap_rate)
     _, pc_with = psd(cap_with, cap_rate)
-    gain_db = 20 * np.log10(
-        np.maximum(np.abs(filt.frequency_response(f)), 1e-300) / abs(filt.passband_gain)
-    )
     check = AliasCheck(
         filter_name=filt.name,
         recording_rate_hz=float(rate_hz),

@@ -46,6 +46,7 @@ SEARCH_SPAN = 10.0
 ADVICE_THRESHOLD_DB = 0.1
 """A polarity change is advised only when it improves the largest deviation this much."""
 FLOOR_DB = -300.0
+POLARITY_WORDS = {1: "normal", -1: "inverted"}
 _RANK = {"lowpass": 0, "bandpass": 1, "highpass": 2}
 
 
@@ -110,11 +111,14 @@ class PolarityAdvice:
             f"{self.current_dev_db:.2f} dB to {self.best_dev_db:.2f} dB"
         )
 
+    def in_words(self, polarities: Sequence[int]) -> dict[str, str]:
+        """Way name -> "normal" or "inverted"."""
+        return {n: POLARITY_WORDS[p] for n, p in zip(self.ways, polarities, strict=True)}
+
     def to_dict(self) -> dict[str, Any]:
-        words = {1: "normal", -1: "inverted"}
         return {
-            "current": {n: words[p] for n, p in zip(self.ways, self.current, strict=True)},
-            "best": {n: words[p] for n, p in zip(self.ways, self.best, strict=True)},
+            "current": self.in_words(self.current),
+            "best": self.in_words(self.best),
             "current_max_dev_db": self.current_dev_db,
             "best_max_dev_db": self.best_dev_db,
             "improvement_db": self.improvement_db,
@@ -321,11 +325,11 @@ def analyse_ways(
         tuple(names), current, best, cur_dev, best_dev, cur_dev - best_dev, invert
     )
 
+    h_points = np.array([r(np.array(points)) for r in responses])  # (ways, crossovers)
     crossings = []
     for i, fc in enumerate(points):
-        f = np.array([fc])
-        h_lo, h_hi = responses[i](f)[0], responses[i + 1](f)[0]
-        total = sum(r(f)[0] for r in responses)
+        h_lo, h_hi = h_points[i, i], h_points[i + 1, i]
+        total = h_points[:, i].sum()
         crossings.append(
             CrossoverPoint(
                 names[i],
@@ -395,7 +399,7 @@ def check_crossover(
             f"design has {len(design.filters)}; use a 2- or 3-way design"
         )
     ways = order_ways(design.filters)
-    reference = float(np.mean([20 * math.log10(abs(f.passband_gain)) for f in ways]))
+    reference = float(np.mean([f.passband_db for f in ways]))
 
     def response_of(f: Filter) -> Response:
         return lambda f_hz: f.frequency_response(np.asarray(f_hz, float), amplifier)

@@ -27,6 +27,7 @@ from typing import Any
 
 import numpy as np
 
+from filtertwin import sallenkey
 from filtertwin.design import Design, Filter, build_design
 from filtertwin.errors import UserInputError
 from filtertwin.sallenkey import Amplifier
@@ -229,17 +230,20 @@ class ToleranceResult:
     worst_deviation_db: float
     worst_parts: tuple[tuple[dict[str, float], ...], ...]
 
+    @property
+    def distribution_note(self) -> str:
+        """The distribution in words."""
+        if self.distribution == "uniform":
+            return "uniform within the tolerance"
+        return "Gaussian, tolerance = 3 sigma"
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (SI units, dB); the envelopes are left out."""
         return {
             "check": "tolerance",
             "builds": self.builds,
             "distribution": self.distribution,
-            "distribution_note": (
-                "uniform within the tolerance"
-                if self.distribution == "uniform"
-                else "Gaussian, tolerance = 3 sigma"
-            ),
+            "distribution_note": self.distribution_note,
             "seed": self.seed,
             "resistor_tolerance": self.resistor_tolerance,
             "capacitor_tolerance": self.capacitor_tolerance,
@@ -318,35 +322,17 @@ def _check_builds(builds: int) -> None:
 # --- closed-form polynomials, vectorised over builds -------------------------------------
 
 
-def _pmul(p: list[np.ndarray], q: list[np.ndarray]) -> list[np.ndarray]:
-    """Product of two polynomials whose coefficients (highest first) are arrays."""
-    out = [np.zeros_like(p[0]) for _ in range(len(p) + len(q) - 1)]
-    for i, pi in enumerate(p):
-        for j, qj in enumerate(q):
-            out[i + j] = out[i + j] + pi * qj
-    return out
-
-
-def _psub(p: list[np.ndarray], q: list[np.ndarray]) -> list[np.ndarray]:
-    """p - q, aligned at the constant term."""
-    n = max(len(p), len(q))
-    zero = np.zeros_like(p[0])
-    p = [zero] * (n - len(p)) + p
-    q = [zero] * (n - len(q)) + q
-    return [a - b for a, b in zip(p, q, strict=True)]
-
-
 def stage_polynomials(
     response: str, order: int, parts: dict[str, np.ndarray], amp: Amplifier | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
     """s-domain transfer functions of one stage for many part sets at once.
 
-    With admittances Y1 (input), Y2 (into the amplifier), Y3 (to ground), Y4 (feedback) and
-    the amplifier G = Gn / Gd, H = Y1 Y2 Gn / (L Gd - Y4 Y2 Gn), L = Y1 (Y2 + Y3) + Y2 Y3 +
-    Y4 (Y2 + Y3). Low-pass (g = 1/R): L = C1 C2 s^2 + (C2 (g1 + g2) + C1 g2) s + g1 g2,
-    Y4 Y2 = C1 g2 s, Y1 Y2 = g1 g2. High-pass: L = C1 C2 s^2 + (g2 (C1 + C2) + g1 C2) s +
-    g1 g2, Y4 Y2 = g1 C2 s, Y1 Y2 = C1 C2 s^2. Ideal amplifier: G = K = 1 + RF/RG;
-    single-pole: G = wt / (s + wt/A0 + wt/K).
+    The node equations of :mod:`filtertwin.sallenkey`, with every coefficient an array over
+    the builds: admittances Y1 (input), Y2 (into the amplifier), Y3 (to ground), Y4
+    (feedback) and the amplifier G = Gn / Gd give H = Y1 Y2 Gn / (L Gd - Y4 Y2 Gn),
+    L = Y1 (Y2 + Y3) + Y2 Y3 + Y4 (Y2 + Y3). Ideal amplifier: G = K = 1 + RF/RG;
+    single-pole: G = wt / (s + wt/A0 + wt/K). First order: 1 / (R1 C1 s + 1) (low-pass) or
+    R1 C1 s / (R1 C1 s + 1) (high-pass), times G.
 
     Parameters
     ----------
@@ -368,39 +354,18 @@ def stage_polynomials(
     Sallen & Key 1955; the same algebra as :func:`filtertwin.sallenkey.transfer_function`.
     """
     r1 = np.asarray(parts["R1"], float)
-    c1 = np.asarray(parts["C1"], float)
-    one = np.ones_like(r1)
     k = (
         1.0 + np.asarray(parts["RF"], float) / np.asarray(parts["RG"], float)
         if "RF" in parts
-        else one
+        else 1.0
     )
-    if amp is None:
-        gn, gd = [k], [one]
-    else:
-        wt = 2 * math.pi * amp.gbw_hz
-        gn, gd = [wt * one], [one, wt / amp.open_loop_gain + wt / k]
-    zero = np.zeros_like(r1)
-    if order == 1:
-        rc = r1 * c1
-        net_b = [one] if response == "lowpass" else [rc, zero]
-        b = _pmul(net_b, gn)
-        a = _pmul([rc, one], gd)
-    else:
-        r2 = np.asarray(parts["R2"], float)
-        c2 = np.asarray(parts["C2"], float)
-        g1, g2 = 1.0 / r1, 1.0 / r2
-        if response == "lowpass":
-            loop = [c1 * c2, c2 * (g1 + g2) + c1 * g2, g1 * g2]
-            feedback = [c1 * g2, zero]
-            through = [g1 * g2]
-        else:
-            loop = [c1 * c2, g2 * (c1 + c2) + g1 * c2, g1 * g2]
-            feedback = [g1 * c2, zero]
-            through = [c1 * c2, zero, zero]
-        a = _psub(_pmul(loop, gd), _pmul(feedback, gn))
-        b = _pmul(through, gn)
-    b = [zero] * (len(a) - len(b)) + b
+    second = order == 2
+    b, a = sallenkey.node_polynomials(
+        response, order, r1, np.asarray(parts["C1"], float),
+        np.asarray(parts["R2"], float) if second else None,
+        np.asarray(parts["C2"], float) if second else None,
+        k * np.ones_like(r1), amp,
+    )  # fmt: skip
     lead = a[0]
     return np.stack(b, axis=1) / lead[:, None], np.stack(a, axis=1) / lead[:, None]
 
@@ -565,16 +530,23 @@ def _inside_mask(db: np.ndarray, f: np.ndarray, passband_db: float, mask: Mask) 
 # --- running the builds ------------------------------------------------------------------
 
 
-def _filter_db(
-    filt: Filter, draws: tuple[dict[str, np.ndarray], ...], amp: Amplifier | None, f: np.ndarray
-) -> np.ndarray:
-    """Magnitude in dB of a filter for every build, ``(builds, len(f))``, in chunks."""
-    builds = len(next(iter(draws[0].values())))
-    out = np.empty((builds, len(f)))
-    polys = [
+Polynomials = list[tuple[np.ndarray, np.ndarray]]
+"""Per stage of a filter: ``(b, a)`` of :func:`stage_polynomials`, ``(builds, m)`` each."""
+
+
+def _filter_polynomials(
+    filt: Filter, draws: tuple[dict[str, np.ndarray], ...], amp: Amplifier | None
+) -> Polynomials:
+    return [
         stage_polynomials(st.circuit.response, st.circuit.order, parts, amp)
         for st, parts in zip(filt.stages, draws, strict=True)
     ]
+
+
+def _filter_db(polys: Polynomials, f: np.ndarray) -> np.ndarray:
+    """Magnitude in dB of a filter for every build, ``(builds, len(f))``, in chunks."""
+    builds = len(polys[0][1])
+    out = np.empty((builds, len(f)))
     for start in range(0, builds, CHUNK_BUILDS):
         sl = slice(start, start + CHUNK_BUILDS)
         power = magnitude_sq(polys[0][0][sl], polys[0][1][sl], f)
@@ -598,19 +570,66 @@ def _median_over_builds(db: np.ndarray) -> np.ndarray:
 
 
 def _stage_spreads(
-    filt: Filter,
-    draws: tuple[dict[str, np.ndarray], ...],
-    nominal: tuple[dict[str, np.ndarray], ...],
-    amp: Amplifier | None,
+    filt: Filter, polys: Polynomials, nominal: Polynomials
 ) -> tuple[StageSpread, ...]:
     out = []
-    for st, parts, nom in zip(filt.stages, draws, nominal, strict=True):
+    for st, (_, a), (_, a_nominal) in zip(filt.stages, polys, nominal, strict=True):
         order = st.circuit.order
-        f0, q = stage_f0_q(order, stage_polynomials(st.circuit.response, order, parts, amp)[1])
-        f0n, qn = stage_f0_q(order, stage_polynomials(st.circuit.response, order, nom, amp)[1])
+        f0, q = stage_f0_q(order, a)
+        f0n, qn = stage_f0_q(order, a_nominal)
         q_spread = None if order == 1 else Spread.of(float(qn[0]), q)
         out.append(StageSpread(st.index, Spread.of(float(f0n[0]), f0), q_spread))
     return tuple(out)
+
+
+def _filter_tolerance(
+    filt: Filter,
+    polys: Polynomials,
+    amp: Amplifier | None,
+    f_hz: np.ndarray | None,
+    points: int,
+    ripple_db: float,
+    stop_hz: float | None,
+    stop_db: float | None,
+) -> tuple[FilterTolerance, np.ndarray, np.ndarray]:
+    """One filter's builds against its mask; also which builds pass and their deviation.
+
+    ``worst_db`` is left at the nominal response: the worst build is known only once every
+    filter is done.
+    """
+    nominal_parts = tuple(
+        {k: np.array([v]) for k, v in st.circuit.parts().items()} for st in filt.stages
+    )
+    nominal = _filter_polynomials(filt, nominal_parts, amp)
+    pass_range, stop_ranges = _mask_edges(filt, stop_hz)
+    if f_hz is None:
+        edges = [*pass_range, *(e for r in stop_ranges for e in r)]
+        f = _grid_for(filt, edges, points)
+    else:
+        f = np.asarray(f_hz, float)
+    nominal_db = _filter_db(nominal, f)[0]
+    db = _filter_db(polys, f)
+    passband_db = filt.passband_db
+    mask = _build_mask(f, nominal_db, passband_db, pass_range, stop_ranges, ripple_db, stop_db)
+    ok = _inside_mask(db, f, passband_db, mask)
+    window = nominal_db >= passband_db - WORST_WINDOW_DB
+    dev = np.max(np.abs(db[:, window] - nominal_db[window]), axis=1)
+    result = FilterTolerance(
+        name=filt.name,
+        f_hz=f,
+        nominal_db=nominal_db,
+        min_db=db.min(axis=0),
+        median_db=_median_over_builds(db),
+        max_db=db.max(axis=0),
+        passband_db=passband_db,
+        stages=_stage_spreads(filt, polys, nominal),
+        mask=mask,
+        yield_fraction=float(ok.mean()),
+        nominal_passes=bool(_inside_mask(nominal_db[None, :], f, passband_db, mask)[0]),
+        worst_deviation_db=float(dev.max()),
+        worst_db=nominal_db,
+    )
+    return result, ok, dev
 
 
 def run_tolerance(
@@ -685,52 +704,26 @@ def run_tolerance(
     amp = design.amplifier
 
     results, inside, deviation = [], np.ones(builds, bool), np.zeros(builds)
+    worst_polys = []
     for filt in chosen:
-        draws = draws_of[filt.name]
-        nominal = tuple(
-            {k: np.array([v]) for k, v in st.circuit.parts().items()} for st in filt.stages
+        polys = _filter_polynomials(filt, draws_of[filt.name], amp)
+        result, ok, dev = _filter_tolerance(
+            filt, polys, amp, f_hz, points, ripple_db or DEFAULT_RIPPLE_DB, stop_hz, stop_db
         )
-        pass_range, stop_ranges = _mask_edges(filt, stop_hz)
-        if f_hz is None:
-            edges = [*pass_range, *(e for r in stop_ranges for e in r)]
-            f = _grid_for(filt, edges, points)
-        else:
-            f = np.asarray(f_hz, float)
-        nominal_db = _filter_db(filt, nominal, amp, f)[0]
-        db = _filter_db(filt, draws, amp, f)
-        passband_db = 20 * math.log10(abs(filt.passband_gain))
-        mask = _build_mask(f, nominal_db, passband_db, pass_range, stop_ranges,
-                           ripple_db or DEFAULT_RIPPLE_DB, stop_db)  # fmt: skip
-        ok = _inside_mask(db, f, passband_db, mask)
-        window = nominal_db >= passband_db - WORST_WINDOW_DB
-        dev = np.max(np.abs(db[:, window] - nominal_db[window]), axis=1)
         inside &= ok
         deviation = np.maximum(deviation, dev)
-        results.append(
-            FilterTolerance(
-                name=filt.name,
-                f_hz=f,
-                nominal_db=nominal_db,
-                min_db=db.min(axis=0),
-                median_db=_median_over_builds(db),
-                max_db=db.max(axis=0),
-                passband_db=passband_db,
-                stages=_stage_spreads(filt, draws, nominal, amp),
-                mask=mask,
-                yield_fraction=float(ok.mean()),
-                nominal_passes=bool(_inside_mask(nominal_db[None, :], f, passband_db, mask)[0]),
-                worst_deviation_db=float(dev.max()),
-                worst_db=nominal_db,  # replaced below, once the worst build is known
-            )
-        )
+        results.append(result)
+        worst_polys.append(polys)
     worst = int(np.argmax(deviation))
     worst_parts = tuple(
         tuple({k: float(v[worst]) for k, v in stage.items()} for stage in draws)
         for draws in all_draws
     )
-    for i, (filt, res) in enumerate(zip(chosen, results, strict=True)):
-        one = tuple({k: v[worst : worst + 1] for k, v in st.items()} for st in draws_of[filt.name])
-        results[i] = replace(res, worst_db=_filter_db(filt, one, amp, res.f_hz)[0])
+    one = slice(worst, worst + 1)
+    for i, (res, polys) in enumerate(zip(results, worst_polys, strict=True)):
+        results[i] = replace(
+            res, worst_db=_filter_db([(b[one], a[one]) for b, a in polys], res.f_hz)[0]
+        )
     return ToleranceResult(
         builds=int(builds),
         distribution=distribution,

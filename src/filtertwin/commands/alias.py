@@ -10,7 +10,7 @@ import json
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import column, frequency_hz
+from filtertwin.commands.options import column, frequency_hz, hz, out_folder
 from filtertwin.errors import UserInputError
 
 DEFAULT_OUT = "filtertwin-alias"
@@ -59,14 +59,6 @@ def register(subparsers: Any) -> None:
     p.set_defaults(func=run)
 
 
-def _out_folder(text: str) -> Path:
-    out = Path(text)
-    if out.exists() and not out.is_dir():
-        raise UserInputError(f"--out {text}: is a file, not a folder; give a folder name")
-    out.mkdir(parents=True, exist_ok=True)
-    return out
-
-
 def run(args: argparse.Namespace) -> int:
     from filtertwin import outputs, recordings
     from filtertwin.checks.alias import check_alias
@@ -87,7 +79,7 @@ def run(args: argparse.Namespace) -> int:
         bits=args.bits if args.bits is not None else DEFAULT_BITS, reject_db=args.reject_db,
     )  # fmt: skip
 
-    out = _out_folder(args.out)
+    out = out_folder(args.out)
     protect = [info.path, Path(design.spec.source)]
     stem = info.path.stem
     files = {}
@@ -114,11 +106,6 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _text(check: Any, info: Any, files: dict[str, str]) -> str:
-    from filtertwin.units import format_si
-
-    def hz(v: float) -> str:
-        return format_si(v, "Hz", 4)
-
     lines = [
         f"anti-alias check of filter '{check.filter_name}'",
         f"recording: {info.path} ({hz(info.rate_hz)}, {info.duration_s:.3f} s, "
@@ -128,7 +115,7 @@ def _text(check: Any, info: Any, files: dict[str, str]) -> str:
         f"required: {check.required_db:.2f} dB at {hz(check.attenuation_at_hz)} "
         f"(ADC rate - band): {check.requirement}",
         f"attenuation there (analog as-built model): {check.attenuation_db:.2f} dB",
-        f"verdict: {'PASS' if check.passed else 'FAIL'}, margin {check.margin_db:+.2f} dB",
+        f"verdict: {check.verdict}, margin {check.margin_db:+.2f} dB",
         f"power folding into the band, re in-band signal: without filter "
         f"{check.aliased_without_db:.1f} dB, with filter {check.aliased_with_db:.1f} dB",
         "",

@@ -1,7 +1,9 @@
-"""Option types shared by the sub-commands (argparse ``type=`` functions).
+"""Pieces shared by the sub-commands: option types (argparse ``type=`` functions), the
+output folder and frequencies in printed text.
 
 A bad value becomes one line through the parser's ``error`` (see ``cli.OneLineParser``):
-what is wrong with which option, and how to write it.
+what is wrong with which option, and how to write it. Heavy modules are imported inside the
+functions, so that building the parser stays fast.
 """
 
 from __future__ import annotations
@@ -9,7 +11,10 @@ from __future__ import annotations
 import argparse
 import math
 from collections.abc import Callable
+from pathlib import Path
 from typing import Any
+
+from filtertwin.errors import UserInputError
 
 
 def frequency_hz(text: str) -> float:
@@ -52,3 +57,25 @@ def positive(kind: Callable[[str], Any], what: str) -> Callable[[str], Any]:
 def column(text: str | None) -> str | int | None:
     """A CSV column or channel: a 0-based index or a name."""
     return int(text) if text is not None and text.isdigit() else text
+
+
+def out_folder(text: str) -> Path:
+    """The ``--out`` folder, created if missing.
+
+    Raises
+    ------
+    UserInputError
+        ``text`` names a file.
+    """
+    out = Path(text)
+    if out.exists() and not out.is_dir():
+        raise UserInputError(f"--out {text}: is a file, not a folder; give a folder name")
+    out.mkdir(parents=True, exist_ok=True)
+    return out
+
+
+def hz(value_hz: float) -> str:
+    """A frequency for printed text: four significant digits and an SI prefix ("2.200 kHz")."""
+    from filtertwin.units import format_si
+
+    return format_si(value_hz, "Hz", 4)

@@ -169,43 +169,45 @@ def cmd_render(args: argparse.Namespace) -> int:
     ]
     render.refuse_input_overwrite([p.path for p in plan] + reported, info.path)
 
-    created = [p for p in (folder, *folder.parents) if not p.exists()]  # deepest first
+    made = [p for p in (figure_dir, folder, *folder.parents) if not p.exists()]  # deepest first
     folder.mkdir(parents=True, exist_ok=True)
-    bar = _ProgressBar(sys.stderr, info.rate_hz)
+    audio: list[Path] = []
+    extra: list[Path] = []  # figures of the checks, drawn here
     try:
+        bar = _ProgressBar(sys.stderr, info.rate_hz)
         try:
             result = render.render(twin, info, plan, subtype, settings, progress=bar)
         finally:
             bar.close()
-        extra: list[Path] = []
-        try:
-            sections, extra_summary = [], {}
-            if tolerance is not None:
-                extra_summary = {"tolerance": tolerance.to_dict()}
-                if not args.no_report:
-                    sections.append(_tolerance_section(tolerance, figure_dir, info.path, extra))
-            crossover = _crossover(design)
-            if crossover is not None:
-                extra_summary["crossover"] = crossover.to_dict()
-                if not args.no_report:
-                    sections.append(_crossover_section(crossover, figure_dir, info.path, extra))
-            written = summary.write_render_report(
-                folder, result, info, design, twin, build=args.build, extra_sections=sections,
-                extra_figures=extra, extra_summary=extra_summary, with_report=not args.no_report,
-            )  # fmt: skip
-        except BaseException:
-            for path in [f.path for f in result.files] + extra:
-                path.unlink(missing_ok=True)
-            if figure_dir.is_dir() and not any(figure_dir.iterdir()):
-                figure_dir.rmdir()
-            raise
-    except BaseException:
-        for made in created:
-            if made.is_dir() and not any(made.iterdir()):
-                made.rmdir()
+        audio = [f.path for f in result.files]
+        sections, extra_summary = [], {}
+        if tolerance is not None:
+            extra_summary = {"tolerance": tolerance.to_dict()}
+            if not args.no_report:
+                sections.append(_tolerance_section(tolerance, figure_dir, info.path, extra))
+        crossover = _crossover(design)
+        if crossover is not None:
+            extra_summary["crossover"] = crossover.to_dict()
+            if not args.no_report:
+                sections.append(_crossover_section(crossover, figure_dir, info.path, extra))
+        written = summary.write_render_report(
+            folder, result, info, design, twin, build=args.build, extra_sections=sections,
+            extra_figures=extra, extra_summary=extra_summary, with_report=not args.no_report,
+        )  # fmt: skip
+    except BaseException:  # leave nothing of this run behind (the report removes its own)
+        _remove(audio + extra, made)
         raise
     _print_summary(result, twin, design, folder, extra + written)
     return 0
+
+
+def _remove(files: list[Path], folders: list[Path]) -> None:
+    """Delete ``files``, then each of ``folders`` (deepest first) that is left empty."""
+    for path in files:
+        path.unlink(missing_ok=True)
+    for folder in folders:
+        if folder.is_dir() and not any(folder.iterdir()):
+            folder.rmdir()
 
 
 def _crossover(design: Any) -> Any:
@@ -253,8 +255,7 @@ def _print_summary(result: Any, twin: Any, design: Any, folder: Path, written: l
     )
     width = max(len(f.path.name) for f in result.files)
     for f in result.files:
-        top = max(f.peak)
-        level = f"peak {20 * math.log10(top):+6.1f} dBFS" if top > 0 else "silent"
+        level = f"peak {f.peak_dbfs:+6.1f} dBFS" if math.isfinite(f.peak_dbfs) else "silent"
         note = ""
         if f.over_full_scale:
             kept = "clipped in the file" if (f.subtype or "").startswith("PCM") else "kept (float)"

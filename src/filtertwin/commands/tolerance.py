@@ -11,11 +11,12 @@ import json
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import frequency_hz
+from filtertwin.commands.options import frequency_hz, hz, out_folder
 from filtertwin.errors import UserInputError
 
-# the choices and defaults of filtertwin.checks.tolerance, repeated so that --help stays fast
-# (a test checks that they agree)
+# the choices and defaults of filtertwin.checks.tolerance, repeated: every start registers
+# every command, and importing the check (design, scipy) would add about 0.7 s to each; a test
+# checks that they agree
 DISTRIBUTIONS = ("uniform", "gaussian")
 DEFAULT_RIPPLE_DB = 1.0
 
@@ -36,7 +37,7 @@ def register(subparsers: Any) -> None:
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
     p.add_argument("--builds", type=int, required=True, metavar="N", help="number of builds")
     p.add_argument(
-        "--distribution", choices=DISTRIBUTIONS, default="uniform",
+        "--distribution", choices=DISTRIBUTIONS, default=DISTRIBUTIONS[0],
         help="uniform within the tolerance (default) or gaussian (tolerance = 3 sigma)",
     )  # fmt: skip
     p.add_argument("--seed", type=int, metavar="S", help="random seed, to repeat a run exactly")
@@ -68,11 +69,7 @@ def run(args: argparse.Namespace) -> int:
     if args.out:
         from filtertwin.report.check_figures import tolerance_figure
 
-        out = Path(args.out)
-        if out.exists() and not out.is_dir():
-            raise UserInputError(f"--out {args.out}: is a file, not a folder; give a folder name")
-        out.mkdir(parents=True, exist_ok=True)
-        target = out / f"{Path(design.spec.source).stem}-tolerance.png"
+        target = out_folder(args.out) / f"{Path(design.spec.source).stem}-tolerance.png"
         files["figure"] = str(tolerance_figure(result, target, protect=[design.spec.source]))
     if args.json:
         print(json.dumps(result.to_dict() | {"design": design.spec.source, "files": files},
@@ -87,19 +84,15 @@ def _spread(s: Any, fmt: Any) -> str:
 
 
 def _text(result: Any, design: Any, files: dict[str, str]) -> str:
-    from filtertwin.units import format_letter_code, format_si
-
-    def hz(v: float) -> str:
-        return format_si(v, "Hz", 4)
+    from filtertwin.units import format_letter_code
 
     def q(v: float) -> str:
         return f"{v:.3f}"
 
-    dist = ("uniform within the tolerance" if result.distribution == "uniform"
-            else "Gaussian, tolerance = 3 sigma")  # fmt: skip
     lines = [
         f"tolerance builds of {design.title}",
-        f"{result.builds} builds, {dist}; resistors +/-{100 * result.resistor_tolerance:g} %, "
+        f"{result.builds} builds, {result.distribution_note}; "
+        f"resistors +/-{100 * result.resistor_tolerance:g} %, "
         f"capacitors +/-{100 * result.capacitor_tolerance:g} %; seed {result.seed} "
         f"(repeat with --seed {result.seed})",
     ]

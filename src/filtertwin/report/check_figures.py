@@ -76,10 +76,9 @@ def alias_figure(
     """
     fig = _new_figure(9.0, 7.5)
     top, bottom = fig.subplots(2, 1)
-    verdict = "PASS" if check.passed else "FAIL"
     fig.suptitle(
         f"Anti-alias check of '{check.filter_name}' for a {_hz(check.adc_rate_hz)} ADC: "
-        f"{verdict} (margin {check.margin_db:+.1f} dB)",
+        f"{check.verdict} (margin {check.margin_db:+.1f} dB)",
         fontsize=12,
     )
 
@@ -120,20 +119,12 @@ def alias_figure(
     scale = _khz_axis(bottom, cap.f_hz[-1])
     bottom.axvspan(0, check.band_hz / scale, color="tab:olive", alpha=0.12,
                    label=f"band of interest (to {_hz(check.band_hz)})")  # fmt: skip
-    bottom.plot(
-        cap.f_hz / scale,
-        _db10(cap.without_filter),
-        color=BEFORE,
-        lw=0.9,
-        label=f"captured without the filter (aliases {check.aliased_without_db:+.1f} dB)",
-    )
-    bottom.plot(
-        cap.f_hz / scale,
-        _db10(cap.with_filter),
-        color=AFTER,
-        lw=0.9,
-        label=f"captured with the filter (aliases {check.aliased_with_db:+.1f} dB)",
-    )
+    for p, colour, words, aliased_db in (
+        (cap.without_filter, BEFORE, "without", check.aliased_without_db),
+        (cap.with_filter, AFTER, "with", check.aliased_with_db),
+    ):
+        label = f"captured {words} the filter (aliases {aliased_db:+.1f} dB)"
+        bottom.plot(cap.f_hz / scale, _db10(p), color=colour, lw=0.9, label=label)
     for c in check.components:
         bottom.axvline(c.alias_hz / scale, color="tab:red", lw=0.6, ls=":")
         bottom.annotate(

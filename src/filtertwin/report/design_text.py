@@ -73,7 +73,7 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
     for f in design.filters:
         lines.append("")
         pol = ", polarity inverted" if f.polarity < 0 else ""
-        gain_db = 20 * math.log10(abs(f.passband_gain))
+        gain_db = f.passband_db
         lines.append(
             f"filter '{f.name}' ({f.response}{pol}): {_describe_filter(f)}; "
             f"passband gain {gain_db:+.2f} dB"

@@ -22,17 +22,15 @@ from filtertwin.render import RenderResult, WrittenFile
 from filtertwin.report import figures
 from filtertwin.report.design_text import design_dict
 from filtertwin.report.html import CAUTION, ReportSection, write_html
-from filtertwin.twin import Twin
+from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG, Twin
 
 if TYPE_CHECKING:
     from filtertwin.checks.crossover import CrossoverCheck
     from filtertwin.checks.tolerance import ToleranceResult
 
 __all__ = [
-    "FIDELITY_TOL_DB",
     "crossover_section",
     "tolerance_section",
-    "FIDELITY_TOL_DEG",
     "design_sections",
     "render_sections",
     "summary_dict",
@@ -40,10 +38,6 @@ __all__ = [
     "write_render_report",
 ]
 
-FIDELITY_TOL_DB = 0.1
-"""Twin-vs-analog magnitude tolerance for a PASS (the one ``build_twin`` oversamples for)."""
-FIDELITY_TOL_DEG = 1.0
-"""Twin-vs-analog phase tolerance for a PASS (the one ``build_twin`` oversamples for)."""
 FIGURES_FOLDER = "figures"
 REPORT_NAME = "report.html"
 SUMMARY_NAME = "summary.json"
@@ -186,7 +180,7 @@ def design_sections(design: Design, twin: Twin | None = None) -> list[ReportSect
             [str(s["index"])] + [_part(name, s["parts"].get(name)) for name in _PARTS]
             for s in f["stages"]
         ]
-        gain_db = 20 * math.log10(abs(f["passband_gain"]))
+        gain_db = 20 * math.log10(abs(f["passband_gain"]))  # from design_dict: plain data
         paragraphs = [
             f"{f['response']}, {f['description']}; passband gain {gain_db:+.2f} dB"
             + (", polarity inverted" if f["polarity"] < 0 else "")
@@ -249,8 +243,12 @@ def render_sections(
     figure_paths: dict[str, Path],
     *,
     build: str = "nominal",
+    extra_sections: Sequence[ReportSection] = (),
 ) -> list[ReportSection]:
-    """Sections about the render: input and twin, checks with verdicts, files, figures."""
+    """Sections about the render: input and twin, checks with verdicts, files, figures.
+
+    ``extra_sections`` (e.g. a tolerance analysis) come right after the checks.
+    """
     what = "worst build of the tolerance analysis" if build == "worst" else "nominal parts"
     source = ReportSection(
         "Input and twin",
@@ -283,7 +281,7 @@ def render_sections(
         ],
         tables=[(("check", "filter", "result", "verdict"), _check_rows(result, twin))],
     )
-    sections = [source, checks, files]
+    sections = [source, checks, *extra_sections, files]
     if "spectra" in figure_paths:
         sections.append(
             ReportSection(
@@ -431,8 +429,10 @@ def write_render_report(
         if with_report:
             figure_folder.mkdir(exist_ok=True)
             shown = _figures(figure_folder, result, info, design, twin, written)
-            sections = render_sections(result, info, design, twin, folder, shown, build=build)
-            sections[2:2] = list(extra_sections)
+            sections = render_sections(
+                result, info, design, twin, folder, shown, build=build,
+                extra_sections=extra_sections,
+            )  # fmt: skip
             title = f"{design.title}: render of {info.path.name}"
             written.append(write_html(folder / REPORT_NAME, title, sections, protect=[info.path]))
         data = summary_dict(
