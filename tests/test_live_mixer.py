@@ -157,3 +157,30 @@ def test_gains_of_the_wrong_length_are_refused():
     mixer = SelectionMixer(2, RATE_HZ)
     with pytest.raises(ValueError, match=r"gains must have shape \(3,\), got \(2,\)"):
         mixer.request(np.array([1.0, 0.0]))
+
+
+def test_a_mono_mix_fills_both_columns_of_its_pair_and_leaves_the_others():
+    rng = np.random.default_rng(5)
+    chains = rng.standard_normal((2, 64, 1)).astype(np.float32)
+    dry = rng.standard_normal((64, 1)).astype(np.float32)
+    mixer = SelectionMixer(2, RATE_HZ, initial=np.array([0.5, 0.25, 0.125]))
+    out = np.full((64, 6), 7.0, dtype=np.float32)
+    mixer.process(chains, dry, out, first_column=2, columns=2)
+    # numpy float64 weighted sum, additions in the kernel's order, rounded once to float32
+    c = chains.astype(np.float64)
+    expected = (0.125 * dry[:, 0].astype(np.float64) + 0.5 * c[0, :, 0] + 0.25 * c[1, :, 0]).astype(
+        np.float32
+    )
+    np.testing.assert_array_equal(out[:, 2], expected)
+    np.testing.assert_array_equal(out[:, 3], expected)
+    np.testing.assert_array_equal(out[:, [0, 1, 4, 5]], 7.0)
+
+
+def test_columns_outside_the_output_or_not_fitting_the_channels_are_refused():
+    mixer = SelectionMixer(1, RATE_HZ)
+    chains = np.zeros((1, 4, 2), dtype=np.float32)
+    out = np.zeros((4, 6), dtype=np.float32)
+    with pytest.raises(ValueError, match=r"columns 5 to 7 of an output with 6 for 2 channel"):
+        mixer.process(chains, chains[0], out, first_column=5, columns=2)
+    with pytest.raises(ValueError, match=r"columns 0 to 3 of an output with 6 for 2 channel"):
+        mixer.process(chains, chains[0], out, columns=3)

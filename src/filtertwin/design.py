@@ -10,7 +10,8 @@ Nothing here reads or writes files.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -19,7 +20,7 @@ import numpy as np
 from filtertwin import prototypes, sallenkey
 from filtertwin.errors import UserInputError
 from filtertwin.sallenkey import Amplifier, StageCircuit, StageModel
-from filtertwin.spec import AmplifierSpec, DesignSpec, FilterSpec, PartsSpec
+from filtertwin.spec import AmplifierSpec, BuiltStageSpec, DesignSpec, FilterSpec, PartsSpec
 from filtertwin.synthesis import PartRules, SynthesisError, synthesize
 
 Section = tuple[np.ndarray, np.ndarray]  # (b, a) polynomials in s, highest power first
@@ -367,6 +368,35 @@ def build_design(spec: DesignSpec) -> Design:
         filters.append(filt)
         warnings += _warnings(filt, amp, spec.parts)
     return Design(spec, amp, tuple(filters), tuple(warnings))
+
+
+def with_built_filters(
+    design: Design,
+    parts: Mapping[str, Sequence[Mapping[str, float]]],
+    title: str | None = None,
+) -> Design:
+    """The design with some filters given by new part values (kind "built"), designed again.
+
+    Parameters
+    ----------
+    design : Design
+    parts : mapping of filter name -> one ``{"R1": ohm, "C1": farad, ...}`` per stage
+        The named filters keep their name, response, polarity, stage order and each stage's
+        topology; every other filter, the amplifier and the part rules stay as they are.
+    title : str, optional
+        A new title (e.g. naming the build).
+    """
+    filters = []
+    for fs, filt in zip(design.spec.filters, design.filters, strict=True):
+        if fs.name in parts:
+            built = tuple(
+                BuiltStageSpec(st.circuit.response, st.circuit.topology, dict(p))
+                for st, p in zip(filt.stages, parts[fs.name], strict=True)
+            )
+            fs = replace(fs, kind="built", built=built)
+        filters.append(fs)
+    spec = replace(design.spec, filters=tuple(filters), title=title or design.spec.title)
+    return build_design(spec)
 
 
 def load(path: str | Path) -> Design:

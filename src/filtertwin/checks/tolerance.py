@@ -28,10 +28,9 @@ from typing import Any
 import numpy as np
 
 from filtertwin import sallenkey
-from filtertwin.design import Design, Filter, build_design
+from filtertwin.design import Design, Filter, with_built_filters
 from filtertwin.errors import UserInputError
 from filtertwin.sallenkey import Amplifier
-from filtertwin.spec import BuiltStageSpec
 
 __all__ = [
     "DISTRIBUTIONS",
@@ -755,14 +754,6 @@ def worst_build_design(design: Design, result: ToleranceResult) -> Design:
         for parts, f in zip(result.worst_parts, design.filters, strict=True)
     ):
         raise ValueError("the tolerance result does not belong to this design")
-    filters = []
-    for fs, filt, parts in zip(
-        design.spec.filters, design.filters, result.worst_parts, strict=True
-    ):
-        built = tuple(
-            BuiltStageSpec(st.circuit.response, st.circuit.topology, dict(p))
-            for st, p in zip(filt.stages, parts, strict=True)
-        )
-        filters.append(replace(fs, kind="built", built=built))
+    parts = {f.name: p for f, p in zip(design.filters, result.worst_parts, strict=True)}
     title = f"{design.title} (worst of {result.builds} builds: build {result.worst_build})"
-    return build_design(replace(design.spec, title=title, filters=tuple(filters)))
+    return with_built_filters(design, parts, title)

@@ -30,13 +30,6 @@ def cmd_devices(args: argparse.Namespace) -> int:
     if not found:
         raise UserInputError(devices.NO_DEVICES_HINT)
     default_in, default_out = (int(i) for i in sd.default.device)
-    for device in found:
-        marks = [
-            name
-            for name, index in (("default input", default_in), ("default output", default_out))
-            if index == device.index
-        ]
-        suffix = f"  <- {', '.join(marks)}" if marks else ""
-        print(f"  {device.describe()}{suffix}")
+    print(devices.format_devices(found, default_in, default_out))
     print("\nchoose one with 'filtertwin listen ... --device NUMBER' or part of its name")
     return 0

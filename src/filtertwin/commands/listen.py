@@ -110,8 +110,7 @@ def register(subparsers: Any) -> None:
 
 
 def _options(args: argparse.Namespace) -> Any:
-    from filtertwin.live.player import ADC_NEEDS_RECORDING, ListenOptions
-    from filtertwin.live.safety import OutputSafety
+    from filtertwin.live.player import ListenOptions, check_options
 
     blind = "abx" if args.abx else "preference" if args.prefer else None
     if blind is None and (args.log or args.seed is not None):
@@ -120,23 +119,11 @@ def _options(args: argparse.Namespace) -> Any:
         raise UserInputError(f"--blocksize must be 16 to 8192 frames, got {args.blocksize}")
     if args.crossfade > 1000:
         raise UserInputError(f"--crossfade must be at most 1000 ms, got {args.crossfade:g}")
-    if blind is not None and len(args.designs) != 2:
-        raise UserInputError(
-            f"blind trials compare two designs, {len(args.designs)} were given; give exactly two"
-        )
-    if args.adc_rate is not None and not args.input:
-        raise UserInputError(ADC_NEEDS_RECORDING)
-    if args.match == "loudness" and not args.input:
-        raise UserInputError(
-            "--match loudness needs a recording (--input); for live input use --match gain"
-        )
-    OutputSafety(48000.0, args.level, args.ceiling)  # checks the level and the ceiling now
-    device: str | int | None = args.device
-    return ListenOptions(
+    options = ListenOptions(
         input_path=Path(args.input) if args.input else None,
         input_rate_hz=args.input_rate,
         column=args.column,
-        device=device,
+        device=args.device,
         rate_hz=args.rate,
         block_frames=args.blocksize,
         latency=args.latency,
@@ -152,14 +139,14 @@ def _options(args: argparse.Namespace) -> Any:
         log_path=Path(args.log) if args.log else None,
         adc_rate_hz=args.adc_rate,
     )
+    check_options(options, len(args.designs))
+    return options
 
 
 def _designs(names: list[str]) -> list[tuple[str, Any]]:
-    from filtertwin import examples
-    from filtertwin.design import build_design
-    from filtertwin.spec import load_design
+    from filtertwin.design import load
 
-    return [(name, build_design(load_design(examples.resolve(name)))) for name in names]
+    return [(name, load(name)) for name in names]
 
 
 def _introduce(player: Any, console: Any, interactive: bool) -> None:
@@ -182,7 +169,7 @@ def _introduce(player: Any, console: Any, interactive: bool) -> None:
         )
     if session.pair_ways:
         routes = ", ".join(
-            f"{w} on {2 * i + 1}-{2 * i + 2}" for i, w in enumerate(session.pair_ways)
+            f"{w} on {routing.channels_of(session.pair_ways, w)}" for w in session.pair_ways
         )
         console.say(f"ways out: {routes}")
         for warning in routing.low_reaching_high_ways(session.candidates):

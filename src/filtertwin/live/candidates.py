@@ -113,11 +113,6 @@ def make_candidates(named_designs: Sequence[tuple[str, Design]]) -> tuple[Listen
     return tuple(result)
 
 
-def with_design(candidate: ListenCandidate, design: Design) -> ListenCandidate:
-    """The candidate with a rebuilt design (the same filters, so the same ways)."""
-    return ListenCandidate(candidate.label, candidate.name, design, candidate.ways)
-
-
 def build_twins(candidates: Sequence[ListenCandidate], rate_hz: float) -> tuple[Twin, ...]:
     """Each candidate's digital twin at ``rate_hz`` (no oversampling: it runs live)."""
     return tuple(build_twin(c.design, rate_hz) for c in candidates)

@@ -23,14 +23,12 @@ and aliasing) and 4.3 (band-limited reconstruction).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from fractions import Fraction
 
 import numpy as np
-from scipy import signal
 
-from filtertwin.checks.alias import INTERP_KAISER_BETA, INTERP_ZERO_CROSSINGS
+from filtertwin.checks.alias import interpolator_taps
 from filtertwin.errors import UserInputError
-from filtertwin.live.resample import MAX_FACTOR, StreamResampler
+from filtertwin.live.resample import MAX_FACTOR, StreamResampler, ratio
 
 SEARCH_HZ = 2000
 """How far from the ADC rate given a rate with simple factors is looked for (suggestion)."""
@@ -67,11 +65,11 @@ class CapturePlan:
 
 
 def _factors(from_hz: float, to_hz: float) -> tuple[int, int] | None:
-    """``(up, down)`` in lowest terms of whole-hertz rates, or None above MAX_FACTOR."""
-    fraction = Fraction(round(to_hz), max(1, round(from_hz)))
-    if max(fraction.numerator, fraction.denominator) > MAX_FACTOR:
+    """:func:`~filtertwin.live.resample.ratio`, or None where it refuses the rates."""
+    try:
+        return ratio(from_hz, to_hz)
+    except UserInputError:
         return None
-    return fraction.numerator, fraction.denominator
 
 
 def _simple_rate(adc_rate_hz: float, recording_rate_hz: float, stream_rate_hz: float) -> int:
@@ -145,14 +143,11 @@ def plan_capture(
 def sampler_taps(up: int) -> np.ndarray:
     """The ADC sampler's FIR at ``up`` times the recording's rate.
 
-    ``[1.0]`` for ``up == 1`` (every k-th sample); otherwise the band-limited interpolator of
-    :func:`filtertwin.checks.alias.capture` (Kaiser-windowed sinc, 32 zero crossings each
-    side, cut-off at the recording's Nyquist frequency).
+    ``[1.0]`` for ``up == 1`` (every k-th sample); otherwise the band-limited interpolator
+    :func:`filtertwin.checks.alias.interpolator_taps` that
+    :func:`filtertwin.checks.alias.capture` uses.
     """
-    if up == 1:
-        return np.ones(1)
-    taps = 2 * INTERP_ZERO_CROSSINGS * up + 1
-    return signal.firwin(taps, 1.0 / up, window=("kaiser", INTERP_KAISER_BETA)) * up
+    return np.ones(1) if up == 1 else interpolator_taps(up)
 
 
 def resampler(up: int, down: int, channels: int) -> StreamResampler | None:

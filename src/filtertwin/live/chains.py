@@ -50,7 +50,6 @@ class ChainSwapper:
     def __init__(self, host: ChainHost) -> None:
         self.host = host
         self.clip_base = np.zeros_like(host.runner.clip_counts)
-        self.runners_built = 0
         self._last_swap_block: int | None = None
 
     def clip_counts(self) -> np.ndarray:
@@ -105,4 +104,3 @@ class ChainSwapper:
         width = min(base.shape[1], counts.shape[1])
         base[:, :width] = self.clip_base[:, :width] + counts[:, :width]
         self.clip_base = base
-        self.runners_built += 1

@@ -95,11 +95,19 @@ def list_devices(sd: ModuleType | None = None) -> tuple[Device, ...]:
     )
 
 
-def format_devices(devices: tuple[Device, ...]) -> str:
-    """A table of the devices, one per line (or the hint when there are none)."""
+def format_devices(
+    devices: tuple[Device, ...], default_input: int = -1, default_output: int = -1
+) -> str:
+    """A table of the devices, one per line, the default ones marked (or the hint when
+    there are none)."""
     if not devices:
         return NO_DEVICES_HINT
-    return "\n".join(device.describe() for device in devices)
+    defaults = (("default input", default_input), ("default output", default_output))
+    lines = []
+    for device in devices:
+        marks = ", ".join(name for name, index in defaults if index == device.index)
+        lines.append(f"  {device.describe()}" + (f"  <- {marks}" if marks else ""))
+    return "\n".join(lines)
 
 
 def _channels(device: Device, direction: Direction) -> int:

@@ -28,9 +28,9 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from filtertwin import eseries, units
-from filtertwin.design import Design, Filter, Stage, build_design
+from filtertwin.design import Design, Filter, Stage, build_design, with_built_filters
 from filtertwin.errors import UserInputError
-from filtertwin.spec import BuiltStageSpec, FilterSpec
+from filtertwin.spec import FilterSpec
 
 PART_NAMES = ("R1", "R2", "C1", "C2", "RF", "RG")
 _STEPS = re.compile(r"^[+-]\d+$")
@@ -179,12 +179,11 @@ def edit_part(design: Design, filter_name: str, edit: PartEdit) -> tuple[Design,
             f"its parts are {', '.join(parts)}"
         )
     value = new_value(design, edit.part, parts[edit.part], edit.change)
-    built = []
-    for s in f.stages:
-        circuit = s.circuit.with_parts(**{edit.part: value}) if s is stage else s.circuit
-        built.append(BuiltStageSpec(circuit.response, circuit.topology, circuit.parts()))
-    new = dataclasses.replace(f.spec, kind="built", built=tuple(built))
-    return _replace_filter(design, new), stage, value
+    new_parts = [
+        s.circuit.with_parts(**{edit.part: value}).parts() if s is stage else s.circuit.parts()
+        for s in f.stages
+    ]
+    return with_built_filters(design, {f.name: new_parts}), stage, value
 
 
 def edit_corner(design: Design, filter_name: str, corners_hz: tuple[float, ...]) -> Design:

@@ -59,51 +59,34 @@ class TimedCommand:
 
 @dataclass(frozen=True)
 class CommandRule:
-    """How many arguments a command takes, what they may be, and what it does."""
+    """How many arguments a command takes and what they may be (the help is on the keys)."""
 
     usage: str
     n_args: tuple[int, ...]
     choices: tuple[str, ...] = ()
-    help: str = ""
 
 
 _LABEL = re.compile(r"^([1-9]|[A-Za-z])$")
 _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)$")
 
 RULES: dict[str, CommandRule] = {
-    "select": CommandRule("select N|LABEL", (1,), help="hear candidate N (1-9) or LABEL (A, B...)"),
-    "bypass": CommandRule("bypass", (0,), help="hear the input without any filter"),
-    "solo": CommandRule("solo WAY", (1,), WAYS, "hear one way alone (sum: all ways)"),
-    "mute": CommandRule("mute WAY", (1,), WAYS[:3], "leave a way out of the sum, or bring it back"),
-    "level": CommandRule("level DB", (1,), help="set the output level in dB (-60 to +12)"),
-    "louder": CommandRule("louder", (0,), help=f"output level up {LEVEL_STEP_DB:g} dB"),
-    "quieter": CommandRule("quieter", (0,), help=f"output level down {LEVEL_STEP_DB:g} dB"),
-    "trials": CommandRule("trials", (0,), help="in blind trials: say the trial and its keys"),
-    "listen": CommandRule("listen A|B|X|1|2", (1,), LISTEN_CHOICES, "in a trial: hear a choice"),
-    "answer": CommandRule(
-        "answer [A|B|1|2]", (0, 1), ANSWER_CHOICES, "answer the trial (no choice: the one heard)"
-    ),
-    "part": CommandRule(
-        "part [WAY] [STAGE] PART CHANGE",
-        (2, 3, 4),
-        help="change a part of the candidate heard: 'part low 2 C1 +1' steps C1 of stage 2 "
-        "of the low way one E-series value up, 'part low 2 C1 22n' sets it",
-    ),
-    "corner": CommandRule(
-        "corner [WAY] HZ [HZ]",
-        (1, 2, 3),
-        help="move the corner of a filter given by an alignment, e.g. 'corner low 2.5k'",
-    ),
-    "capture": CommandRule(
-        "capture [on|off]",
-        (0, 1),
-        CAPTURE_CHOICES,
-        "with --adc-rate: hear what the ADC captures, or the signal itself (no word: switch)",
-    ),
-    "confirm": CommandRule("confirm", (0,), help="confirm the warning just given (within 3 s)"),
-    "edit": CommandRule("edit", (0,), help="type a command such as 'part low 2 C1 +1'"),
-    "help": CommandRule("help", (0,), help="show the keys"),
-    "quit": CommandRule("quit", (0,), help="fade out and stop"),
+    "select": CommandRule("select N|LABEL", (1,)),
+    "bypass": CommandRule("bypass", (0,)),
+    "solo": CommandRule("solo WAY", (1,), WAYS),
+    "mute": CommandRule("mute WAY", (1,), WAYS[:3]),
+    "level": CommandRule("level DB", (1,)),
+    "louder": CommandRule("louder", (0,)),
+    "quieter": CommandRule("quieter", (0,)),
+    "trials": CommandRule("trials", (0,)),
+    "listen": CommandRule("listen A|B|X|1|2", (1,), LISTEN_CHOICES),
+    "answer": CommandRule("answer [A|B|1|2]", (0, 1), ANSWER_CHOICES),
+    "part": CommandRule("part [WAY] [STAGE] PART CHANGE", (2, 3, 4)),
+    "corner": CommandRule("corner [WAY] HZ [HZ]", (1, 2, 3)),
+    "capture": CommandRule("capture [on|off]", (0, 1), CAPTURE_CHOICES),
+    "confirm": CommandRule("confirm", (0,)),
+    "edit": CommandRule("edit", (0,)),
+    "help": CommandRule("help", (0,)),
+    "quit": CommandRule("quit", (0,)),
 }
 
 

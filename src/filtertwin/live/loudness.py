@@ -51,6 +51,9 @@ RELATIVE_GATE_LU = -10.0
 OFFSET_DB = -0.691
 BLOCK_S = 0.4
 STEP_S = 0.1
+FEED_FRAMES = 4096
+""":func:`integrated_loudness` feeds the meter in pieces this long, so that no single call
+into compiled code keeps a running audio thread waiting for the interpreter lock."""
 
 
 @dataclass(frozen=True)
@@ -273,7 +276,8 @@ def integrated_loudness(
     if frames.ndim == 1:
         frames = frames[:, None]
     meter = LoudnessMeter(rate_hz, frames.shape[1], channel_weights)
-    meter.feed(frames)
+    for start in range(0, len(frames), FEED_FRAMES):
+        meter.feed(frames[start : start + FEED_FRAMES])
     return meter.integrated_lkfs()
 
 

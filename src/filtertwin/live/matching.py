@@ -23,7 +23,7 @@ import numpy as np
 from filtertwin.design import Design
 from filtertwin.engine import CascadeRunner
 from filtertwin.errors import UserInputError
-from filtertwin.live.loudness import LoudnessMeter, matching_gain
+from filtertwin.live.loudness import integrated_loudness, matching_gain
 from filtertwin.twin import Twin
 
 MATCH_MODES = ("loudness", "gain", "off")
@@ -140,17 +140,8 @@ def match_by_loudness(program: np.ndarray, rate_hz: float, twins: Sequence[Twin]
             f"loudness matching needs a recording at 8 kHz or more, this one is at "
             f"{rate_hz:g} Hz; use --match gain"
         )
-    levels = [loudness_lkfs(twin_output(program, twin), rate_hz) for twin in twins]
-    return _matched("loudness", levels, loudness_lkfs(program, rate_hz))
-
-
-def loudness_lkfs(samples: np.ndarray, rate_hz: float) -> float:
-    """Integrated loudness (BS.1770-4) of ``(frames, channels)`` samples, fed in short
-    blocks so that no single compiled call keeps the audio thread waiting."""
-    meter = LoudnessMeter(rate_hz, samples.shape[1])
-    for start in range(0, len(samples), BLOCK_FRAMES):
-        meter.feed(samples[start : start + BLOCK_FRAMES])
-    return meter.integrated_lkfs()
+    levels = [integrated_loudness(twin_output(program, twin), rate_hz) for twin in twins]
+    return _matched("loudness", levels, integrated_loudness(program, rate_hz))
 
 
 def describe(match: LevelMatch, labels: Sequence[str]) -> str:

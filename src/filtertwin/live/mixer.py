@@ -134,16 +134,21 @@ def _mix_kernel(
     chains: np.ndarray,
     dry: np.ndarray,
     out: np.ndarray,
+    first: int,
+    width: int,
     gains: np.ndarray,
     start: np.ndarray,
     target: np.ndarray,
     requested: np.ndarray,
     control: np.ndarray,
 ) -> None:
-    """Weighted sum of the chains and the dry input into ``out``, fading the gains."""
+    """Weighted sum of the chains and the dry input into columns ``first`` to
+    ``first + width`` of ``out``, fading the gains; column ``j`` takes input channel
+    ``j % channels`` (a mono input fills every column)."""
     n_chains = chains.shape[0]
     n_sources = n_chains + 1
-    frames, channels = out.shape
+    frames = out.shape[0]
+    channels = dry.shape[1]
     if control[_REQUESTED] != control[_APPLIED]:
         control[_APPLIED] = control[_REQUESTED]
         for s in range(n_sources):
@@ -168,7 +173,8 @@ def _mix_kernel(
             for k in range(n_chains):
                 if gains[k] != 0.0:
                     acc += gains[k] * np.float64(chains[k, n, c])
-            out[n, c] = acc
+            for j in range(c, width, channels):
+                out[n, first + j] = acc
 
 
 class SelectionMixer:
@@ -235,13 +241,46 @@ class SelectionMixer:
         self._requested[:] = self._checked(gains)
         self._control[_REQUESTED] += 1
 
-    def process(self, chains: np.ndarray, dry: np.ndarray, out: np.ndarray) -> None:
-        """Mix one block: ``chains`` (n_chains, frames, channels), ``dry`` and ``out``
-        (frames, channels). Allocates nothing; safe in an audio callback."""
+    def process(
+        self,
+        chains: np.ndarray,
+        dry: np.ndarray,
+        out: np.ndarray,
+        first_column: int = 0,
+        columns: int | None = None,
+    ) -> None:
+        """Mix one block into ``out``. Allocates nothing; safe in an audio callback.
+
+        Parameters
+        ----------
+        chains : numpy.ndarray
+            ``(n_chains, frames, channels)``.
+        dry : numpy.ndarray
+            ``(frames, channels)``.
+        out : numpy.ndarray
+            ``(frames, any)``: columns ``first_column`` to ``first_column + columns`` are
+            written, column ``j`` of them from input channel ``j % channels`` (a mono input
+            fills them all; a stereo input fills them in pairs).
+        first_column, columns : int
+            Where the mix goes; default: every column of ``out``.
+
+        Raises
+        ------
+        ValueError
+            If the columns are not within ``out`` or not a multiple of the channels.
+        """
+        width = out.shape[1] - first_column if columns is None else columns
+        if not 0 <= first_column <= first_column + width <= out.shape[1] or width % dry.shape[1]:
+            raise ValueError(
+                f"columns {first_column} to {first_column + width} of an output with "
+                f"{out.shape[1]} for {dry.shape[1]} channel(s): not within it or not a multiple"
+            )
         _mix_kernel(
             chains,
             dry,
             out,
+            first_column,
+            width,
             self._gains,
             self._start,
             self._target,

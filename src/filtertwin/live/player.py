@@ -24,7 +24,7 @@ import gc
 import sys
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from types import ModuleType
 from typing import Any
@@ -151,6 +151,42 @@ def _inspect_input(options: ListenOptions) -> RecordingInfo:
     return info
 
 
+ADC_NEEDS_RECORDING = (
+    "--adc-rate needs a recording sampled faster than the ADC (--input REC); "
+    "the live input cannot show what the ADC would fold"
+)
+LOUDNESS_NEEDS_RECORDING = (
+    "--match loudness needs a recording (--input); for live input use --match gain"
+)
+
+
+def check_options(options: ListenOptions, n_designs: int) -> None:
+    """Refuse settings that cannot work, before any design, recording or device is touched.
+
+    Parameters
+    ----------
+    options : ListenOptions
+        The settings.
+    n_designs : int
+        How many designs are given.
+
+    Raises
+    ------
+    UserInputError
+        Blind trials without exactly two designs; ``--adc-rate`` or ``--match loudness``
+        without a recording; an output level, ceiling or ramp time out of range.
+    """
+    if options.blind is not None and n_designs != 2:
+        raise UserInputError(
+            f"blind trials compare two designs, {n_designs} were given; give exactly two"
+        )
+    if options.input_path is None and options.adc_rate_hz is not None:
+        raise UserInputError(ADC_NEEDS_RECORDING)
+    if options.input_path is None and options.match == "loudness":
+        raise UserInputError(LOUDNESS_NEEDS_RECORDING)
+    safety.OutputSafety(48000.0, options.level_db, options.ceiling_dbfs, options.ramp_s)
+
+
 def _match(
     options: ListenOptions,
     candidates: Sequence[cands.ListenCandidate],
@@ -158,15 +194,10 @@ def _match(
     program: np.ndarray | None,
     rate_hz: float,
 ) -> matching.LevelMatch:
-    mode = options.match or ("loudness" if program is not None else "gain")
-    if mode == "off":
+    if options.match == "off":
         return matching.no_match(len(candidates))
-    if mode == "gain":
+    if program is None:  # live input or --match gain: the excerpt is read for loudness only
         return matching.match_by_gain([c.design for c in candidates])
-    if program is None:
-        raise UserInputError(
-            "--match loudness needs a recording (--input); for live input use --match gain"
-        )
     return matching.match_by_loudness(program, rate_hz, twins)
 
 
@@ -175,10 +206,6 @@ def _blind(
 ) -> BlindSession | None:
     if options.blind is None:
         return None
-    if len(candidates) != 2:
-        raise UserInputError(
-            f"blind trials compare two designs, {len(candidates)} were given; give exactly two"
-        )
     seed = options.seed if options.seed is not None else time.time_ns() % 2**32
     kind: Kind = "abx" if options.blind == "abx" else "preference"
     plan = plan_trials((candidates[0].name, candidates[1].name), options.trials, seed, kind)
@@ -186,32 +213,25 @@ def _blind(
     return BlindSession(plan, log)
 
 
+@dataclass(eq=False, kw_only=True)
 class Player:
     """A prepared session and its stream (see :func:`prepare`)."""
 
-    def __init__(
-        self,
-        *,
-        sd: ModuleType,
-        device: devices.Device,
-        options: ListenOptions,
-        rate_hz: float,
-        core: stream.StreamCore,
-        session: ListenSession,
-        feeder: stream.Feeder | None,
-        in_channels: int,
-    ) -> None:
-        self.sd = sd
-        self.device = device
-        self.options = options
-        self.rate_hz = rate_hz
-        self.core = core
-        self.session = session
-        self.feeder = feeder
-        self.in_channels = in_channels
-        self.stream: Any = None
-        self.started_s: float | None = None
-        self._saved_switch_interval_s: float | None = None
+    sd: ModuleType
+    device: devices.Device
+    options: ListenOptions
+    rate_hz: float
+    core: stream.StreamCore
+    session: ListenSession
+    feeder: stream.Feeder | None
+    stream: Any = field(default=None, init=False)
+    started_s: float | None = field(default=None, init=False)
+    _saved_switch_interval_s: float | None = field(default=None, init=False)
+
+    @property
+    def in_channels(self) -> int:
+        """Channels of the input (live input or the recording)."""
+        return self.core.channels
 
     def describe(self) -> str:
         """One line: device, rate, block size and what is played."""
@@ -311,42 +331,36 @@ class Player:
             gc.unfreeze()
 
 
-ADC_NEEDS_RECORDING = (
-    "--adc-rate needs a recording sampled faster than the ADC (--input REC); "
-    "the live input cannot show what the ADC would fold"
-)
+def _feeder(
+    options: ListenOptions,
+    info: RecordingInfo,
+    rate_hz: float,
+    sources: int,
+    prefilter: stream.PreFilter | None = None,
+) -> stream.Feeder:
+    """The read-ahead thread and its ring of ``sources`` signals at the stream rate."""
+    capacity = max(4 * options.block_frames, round(options.read_ahead_s * rate_hz))
+    buffer = ring.BlockRing(sources, capacity, info.channels)
+    return stream.Feeder(info, buffer, CHUNK_FRAMES, info.channels, prefilter)
 
 
-def _read_ahead(
+def _prefilter(
     options: ListenOptions,
     info: RecordingInfo,
     rate_hz: float,
     chains: tuple[list[np.ndarray], list[np.ndarray]],
-    output_safety: safety.OutputSafety,
-    pairs: int,
     say: Callable[[str], None],
-) -> tuple[stream.StreamCore, stream.PreFilter, stream.Feeder, capture_mod.CapturePlan | None]:
-    """The read-ahead path: the twins (and the ADC capture) in the read-ahead thread."""
+) -> tuple[stream.PreFilter, capture_mod.CapturePlan | None]:
+    """The twins (and the ADC capture) at the recording's rate, for the read-ahead thread."""
     sos, levels = chains
-    channels = info.channels
-    width = (len(sos) + 1) * channels  # every chain and the dry input, side by side
+    width = (len(sos) + 1) * info.channels  # every chain and the dry input, side by side
     up, down = ratio(info.rate_hz, rate_hz)
     resampler = capture_mod.resampler(up, down, width)
     plan = adc = None
     if options.adc_rate_hz is not None:
         plan = capture_mod.plan_capture(options.adc_rate_hz, info.rate_hz, rate_hz, str(info.path))
         adc = capture_mod.AdcCapture(plan, width, capture_mod.lag_s(resampler, info.rate_hz))
-    captures = 0 if plan is None else len(sos) + 1
-    pre_runner = engine.CascadeRunner(sos, channels, CHUNK_FRAMES, levels)
-    prefilter = stream.PreFilter(pre_runner, resampler, adc)
-    capacity = max(4 * options.block_frames, round(options.read_ahead_s * rate_hz))
-    buffer = ring.BlockRing(len(sos) + 1 + captures, capacity, channels)
-    feeder = stream.Feeder(info, buffer, CHUNK_FRAMES, channels, prefilter)
-    core = stream.StreamCore(
-        n_chains=len(sos), channels=channels, block_frames=options.block_frames,
-        rate_hz=rate_hz, runner=None, ring=buffer, safety=output_safety, pairs=pairs,
-        fade_s=options.fade_s, captures=captures,
-    )  # fmt: skip
+    runner = engine.CascadeRunner(sos, info.channels, CHUNK_FRAMES, levels)
     if resampler is not None:
         say(
             f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
@@ -358,7 +372,7 @@ def _read_ahead(
             f"{plan.adc_rate_hz:g} Hz with no filter of its own, played back band-limited at "
             f"{rate_hz:g} Hz"
         )
-    return core, prefilter, feeder, plan
+    return stream.PreFilter(runner, resampler, adc), plan
 
 
 def prepare(
@@ -375,14 +389,13 @@ def prepare(
         One line for every problem a user can fix: PortAudio missing, no device, the
         device's rate or channels, the recording, the designs, the blind-trial settings.
     """
+    check_options(options, len(named_designs))
     sd = devices.load_sounddevice() if sd is None else sd
     candidates = cands.make_candidates(named_designs)
     pair_ways = cands.output_ways(candidates) if options.ways_out else routing.STEREO_MIX
     out_channels = 2 * max(1, len(pair_ways))
     info = _inspect_input(options) if options.input_path is not None else None
-    if options.adc_rate_hz is not None:
-        if info is None:
-            raise UserInputError(ADC_NEEDS_RECORDING)
+    if info is not None and options.adc_rate_hz is not None:
         capture_mod.check_adc_rate(options.adc_rate_hz, info.rate_hz, str(info.path))
     direction: devices.Direction = "output" if info is not None else "duplex"
     device = devices.find_device(options.device, direction, sd)
@@ -406,37 +419,31 @@ def prepare(
     match = _match(options, candidates, twins, program, processing_rate_hz)
 
     warm_up()
-    output_safety = safety.OutputSafety(
-        rate_hz, options.level_db, options.ceiling_dbfs, ramp_s=options.ramp_s
-    )
     block = options.block_frames
-    feeder = None
-    plan = None
-    host: ChainHost
+    runner = prefilter = plan = feeder = None
+    captures = 0
     if in_callback:
         runner = engine.CascadeRunner(sos, in_channels, block, levels, dtype=np.float32)
-        buffer = None
         if info is not None:
-            capacity = max(4 * block, round(options.read_ahead_s * rate_hz))
-            buffer = ring.BlockRing(1, capacity, in_channels)
-            feeder = stream.Feeder(info, buffer, CHUNK_FRAMES, in_channels)
-        core = stream.StreamCore(
-            n_chains=len(sos), channels=in_channels, block_frames=block, rate_hz=rate_hz,
-            runner=runner, ring=buffer, safety=output_safety, pairs=out_channels // 2,
-            fade_s=options.fade_s,
-        )  # fmt: skip
-        host = core
+            feeder = _feeder(options, info, rate_hz, 1)
     else:
         assert info is not None
-        core, host, feeder, plan = _read_ahead(
-            options, info, rate_hz, (sos, levels), output_safety, out_channels // 2, say
-        )
+        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say)
+        captures = 0 if plan is None else len(sos) + 1
+        feeder = _feeder(options, info, rate_hz, len(sos) + 1 + captures, prefilter)
+    core = stream.StreamCore(
+        n_chains=len(sos), channels=in_channels, block_frames=block, rate_hz=rate_hz,
+        runner=runner, ring=None if feeder is None else feeder.ring,
+        safety=safety.OutputSafety(rate_hz, options.level_db, options.ceiling_dbfs, options.ramp_s),
+        pairs=out_channels // 2, fade_s=options.fade_s, captures=captures,
+    )  # fmt: skip
     core.prime()
+    host: ChainHost = core if prefilter is None else prefilter
     session = ListenSession(
         candidates, twins, core, host, processing_rate_hz, match, pair_ways, program, blind, say,
         capture_plan=plan,
     )  # fmt: skip
     return Player(
         sd=sd, device=device, options=options, rate_hz=rate_hz, core=core, session=session,
-        feeder=feeder, in_channels=in_channels,
+        feeder=feeder,
     )  # fmt: skip

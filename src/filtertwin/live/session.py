@@ -19,7 +19,7 @@ import numpy as np
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture, edits, keys, matching, routing
-from filtertwin.live.blind import BlindSession, describe_score
+from filtertwin.live.blind import BlindSession, buttons, describe_score
 from filtertwin.live.chains import ChainHost, ChainSwapper
 from filtertwin.live.mixer import SUM, Selection
 from filtertwin.live.safety import MAX_LEVEL_DB, MIN_LEVEL_DB, OutputSafety
@@ -76,7 +76,6 @@ class ListenSession:
         self.candidates = list(candidates)
         self.twins = list(twins)
         self.core = core
-        self.safety: OutputSafety = core.safety
         self.swapper = ChainSwapper(host)
         self.processing_rate_hz = processing_rate_hz
         self.match = match
@@ -92,6 +91,11 @@ class ListenSession:
         self.capture_plan = capture_plan
         self.capture_on = False
         self.layout = cands.layout(self.candidates, match.gains, match.bypass_gain)
+
+    @property
+    def safety(self) -> OutputSafety:
+        """The stream's output safety (level and ceiling)."""
+        return self.core.safety
 
     # --- starting and the mix ---------------------------------------------------------------
 
@@ -254,7 +258,7 @@ class ListenSession:
     def blind_buttons(self) -> tuple[str, ...]:
         """The choices to listen to in the blind trials."""
         assert self.blind is not None
-        return ("A", "B", "X") if self.blind.plan.kind == "abx" else ("1", "2")
+        return buttons(self.blind.plan.kind)
 
     def _hear_button(self, button: str) -> None:
         assert self.blind is not None
@@ -366,7 +370,7 @@ class ListenSession:
         all_sos, all_levels = cands.chains([*self.twins[:index], twin, *self.twins[index + 1 :]])
         self.swapper.swap(changes, all_sos, all_levels)
         self.twins[index] = twin
-        self.candidates[index] = cands.with_design(self.candidates[index], design)
+        self.candidates[index] = replace(self.candidates[index], design=design)  # same ways
         self.edits_made += 1
 
     def _rematch(self) -> None:

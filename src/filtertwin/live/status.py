@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from filtertwin.live.candidates import chain_index
 from filtertwin.live.session import ListenSession
 from filtertwin.live.stream import BLOCKS, CPU_HISTORY, STARVED_FRAMES, XRUNS
 
@@ -160,7 +161,7 @@ class StatusReader:
         index = self.session.selection.candidate
         if index is None:
             return ()
-        first = sum(len(c.ways) for c in self.session.candidates[:index])
+        first = chain_index(self.session.candidates, index, 0)
         twin = self.session.twins[index]
         flags = []
         for k, way in enumerate(self.session.candidates[index].ways):
@@ -182,7 +183,7 @@ class StatusReader:
         offset = core.n_chains if captured else 0
         peaks: list[tuple[str, float]] = []
         if index is not None:
-            first = offset + sum(len(c.ways) for c in session.candidates[:index])
+            first = offset + chain_index(session.candidates, index, 0)
             peaks = [
                 (way, float(core.meters[first + k]))
                 for k, way in enumerate(session.candidates[index].ways)

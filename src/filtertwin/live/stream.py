@@ -6,7 +6,8 @@ opens. Per block the callback only copies, multiplies and adds into those arrays
 1. the input block: from the read-ahead ring (a recording) or from ``indata`` (live input);
 2. every chain's output: the :class:`~filtertwin.engine.CascadeRunner` filters the block
    (or, when the read-ahead thread already filtered it, the ring carries the outputs);
-3. one :class:`~filtertwin.live.mixer.SelectionMixer` per output pair (crossfades);
+3. one :class:`~filtertwin.live.mixer.SelectionMixer` per output pair (crossfades), each
+   writing straight into its two output columns (a mono input into both);
 4. :class:`~filtertwin.live.safety.OutputSafety` on the whole output, last;
 5. peak meters (falling at ``METER_FALL_DB_PER_S``), counters and the callback's own time.
 
@@ -130,7 +131,6 @@ class StreamCore:
         if captures and runner is not None:
             raise ValueError("capture sources come from the ring: give no runner with them")
         self.n_chains = n_chains
-        self.captures = captures
         mixed = n_chains + captures
         self.dry_meter = mixed
         """Index of the dry input's peak in :attr:`meters` (the output's is the next)."""
@@ -146,9 +146,7 @@ class StreamCore:
         self.dry = self.sources[n_sources - 1]
         self._ring_chains = self.sources[:mixed]
         self.mixers = [SelectionMixer(mixed, rate_hz, fade_s) for _ in range(pairs)]
-        self.mix = np.zeros((pairs, block_frames, channels), dtype=np.float32)
-        self._pair_slices = [slice(2 * p, 2 * p + 2) for p in range(pairs)]
-        self._mix_in_place = pairs == 1 and channels == 2
+        self._mixer_columns = [(mixer, 2 * p) for p, mixer in enumerate(self.mixers)]
         self.meters = np.zeros(mixed + 2)
         self._fall = 10.0 ** (-METER_FALL_DB_PER_S * block_frames / rate_hz / 20.0)
         self.counters = np.zeros(4, dtype=np.int64)
@@ -208,12 +206,8 @@ class StreamCore:
             np.copyto(self.dry, indata)
         runner = self.runner
         chains = self._ring_chains if runner is None else runner.process(self.dry)
-        if self._mix_in_place:
-            self.mixers[0].process(chains, self.dry, outdata)
-        else:
-            for mixer, mix, pair in zip(self.mixers, self.mix, self._pair_slices, strict=True):
-                mixer.process(chains, self.dry, mix)
-                np.copyto(outdata[:, pair], mix)
+        for mixer, column in self._mixer_columns:
+            mixer.process(chains, self.dry, outdata, column, 2)
         self.safety.process(outdata)
         _meter_kernel(chains, self.dry, outdata, self.meters, self._fall)
         done = counters[BLOCKS]
