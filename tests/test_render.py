@@ -17,7 +17,7 @@ from filtertwin import cli, examples, outputs, recordings, render
 from filtertwin.commands import render as render_command
 from filtertwin.design import build_design
 from filtertwin.errors import UserInputError
-from filtertwin.live.resample import design_filter
+from filtertwin.live.resample import StreamResampler, design_filter
 from filtertwin.spec import load_design
 from filtertwin.twin import build_twin
 
@@ -117,7 +117,7 @@ def test_oversampled_render_equals_the_upfirdn_sosfilt_pipeline():
 @pytest.mark.parametrize("factor", [2, 3, 8])
 def test_streaming_resamplers_match_resample_poly(factor):
     x = _noise(700, channels=2, level=1.0)
-    up = render.IntegerResampler(factor, 1, 2)
+    up = StreamResampler(factor, 1, 2)
     zero_crossings = round(up.lag_frames)
     padded = np.concatenate([x, np.zeros((zero_crossings, 2))])
     got_up = np.concatenate([up.process(b) for b in np.array_split(padded, 9)])
@@ -127,7 +127,7 @@ def test_streaming_resamplers_match_resample_poly(factor):
         got_up[delay_hi : delay_hi + len(expected_up)], expected_up, rtol=0, atol=1e-12
     )
     high = _noise(700 * factor, channels=2, level=1.0, seed=4)
-    down = render.IntegerResampler(1, factor, 2)
+    down = StreamResampler(1, factor, 2)
     padded_hi = np.concatenate([high, np.zeros((delay_hi, 2))])
     sizes = [factor * k for k in (1, 5, 33)]
     pieces, start, k = [], 0, 0
@@ -147,7 +147,7 @@ def test_resampling_filter_is_the_one_resample_poly_applies():
     factor = 4
     impulse = np.zeros(64)
     impulse[32] = 1.0
-    h = design_filter(1, factor)  # the FIR render's IntegerResampler applies
+    h = design_filter(1, factor)  # the FIR render's StreamResampler applies
     # resample_poly of a unit impulse, up by `factor`, is its FIR (times `factor`) centred
     response = scipy.signal.resample_poly(impulse, factor, 1)
     centre = 32 * factor

@@ -5,12 +5,12 @@ through all filters of the twin at once (:class:`filtertwin.engine.CascadeRunner
 input as heard, each filter's output and, for a crossover, the sum of the ways are written as
 they come. Memory depends on the block size, never on the length of the recording.
 
-When the twin runs oversampled, :class:`IntegerResampler` resamples the stream up and each
-filter's output down with the FIR design of ``scipy.signal.resample_poly`` (Kaiser window,
-beta 5, 10 zero crossings per side at the lower rate) and carries its state across blocks,
-so the output does not depend on the block size. Their combined delay
-(:attr:`TwinStream.delay_frames`) is removed, so every output lines up with the input sample
-for sample.
+When the twin runs oversampled, :class:`filtertwin.live.resample.StreamResampler` resamples
+the stream up and each filter's output down with the FIR design of
+``scipy.signal.resample_poly`` (Kaiser window, beta 5, 10 zero crossings per side at the lower
+rate) and carries its state across blocks, so the output does not depend on the block size.
+Their combined delay (:attr:`TwinStream.delay_frames`) is removed, so every output lines up
+with the input sample for sample.
 
 Outputs are written under temporary names and renamed only when every output is complete;
 a failure leaves none of them behind.
@@ -28,19 +28,17 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-import scipy.signal
 import soundfile
 
 from filtertwin import outputs, recordings
 from filtertwin.engine import CascadeRunner
 from filtertwin.errors import UserInputError
-from filtertwin.live.resample import design_filter
+from filtertwin.live.resample import StreamResampler
 from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.spectra import Spectrum, WelchAccumulator, segment_frames
 from filtertwin.twin import Twin
 
 __all__ = [
-    "IntegerResampler",
     "PlannedOutput",
     "RenderResult",
     "RenderSettings",
@@ -62,61 +60,6 @@ Progress = Callable[[int, int], None]
 
 
 # --- streaming resampling ----------------------------------------------------------------
-
-
-class IntegerResampler:
-    """Rate change by an integer factor, up ``(factor, 1)`` or down ``(1, factor)``, in blocks.
-
-    The samples of :class:`filtertwin.live.resample.StreamResampler` with the same ``up`` and
-    ``down`` (the FIR of ``scipy.signal.resample_poly``, causal, state carried across blocks),
-    computed by ``scipy.signal.upfirdn`` on the kept history plus the block, which is 15 to
-    20 times faster than that class at render block sizes (measured at 16384 frames).
-
-    Parameters
-    ----------
-    up, down : int
-        One of them 1, the other the factor (at least 2 for a rate change).
-    channels : int
-        Channels per frame.
-
-    Raises
-    ------
-    ValueError
-        If neither ``up`` nor ``down`` is 1.
-
-    References
-    ----------
-    ``scipy.signal.upfirdn`` (the polyphase kernel) and ``scipy.signal.resample_poly`` (the
-    filter, :func:`filtertwin.live.resample.design_filter`).
-    """
-
-    def __init__(self, up: int, down: int, channels: int) -> None:
-        if min(up, down) != 1:
-            raise ValueError(f"up or down must be 1, got {up}/{down}")
-        self.up, self.down = up, down
-        self._h = design_filter(up, down)
-        self._history = np.zeros(((len(self._h) - 1) // up, channels))
-
-    @property
-    def lag_frames(self) -> float:
-        """How many input frames the output lags (the centre of the symmetric FIR)."""
-        return (len(self._h) - 1) / 2 / self.up
-
-    def process(self, block: np.ndarray) -> np.ndarray:
-        """``(frames, channels)`` in, ``(frames * up / down, channels)`` out.
-
-        When decimating, every block must hold a whole number of ``down`` frames.
-        """
-        if len(block) % self.down:
-            raise ValueError(f"block of {len(block)} frames is not a multiple of {self.down}")
-        data = np.concatenate([self._history, block])
-        start = len(self._history) * self.up // self.down  # outputs with a full history
-        out = scipy.signal.upfirdn(self._h, data, self.up, self.down, axis=0)
-        self._history = data[len(block) :]
-        return out[start : start + len(block) * self.up // self.down]
-
-
-# --- the twin as a stream ----------------------------------------------------------------
 
 
 class TwinStream:
@@ -155,12 +98,12 @@ class TwinStream:
         self._runner = CascadeRunner(
             twin.chains(), channels, max_frames * factor, clip_levels=levels
         )
-        self._up: IntegerResampler | None = None
-        self._down: list[IntegerResampler] = []
+        self._up: StreamResampler | None = None
+        self._down: list[StreamResampler] = []
         self.delay_frames = 0
         if factor > 1:
-            self._up = IntegerResampler(factor, 1, channels)
-            self._down = [IntegerResampler(1, factor, channels) for _ in twin.filters]
+            self._up = StreamResampler(factor, 1, channels)
+            self._down = [StreamResampler(1, factor, channels) for _ in twin.filters]
             self.delay_frames = round(self._up.lag_frames + self._down[0].lag_frames / factor)
         self._skip = self.delay_frames
 

@@ -61,6 +61,9 @@ def design_filter(up: int, down: int) -> np.ndarray:
 class StreamResampler:
     """Resample ``(frames, channels)`` blocks by ``up / down``, keeping state between them.
 
+    Each block is computed by :func:`scipy.signal.upfirdn` on the kept history plus the block
+    (the filter is causal: the output lags by :attr:`lag_frames`).
+
     Parameters
     ----------
     up, down : int
@@ -88,11 +91,11 @@ class StreamResampler:
         self.up, self.down = up // g, down // g
         self.channels = channels
         self.taps = design_filter(self.up, self.down) if taps is None else np.asarray(taps, float)
-        self._per_phase = -(-len(self.taps) // self.up)
-        padded = np.zeros(self.up * self._per_phase)
-        padded[: len(self.taps)] = self.taps
-        self._phases = padded.reshape(self._per_phase, self.up).T.copy()  # [p, j] = h[p + j up]
-        self._history = np.zeros((self._per_phase - 1, channels))
+        # inputs each output needs besides the newest; the kept history starts at an absolute
+        # input index that is a multiple of `down`, so upfirdn's output grid lines up with ours
+        self._keep = -(-len(self.taps) // self.up) - 1
+        start = -(-self._keep // self.down) * self.down
+        self._history = np.zeros((start, channels))
         self._frames_in = 0
         self._frames_out = 0
 
@@ -117,16 +120,18 @@ class StreamResampler:
         block = np.asarray(block, dtype=np.float64)
         if block.ndim != 2 or block.shape[1] != self.channels:
             raise ValueError(f"block must have shape (frames, {self.channels}), got {block.shape}")
-        keep = self._per_phase - 1
         joined = np.concatenate([self._history, block])
+        first_in = self._frames_in - len(self._history)  # absolute index of joined[0]
         total = self._frames_in + len(block)
         end = (total * self.up - 1) // self.down + 1 if total else 0
-        positions = np.arange(self._frames_out, end, dtype=np.int64) * self.down
-        newest = positions // self.up - (self._frames_in - keep)
-        rows = newest[:, None] - np.arange(self._per_phase)[None, :]
-        out = np.einsum("mj,mjc->mc", self._phases[positions % self.up], joined[rows])
-        if keep:
-            self._history = joined[len(joined) - keep :].copy()
+        if end == self._frames_out:
+            out = np.zeros((0, self.channels))
+        else:
+            y = signal.upfirdn(self.taps, joined, self.up, self.down, axis=0)
+            first_out = first_in * self.up // self.down
+            out = y[self._frames_out - first_out : end - first_out]
+        cut = (total - self._keep) // self.down * self.down
+        self._history = joined[cut - first_in :].copy()
         self._frames_in = total
         self._frames_out = end
         return out
