@@ -209,25 +209,18 @@ def _drop_peak_chunk(file: sf.SoundFile) -> None:
         sf._snd.sf_command(file._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, sf._snd.SF_FALSE)
 
 
-def write_csv(
-    path: str | os.PathLike[str],
-    data: np.ndarray,
-    rate_hz: float,
-    names: Iterable[str],
-    *,
-    protect: Iterable[str | os.PathLike[str]] = (),
-) -> None:
-    """Write a sensor capture as CSV: header ``time_s,<names>``, one row per frame.
+class CsvWriter:
+    """A sensor capture written as CSV block by block: header ``time_s,<names>``, a row a frame.
 
     Times are written to the nanosecond (``%.9f``), values with 9 significant digits, which
-    reproduces float32 data exactly.
+    reproduces float32 data exactly. Like :class:`SafeWriter`, the file is written under a
+    temporary name and renamed by :meth:`close` (or on leaving a ``with`` block cleanly);
+    :meth:`discard` (or an exception in the block) removes it.
 
     Parameters
     ----------
     path : path-like
-        Output file; written under a temporary name, then renamed.
-    data : numpy.ndarray
-        Shape ``(frames,)`` or ``(frames, channels)``.
+        Output file.
     rate_hz : float
         Sample rate in Hz; row ``n`` gets time ``n / rate_hz`` seconds.
     names : iterable of str
@@ -240,25 +233,86 @@ def write_csv(
     UserInputError
         Non-positive rate, protected target, missing folder.
     """
+
+    def __init__(
+        self,
+        path: str | os.PathLike[str],
+        rate_hz: float,
+        names: Iterable[str],
+        *,
+        protect: Iterable[str | os.PathLike[str]] = (),
+    ) -> None:
+        self.names = tuple(names)
+        if any(re.search(r'[,"\r\n]', n) for n in self.names):
+            raise ValueError(f"need plain column names, got {self.names}")
+        if not (np.isfinite(rate_hz) and rate_hz > 0):
+            raise UserInputError(
+                f"{path}: sample rate {rate_hz} Hz must be a positive number; give it in Hz"
+            )
+        self.path = Path(path)
+        self.rate_hz = rate_hz
+        self.frames = 0
+        self._formats = ["%.9f"] + ["%.9g"] * len(self.names)
+        self._context = atomic_path(path, protect=protect)
+        self._temporary = self._context.__enter__()
+        self._fh = open(self._temporary, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
+        self._fh.write(",".join(("time_s", *self.names)) + "\n")
+
+    def write(self, block: np.ndarray) -> None:
+        """Append ``(frames,)`` or ``(frames, channels)`` samples."""
+        values = np.asarray(block, dtype=np.float64).reshape(len(block), -1)
+        if values.shape[1] != len(self.names):
+            raise ValueError(f"need {len(self.names)} columns, got {values.shape[1]}")
+        for start in range(0, len(values), _CSV_WRITE_ROWS):
+            chunk = values[start : start + _CSV_WRITE_ROWS]
+            times = (self.frames + np.arange(len(chunk))) / self.rate_hz
+            np.savetxt(self._fh, np.column_stack([times, chunk]), fmt=self._formats, delimiter=",")
+            self.frames += len(chunk)
+
+    def close(self) -> None:
+        """Finish the file and give it its name (safe to call twice)."""
+        if not self._fh.closed:
+            self._fh.close()
+            self._context.__exit__(None, None, None)
+
+    def discard(self) -> None:
+        """Remove the unfinished file (safe to call twice)."""
+        if not self._fh.closed:
+            self._fh.close()
+            self._temporary.unlink(missing_ok=True)
+
+    def __enter__(self) -> CsvWriter:
+        return self
+
+    def __exit__(self, exc_type: object, exc: object, traceback: object) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self.discard()
+
+
+def write_csv(
+    path: str | os.PathLike[str],
+    data: np.ndarray,
+    rate_hz: float,
+    names: Iterable[str],
+    *,
+    protect: Iterable[str | os.PathLike[str]] = (),
+) -> None:
+    """Write a whole sensor capture as CSV (see :class:`CsvWriter` for the layout).
+
+    Raises
+    ------
+    UserInputError
+        Non-positive rate, protected target, missing folder.
+    """
     values = np.asarray(data, dtype=np.float64)
     values = values.reshape(len(values), -1)
     names = tuple(names)
-    if len(names) != values.shape[1] or any(re.search(r'[,"\r\n]', n) for n in names):
+    if len(names) != values.shape[1]:
         raise ValueError(f"need {values.shape[1]} plain column names, got {names}")
-    if not (np.isfinite(rate_hz) and rate_hz > 0):
-        raise UserInputError(
-            f"{path}: sample rate {rate_hz} Hz must be a positive number; give it in Hz"
-        )
-    formats = ["%.9f"] + ["%.9g"] * values.shape[1]
-    with (
-        atomic_path(path, protect=protect) as temporary,
-        open(temporary, "w", encoding="utf-8", newline="\n") as fh,
-    ):
-        fh.write(",".join(("time_s", *names)) + "\n")
-        for start in range(0, len(values), _CSV_WRITE_ROWS):
-            chunk = values[start : start + _CSV_WRITE_ROWS]
-            times = (start + np.arange(len(chunk))) / rate_hz
-            np.savetxt(fh, np.column_stack([times, chunk]), fmt=formats, delimiter=",")
+    with CsvWriter(path, rate_hz, names, protect=protect) as writer:
+        writer.write(values)
 
 
 def write_npy(

@@ -362,35 +362,6 @@ class RenderResult:
     elapsed_s: float = 0.0
 
 
-class _CsvWriter:
-    """A streaming CSV output in the layout of :func:`filtertwin.outputs.write_csv`."""
-
-    def __init__(self, path: Path, rate_hz: float, names: Sequence[str], protect: Path) -> None:
-        self.path = path
-        self.rate_hz = rate_hz
-        self.frames = 0
-        self._context = outputs.atomic_path(path, protect=[protect])
-        self._temporary = self._context.__enter__()
-        self._fh = open(self._temporary, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
-        self._fh.write(",".join(("time_s", *names)) + "\n")
-        self._formats = ["%.9f"] + ["%.9g"] * len(names)
-
-    def write(self, block: np.ndarray) -> None:
-        times = (self.frames + np.arange(len(block))) / self.rate_hz
-        np.savetxt(self._fh, np.column_stack([times, block]), fmt=self._formats, delimiter=",")
-        self.frames += len(block)
-
-    def close(self) -> None:
-        if not self._fh.closed:
-            self._fh.close()
-            self._context.__exit__(None, None, None)
-
-    def discard(self) -> None:
-        if not self._fh.closed:
-            self._fh.close()
-            self._temporary.unlink(missing_ok=True)
-
-
 _WRITE_QUEUE_BLOCKS = 4  # blocks waiting per output file: bounded memory
 
 
@@ -402,9 +373,11 @@ class _Output:
         self.subtype = subtype
         self.peak = np.zeros(info.channels)
         self.over = 0
-        self.writer: outputs.SafeWriter | _CsvWriter
+        self.writer: outputs.SafeWriter | outputs.CsvWriter
         if subtype is None:
-            self.writer = _CsvWriter(planned.path, info.rate_hz, info.channel_names, info.path)
+            self.writer = outputs.CsvWriter(
+                planned.path, info.rate_hz, info.channel_names, protect=[info.path]
+            )
         else:
             self.writer = outputs.SafeWriter(
                 planned.path, info.rate_hz, info.channels, subtype=subtype, protect=[info.path]
