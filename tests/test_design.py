@@ -154,3 +154,35 @@ def test_as_built_circuit_reports_its_f0_q_and_nearest_alignment():
     assert f.resembles.alignment == "butterworth" and f.resembles.order == 4
     assert f.resembles.distance < 0.01
     assert f.resembles.corner_scale == pytest.approx(1 / (2 * math.pi * 10e3 * c), rel=1e-3)
+
+
+def test_a_stage_made_sensitive_by_its_part_spread_is_warned_about():
+    # unity-gain low-pass, R1 C1 / (R2 C2) = 48: dQ/dK = Q^2 sqrt(R1 C1 / (R2 C2)) is about 190
+    # (from the textbook Q formula), so even a 3 MHz amplifier (250 x f0 Q) moves it
+    stage = {"R1": "27k", "R2": "1k2", "C1": "47n", "C2": "470p"}
+    spec = {
+        "amplifier": {"preset": "general-purpose JFET input"},
+        "filter": [{"name": "spread", "response": "lowpass", "stage": [stage]}],
+    }
+    d = build_design(parse_design(spec, "<test>"))
+    s = d.filters[0].stages[0]
+    assert s.built.f0_hz < 0.97 * s.ideal.f0_hz  # nodal solve with the amplifier model
+    text = " ".join(str(w) for w in d.warnings)
+    assert "sensitive to the amplifier" in text and "the amplifier moves f0 -4.4 %" in text
+
+
+def test_synthesis_with_the_amplifier_model_picks_parts_that_stay_on_target_as_built():
+    spec = {
+        "parts": {"resistors": "E24", "capacitors": "E6"},
+        "amplifier": {"preset": "general-purpose JFET input"},
+        "filter": [
+            {"name": "lp", "response": "lowpass", "alignment": "chebyshev", "ripple_db": 1.0,
+             "order": 3, "corner": "6 kHz"}
+        ],
+    }  # fmt: skip
+    d = build_design(parse_design(spec, "<test>"))
+    for s in d.filters[0].stages:
+        assert s.built.f0_hz == pytest.approx(s.target.f0_hz, rel=0.02)
+        if not math.isnan(s.target.q):
+            assert s.built.q == pytest.approx(s.target.q, rel=0.02)
+    assert d.warnings == ()

@@ -27,6 +27,9 @@ Section = tuple[np.ndarray, np.ndarray]  # (b, a) polynomials in s, highest powe
 
 # common practice (no single source): gain-bandwidth should be 50x to 100x above K * f0 * Q
 GBW_FACTOR = 50.0
+# an amplifier that moves a stage's f0 or Q by more than this (percent) is worth a warning:
+# more than the rounding of 1 % parts moves it
+AMP_SHIFT_PCT = 1.0
 # common practice: an internal peak more than 3 dB above the passband gain costs headroom
 PEAK_MARGIN_DB = 3.0
 
@@ -213,7 +216,7 @@ def _ordered(items: list, f: FilterSpec, q_of) -> list:
 
 
 def _synthesised_circuits(
-    f: FilterSpec, rules: PartRules, source: str
+    f: FilterSpec, rules: PartRules, source: str, amp: Amplifier | None
 ) -> list[tuple[StageCircuit, Target]]:
     targets = _ordered(_targets(f), f, lambda rt: rt[1].q)
     k_each = f.gain ** (1.0 / len(targets)) if f.topology == "gain" else 1.0
@@ -224,7 +227,7 @@ def _synthesised_circuits(
         if topology == "equal" and order == 1:
             topology = "unity"
         try:
-            circuit = synthesize(response, order, topology, t.f0_hz, t.q, k_each, rules)
+            circuit = synthesize(response, order, topology, t.f0_hz, t.q, k_each, rules, amp)
         except SynthesisError as exc:
             q_txt = "" if order == 1 else f", Q {t.q:.4g}"
             raise UserInputError(
@@ -285,6 +288,32 @@ def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
     return prototypes.nearest_alignment(secs)
 
 
+def _amplifier_warnings(name: str, s: Stage, amp: Amplifier) -> list[DesignWarning]:
+    """Warn when the amplifier's gain-bandwidth is short of the rule of thumb, or when it
+    moves the stage more than the parts' rounding would (a stage with a wide spread of parts
+    can be that sensitive even with a fast amplifier)."""
+    q = 0.5 if math.isnan(s.ideal.q) else s.ideal.q
+    need = GBW_FACTOR * s.ideal.gain * s.ideal.f0_hz * max(q, 0.5)
+    f0_shift = 100 * (s.built.f0_hz / s.ideal.f0_hz - 1)
+    q_shift = 0.0 if math.isnan(s.ideal.q) else 100 * (s.built.q / s.ideal.q - 1)
+    moves = f"the amplifier moves f0 {f0_shift:+.1f} %"
+    moves += "" if math.isnan(s.ideal.q) else f", Q {q_shift:+.1f} %"
+    if amp.gbw_hz < need:
+        text = (
+            f"gain-bandwidth {amp.gbw_hz:.3g} Hz is below {GBW_FACTOR:.0f} x K x f0 "
+            f"x Q = {need:.3g} Hz (common practice); {moves}"
+        )
+    elif max(abs(f0_shift), abs(q_shift)) > AMP_SHIFT_PCT:
+        text = (
+            f"{moves} although gain-bandwidth is {amp.gbw_hz / need * GBW_FACTOR:.0f} x K x f0 "
+            "x Q: the spread of this stage's parts makes it sensitive to the amplifier; "
+            "a faster amplifier or closer part values help"
+        )
+    else:
+        return []
+    return [DesignWarning(name, s.index, text)]
+
+
 def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[DesignWarning]:
     out = []
     lo, hi = parts.resistor_range_ohm
@@ -301,24 +330,7 @@ def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[Design
                     )
                 )
         if amp is not None:
-            q = 0.5 if math.isnan(s.ideal.q) else s.ideal.q
-            need = GBW_FACTOR * s.ideal.gain * s.ideal.f0_hz * max(q, 0.5)
-            if amp.gbw_hz < need:
-                shift = 100 * (s.built.f0_hz / s.ideal.f0_hz - 1)
-                qtxt = (
-                    ""
-                    if math.isnan(s.ideal.q)
-                    else f", Q {100 * (s.built.q / s.ideal.q - 1):+.1f} %"
-                )
-                out.append(
-                    DesignWarning(
-                        f.name,
-                        s.index,
-                        f"gain-bandwidth {amp.gbw_hz:.3g} Hz is below {GBW_FACTOR:.0f} x K x f0 "
-                        f"x Q = {need:.3g} Hz (common practice); the amplifier moves f0 "
-                        f"{shift:+.1f} %{qtxt}",
-                    )
-                )
+            out += _amplifier_warnings(f.name, s, amp)
         excess = s.peak_gain_db - passband_db
         if excess > PEAK_MARGIN_DB and s.index < len(f.stages):
             clip = (
@@ -361,7 +373,7 @@ def build_design(spec: DesignSpec) -> Design:
         if fs.kind == "built":
             circuits: list = _built_circuits(fs)
         else:
-            circuits = _synthesised_circuits(fs, rules, spec.source)
+            circuits = _synthesised_circuits(fs, rules, spec.source, amp)
         stages = _stages(circuits, amp, spec.full_scale_v)
         resembles = _resembles(stages) if fs.kind == "built" else None
         filt = Filter(fs.name, fs.response, fs.polarity, stages, fs, resembles)

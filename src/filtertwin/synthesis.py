@@ -11,12 +11,13 @@ combination wins. The search is vectorised over all candidates at once.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
 from filtertwin import eseries
-from filtertwin.sallenkey import StageCircuit, f0_q
+from filtertwin.sallenkey import Amplifier, StageCircuit, analyze, f0_q
 
 
 class SynthesisError(ValueError):
@@ -62,6 +63,8 @@ class PartRules:
 # Score weights: f0 and Q errors dominate; spread and impedance only break near-ties.
 _W_SPREAD = 1e-3
 _W_CENTRE = 1e-4
+# With an amplifier model, this many of the best ideal candidates are analysed as built.
+_AMP_CANDIDATES = 40
 # A stage whose best rounding still misses f0 plus Q by more than this (log sum, about 2 %)
 # cannot be built as asked: the target is out of reach of the allowed parts.
 _MAX_LOG_ERROR = math.log(1.02)
@@ -119,6 +122,7 @@ def synthesize(
     q: float,
     k: float,
     rules: PartRules,
+    amp: Amplifier | None = None,
 ) -> StageCircuit:
     """Choose standard parts for one stage.
 
@@ -135,6 +139,10 @@ def synthesize(
         Amplifier gain for topology "gain" (and for a first-order stage with gain); the
         "equal" topology sets K = 3 - 1/Q itself and "unity" uses K = 1.
     rules : PartRules
+    amp : Amplifier, optional
+        The amplifier the stage will be built with. Among the combinations that come
+        closest with an ideal amplifier, the one closest as built with this amplifier wins:
+        a wide spread of parts can make a stage sensitive to the amplifier's gain-bandwidth.
 
     Returns
     -------
@@ -160,8 +168,8 @@ def synthesize(
     if order == 1:
         return _first_order(response, topology, f0_hz, rules, rf, rg)
     if topology == "equal":
-        return _equal_component(response, f0_hz, q, k_built, rules, rf, rg)
-    return _general(response, topology, f0_hz, q, k_built, rules, rf, rg)
+        return _equal_component(response, f0_hz, q, k_built, rules, rf, rg, amp)
+    return _general(response, topology, f0_hz, q, k_built, rules, rf, rg, amp)
 
 
 def _score(f0, qv, f0_t, q_t, r1, r2, rules, c_ratio=1.0):
@@ -193,10 +201,17 @@ def _first_order(response, topology, f0_hz, rules, rf, rg) -> StageCircuit:
     return StageCircuit(response, 1, topology, r1=float(r[i]), c1=float(c[i]), rf=rf, rg=rg)
 
 
-def _equal_component(response, f0_hz, q, k_built, rules, rf, rg) -> StageCircuit:
+def _equal_component(response, f0_hz, q, k_built, rules, rf, rg, amp) -> StageCircuit:
     r, c = _rc_pairs(f0_hz, rules)
     f0, qv = f0_q(response, r, r, c, c, k_built)
     score, err = _score(f0, qv, f0_hz, q, r, r, rules)
+
+    def make(j: int) -> StageCircuit:
+        return StageCircuit(
+            response, 2, "equal", r1=float(r[j]), c1=float(c[j]), r2=float(r[j]),
+            c2=float(c[j]), rf=rf, rg=rg,
+        )  # fmt: skip
+
     i = int(np.argmin(score))
     if err[i] > _MAX_LOG_ERROR:
         raise SynthesisError(
@@ -205,13 +220,10 @@ def _equal_component(response, f0_hz, q, k_built, rules, rf, rg) -> StageCircuit
             f"magnifies the gain resistors' rounding {q:.2g} times); use gain_resistors = "
             '"E192" or topology "gain"'
         )
-    return StageCircuit(
-        response, 2, "equal", r1=float(r[i]), c1=float(c[i]), r2=float(r[i]), c2=float(c[i]),
-        rf=rf, rg=rg,
-    )  # fmt: skip
+    return _pick(score, err, make, f0_hz, q, amp)
 
 
-def _general(response, topology, f0_hz, q, k_built, rules, rf, rg) -> StageCircuit:
+def _general(response, topology, f0_hz, q, k_built, rules, rf, rg, amp) -> StageCircuit:
     caps = rules.capacitors()
     res = rules.resistors()
     c1, c2 = (a.ravel() for a in np.meshgrid(caps, caps, indexing="ij"))
@@ -236,10 +248,37 @@ def _general(response, topology, f0_hz, q, k_built, rules, rf, rg) -> StageCircu
     i = int(np.argmin(score))
     if not np.isfinite(score[i]) or err[i] > _MAX_LOG_ERROR:
         raise SynthesisError(_unreachable(response, topology, q, k_built, rules))
-    return StageCircuit(
-        response, 2, topology, r1=float(r1[i]), c1=float(cc1[i]), r2=float(r2[i]),
-        c2=float(cc2[i]), rf=rf, rg=rg,
-    )  # fmt: skip
+
+    def make(j: int) -> StageCircuit:
+        return StageCircuit(
+            response, 2, topology, r1=float(r1[j]), c1=float(cc1[j]), r2=float(r2[j]),
+            c2=float(cc2[j]), rf=rf, rg=rg,
+        )  # fmt: skip
+
+    return _pick(score, err, make, f0_hz, q, amp)
+
+
+def _pick(
+    score: np.ndarray,
+    err: np.ndarray,
+    make: Callable[[int], StageCircuit],
+    f0_hz: float,
+    q: float,
+    amp: Amplifier | None,
+) -> StageCircuit:
+    """The best candidate by its ideal-amplifier score, or, given an amplifier, the best as
+    built (exact analysis with that amplifier) among the closest ideal candidates; the score's
+    spread and impedance terms still break near-ties."""
+    best = int(np.argmin(score))
+    if amp is None:
+        return make(best)
+    order = np.argsort(score)[:_AMP_CANDIDATES]
+    order = order[np.isfinite(score[order]) & (err[order] <= _MAX_LOG_ERROR)]
+    as_built = []
+    for j in order:
+        m = analyze(make(int(j)), amp)
+        as_built.append(abs(math.log(m.f0_hz / f0_hz)) + abs(math.log(m.q / q)) + score[j] - err[j])
+    return make(int(order[int(np.argmin(as_built))]))
 
 
 def _unreachable(response, topology, q, k, rules) -> str:
