@@ -7,7 +7,13 @@ from typing import Any
 
 from filtertwin import units
 from filtertwin.design import Design, Filter, Stage
-from filtertwin.twin import FilterTwin, Twin
+from filtertwin.twin import (
+    FIDELITY_TOL_DB,
+    FIDELITY_TOL_DEG,
+    OVERSAMPLING_FACTORS,
+    FilterTwin,
+    Twin,
+)
 
 TOPOLOGY_WORDS = {"unity": "unity-gain", "equal": "equal-component", "gain": "with gain"}
 
@@ -126,6 +132,23 @@ def _fidelity_line(ft: FilterTwin, twin: Twin) -> str:
         f"to {units.format_si(hi, 'Hz', 3)}: within {fid.max_db:.3f} dB (at "
         f"{units.format_si(fid.at_hz, 'Hz', 4)}) and {fid.max_deg:.2f} deg (at "
         f"{units.format_si(fid.at_deg_hz, 'Hz', 4)}) of the analog model{stop}"
+        + _fidelity_hint(ft, twin)
+    )
+
+
+def _fidelity_hint(ft: FilterTwin, twin: Twin) -> str:
+    """What to do when the twin is further from the analog model than the tolerance."""
+    if ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG):
+        return ""
+    if twin.oversampling < OVERSAMPLING_FACTORS[-1]:
+        return (
+            f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg: the bilinear "
+            "transform compresses frequencies near Nyquist; --oversample auto runs the twin at "
+            "a higher rate)"
+        )
+    return (
+        f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg even at "
+        f"{twin.oversampling}x, on a steep skirt at {units.format_si(ft.fidelity.at_hz, 'Hz', 4)})"
     )
 
 
