@@ -21,12 +21,12 @@ from filtertwin.live import candidates as cands
 from filtertwin.live import capture
 from filtertwin.live.keys import Command, command_for_key, parse_command
 from filtertwin.live.matching import no_match
-from filtertwin.live.resample import ratio
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.live.session import ListenSession
 from filtertwin.live.status import StatusReader, status_line
 from filtertwin.live.stream import PreFilter, StreamCore
+from filtertwin.resample import ratio
 from filtertwin.spec import load_design
 from test_live_listen_cli import one_line_error, run
 from test_live_listen_stream import (

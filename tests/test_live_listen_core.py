@@ -13,7 +13,6 @@ from filtertwin.live import candidates as cands
 from filtertwin.live import routing
 from filtertwin.live.matching import no_match
 from filtertwin.live.mixer import Selection
-from filtertwin.live.resample import StreamResampler, design_filter
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety, db_to_gain, float32_at_or_below
 from filtertwin.live.session import ListenSession
@@ -24,6 +23,7 @@ from filtertwin.live.stream import (
     PreFilter,
     StreamCore,
 )
+from filtertwin.resample import StreamResampler, design_filter
 from filtertwin.spec import load_design
 
 RATE_HZ = 48000.0

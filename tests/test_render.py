@@ -17,7 +17,7 @@ from filtertwin import cli, examples, outputs, recordings, render
 from filtertwin.commands import render as render_command
 from filtertwin.design import build_design
 from filtertwin.errors import UserInputError
-from filtertwin.live.resample import StreamResampler, design_filter
+from filtertwin.resample import StreamResampler, design_filter
 from filtertwin.spec import load_design
 from filtertwin.twin import build_twin
 

@@ -5,7 +5,7 @@ through all filters of the twin at once (:class:`filtertwin.engine.CascadeRunner
 input as heard, each filter's output and, for a crossover, the sum of the ways are written as
 they come. Memory depends on the block size, never on the length of the recording.
 
-When the twin runs oversampled, :class:`filtertwin.live.resample.StreamResampler` resamples
+When the twin runs oversampled, :class:`filtertwin.resample.StreamResampler` resamples
 the stream up and each filter's output down with the FIR design of
 ``scipy.signal.resample_poly`` (Kaiser window, beta 5, 10 zero crossings per side at the lower
 rate) and carries its state across blocks, so the output does not depend on the block size.
@@ -33,8 +33,8 @@ import soundfile
 from filtertwin import outputs, recordings
 from filtertwin.engine import CascadeRunner
 from filtertwin.errors import UserInputError
-from filtertwin.live.resample import StreamResampler
 from filtertwin.recordinginfo import RecordingInfo
+from filtertwin.resample import StreamResampler
 from filtertwin.spectra import Spectrum, WelchAccumulator, segment_frames
 from filtertwin.twin import Twin
 

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from filtertwin import resample
 from filtertwin.design import Design, Filter
 from filtertwin.errors import UserInputError
 
@@ -177,14 +178,34 @@ def _sos_response(sos: np.ndarray, f_hz: np.ndarray, rate_hz: float) -> np.ndarr
     return h
 
 
+def resampling_gain(factor: int, f_hz: np.ndarray, rate_hz: float) -> np.ndarray:
+    """Magnitude response of the up- and the down-sampling filter that an oversampled twin
+    runs between (:func:`filtertwin.resample.design_filter`, linear phase, their delay
+    removed); ``rate_hz`` is the oversampled rate. 1 without oversampling."""
+    if factor == 1:
+        return np.ones(np.shape(f_hz))
+    h = resample.design_filter(1, factor)
+    z1 = np.exp(-2j * math.pi * np.outer(np.asarray(f_hz, float), np.arange(len(h))) / rate_hz)
+    return np.abs(z1 @ h) ** 2
+
+
 def measure_fidelity(
-    f: Filter, sos: np.ndarray, rate_hz: float, band_hz: tuple[float, float], amplifier: bool = True
+    f: Filter,
+    sos: np.ndarray,
+    rate_hz: float,
+    band_hz: tuple[float, float],
+    amplifier: bool = True,
+    oversampling: int = 1,
 ) -> Fidelity:
-    """Compare the twin with the analog model over ``band_hz`` (see :class:`Fidelity`)."""
+    """Compare the twin with the analog model over ``band_hz`` (see :class:`Fidelity`).
+
+    With ``oversampling`` > 1 the twin's response includes the resampling filters around it,
+    since that is what an oversampled render plays.
+    """
     lo, hi = band_hz
     grid = np.geomspace(max(lo, 1e-6 * rate_hz), hi, 4000)
     ha = f.frequency_response(grid, amplifier)
-    hd = _sos_response(sos, grid, rate_hz)
+    hd = _sos_response(sos, grid, rate_hz) * resampling_gain(oversampling, grid, rate_hz)
     mag_a = np.abs(ha)
     peak = float(np.max(mag_a))
     inside = mag_a >= peak * 10 ** (-FIDELITY_WINDOW_DB / 20)
@@ -247,7 +268,7 @@ def build_twin(
         run_rate = rate_hz * factor
         for f in chosen:
             sos, stage_of = _filter_sos(f, run_rate, use_amp, band[1], design.spec.source)
-            fid = measure_fidelity(f, sos, run_rate, band, use_amp)
+            fid = measure_fidelity(f, sos, run_rate, band, use_amp, factor)
             twins.append(
                 FilterTwin(f.name, run_rate, sos, _clip_levels(design, stage_of), stage_of, fid)
             )

@@ -14,7 +14,8 @@ Modules (import the one you need; none imports sounddevice at import time):
 
 - ``candidates``, ``routing``, ``matching``: the designs as candidates and ways, where each
   way is heard (stereo mix or one channel pair per way), level matching.
-- ``stream`` (audio callback, read-ahead thread), ``ring``, ``resample``: the real-time path.
+- ``stream`` (audio callback, read-ahead thread), ``ring``: the real-time path (rate changes
+  come from ``filtertwin.resample``).
 - ``session``, ``edits``, ``chains``: what commands do, live part and corner edits, swapping
   rebuilt chains into the running runner.
 - ``status``, ``console``, ``player``: status line and summary, the control loop, assembly.

@@ -39,9 +39,9 @@ from filtertwin.live import capture as capture_mod
 from filtertwin.live import devices, matching, mixer, ring, routing, safety, stream
 from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
-from filtertwin.live.resample import ratio
 from filtertwin.live.session import ListenSession
 from filtertwin.recordinginfo import RecordingInfo
+from filtertwin.resample import ratio
 
 CHUNK_FRAMES = 1024
 MAX_CHANNELS = 2

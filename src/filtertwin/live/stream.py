@@ -35,11 +35,11 @@ import numpy as np
 
 from filtertwin.engine import CascadeRunner
 from filtertwin.live.mixer import SelectionMixer
-from filtertwin.live.resample import StreamResampler
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.recordings import read_blocks
+from filtertwin.resample import StreamResampler
 
 if TYPE_CHECKING:
     from filtertwin.live.capture import AdcCapture
