@@ -14,6 +14,7 @@ import re
 import secrets
 from collections.abc import Iterable, Iterator
 from pathlib import Path
+from typing import Any, Self
 
 import numpy as np
 import soundfile as sf
@@ -94,7 +95,40 @@ def atomic_path(
     os.replace(temporary, final)
 
 
-class SafeWriter:
+class _TemporaryFileWriter:
+    """What every streaming writer here shares: an open handle on a temporary file beside
+    ``path``; :meth:`close` finishes it and gives it its name, :meth:`discard` (or an
+    exception in a ``with`` block) removes it. Both are safe to call twice."""
+
+    path: Path
+    _temporary: Path
+    _handle: Any
+
+    def close(self) -> None:
+        """Finish the file and give it its final name."""
+        if self._handle is not None:
+            self._handle.close()
+            self._handle = None
+            os.replace(self._temporary, self.path)
+
+    def discard(self) -> None:
+        """Abandon the file: delete the temporary and leave ``path`` untouched."""
+        if self._handle is not None:
+            self._handle.close()
+            self._handle = None
+            self._temporary.unlink(missing_ok=True)
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(self, exc_type: object, exc: object, traceback: object) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self.discard()
+
+
+class SafeWriter(_TemporaryFileWriter):
     """Write an audio file under a temporary name; it gets its final name only when complete.
 
     Use it as a context manager: a clean exit renames the file to ``path``, an exception
@@ -155,11 +189,11 @@ class SafeWriter:
         self.frames = 0
         self._float32_as_is = self.subtype == "FLOAT"
         self._temporary = _temporary_path(self.path)
-        self._file: sf.SoundFile | None = sf.SoundFile(
+        self._handle = sf.SoundFile(
             self._temporary, "w", int(round(rate_hz)), self.channels, self.subtype,
             format=major,
         )  # fmt: skip
-        _drop_peak_chunk(self._file)
+        _drop_peak_chunk(self._handle)
 
     def write(self, block: np.ndarray) -> None:
         """Append frames: shape ``(frames, channels)``, or ``(frames,)`` for one channel.
@@ -167,7 +201,7 @@ class SafeWriter:
         float32 blocks go into FLOAT files as they are; anything else is converted to float64
         first. Both give the same file: libsndfile stores either as the nearest float32.
         """
-        if self._file is None:
+        if self._handle is None:
             raise ValueError(f"{self.path}: the writer is already closed")
         block = np.asarray(block)
         if block.dtype != np.float32 or not self._float32_as_is:
@@ -176,31 +210,8 @@ class SafeWriter:
             block = block[:, None]
         if block.ndim != 2 or block.shape[1] != self.channels:
             raise ValueError(f"block shape {block.shape} does not fit {self.channels} channels")
-        self._file.write(block)
+        self._handle.write(block)
         self.frames += len(block)
-
-    def close(self) -> None:
-        """Finish the file and give it its final name."""
-        if self._file is not None:
-            self._file.close()
-            self._file = None
-            os.replace(self._temporary, self.path)
-
-    def discard(self) -> None:
-        """Abandon the file: delete the temporary and leave ``path`` untouched."""
-        if self._file is not None:
-            self._file.close()
-            self._file = None
-            self._temporary.unlink(missing_ok=True)
-
-    def __enter__(self) -> SafeWriter:
-        return self
-
-    def __exit__(self, exc_type: object, exc: object, traceback: object) -> None:
-        if exc_type is None:
-            self.close()
-        else:
-            self.discard()
 
 
 def _drop_peak_chunk(file: sf.SoundFile) -> None:
@@ -209,7 +220,7 @@ def _drop_peak_chunk(file: sf.SoundFile) -> None:
         sf._snd.sf_command(file._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, sf._snd.SF_FALSE)
 
 
-class CsvWriter:
+class CsvWriter(_TemporaryFileWriter):
     """A sensor capture written as CSV block by block: header ``time_s,<names>``, a row a frame.
 
     Times are written to the nanosecond (``%.9f``), values with 9 significant digits, which
@@ -253,10 +264,10 @@ class CsvWriter:
         self.rate_hz = rate_hz
         self.frames = 0
         self._formats = ["%.9f"] + ["%.9g"] * len(self.names)
-        self._context = atomic_path(path, protect=protect)
-        self._temporary = self._context.__enter__()
-        self._fh = open(self._temporary, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
-        self._fh.write(",".join(("time_s", *self.names)) + "\n")
+        _refuse_protected(self.path, protect)
+        self._temporary = _temporary_path(self.path)
+        self._handle = open(self._temporary, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
+        self._handle.write(",".join(("time_s", *self.names)) + "\n")
 
     def write(self, block: np.ndarray) -> None:
         """Append ``(frames,)`` or ``(frames, channels)`` samples."""
@@ -266,29 +277,10 @@ class CsvWriter:
         for start in range(0, len(values), _CSV_WRITE_ROWS):
             chunk = values[start : start + _CSV_WRITE_ROWS]
             times = (self.frames + np.arange(len(chunk))) / self.rate_hz
-            np.savetxt(self._fh, np.column_stack([times, chunk]), fmt=self._formats, delimiter=",")
+            np.savetxt(
+                self._handle, np.column_stack([times, chunk]), fmt=self._formats, delimiter=","
+            )
             self.frames += len(chunk)
-
-    def close(self) -> None:
-        """Finish the file and give it its name (safe to call twice)."""
-        if not self._fh.closed:
-            self._fh.close()
-            self._context.__exit__(None, None, None)
-
-    def discard(self) -> None:
-        """Remove the unfinished file (safe to call twice)."""
-        if not self._fh.closed:
-            self._fh.close()
-            self._temporary.unlink(missing_ok=True)
-
-    def __enter__(self) -> CsvWriter:
-        return self
-
-    def __exit__(self, exc_type: object, exc: object, traceback: object) -> None:
-        if exc_type is None:
-            self.close()
-        else:
-            self.discard()
 
 
 def write_csv(
