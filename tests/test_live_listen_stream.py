@@ -24,6 +24,8 @@ from filtertwin.engine import CascadeRunner
 from filtertwin.live.blind import plan_trials
 from filtertwin.live.keys import Command
 from filtertwin.live.safety import db_to_gain, float32_at_or_below
+from filtertwin.live.stream import Oversampling
+from filtertwin.render import render_array
 
 REPO = Path(__file__).resolve().parents[1]
 RATE_HZ = 48000
@@ -138,19 +140,35 @@ def test_what_the_stream_plays_through_the_twin_comes_back_bit_exact(tmp_path, j
     def check(result):
         player, captured, _, _ = result
         twin = player.session.twins[0]
+        factor = twin.oversampling
         start = signal_start(captured)
         heard = captured[start - PREROLL :]  # the file's first frame is at index 0 now
         heard = heard[: len(source) + len(source) // 2]  # one and a half passes of the loop
         assert len(heard) == len(source) + len(source) // 2
-        # the offline runner on the looped file in the stream's block size: bit-identical
-        offline = CascadeRunner(twin.chains(), 2, 256, twin.clip_levels(), dtype=np.float32)
-        expected = np.concatenate(
-            [offline.process(looped[i : i + 256])[0].copy() for i in range(0, len(heard), 256)]
-        )[: len(heard)]
-        np.testing.assert_array_equal(heard, expected)
-        # the first pass is scipy.signal.sosfilt in float64 rounded to float32, bit for bit
-        reference = signal.sosfilt(twin.filters[0].sos, source.astype(np.float64), axis=0)
-        np.testing.assert_array_equal(heard[: len(source)], reference.astype(np.float32))
+        # the offline runner and resamplers on the looped file in the stream's block size:
+        # bit-identical
+        chains = len(player.session.twins[0].filters) + len(player.session.twins[1].filters)
+        offline = CascadeRunner(
+            [*twin.chains(), *player.session.twins[1].chains()], 2, 256 * factor,
+            [*twin.clip_levels(), *player.session.twins[1].clip_levels()], dtype=np.float32,
+        )  # fmt: skip
+        over = Oversampling(factor, chains, 2, 256, twin.resampling) if factor > 1 else None
+        pieces = []
+        for i in range(0, len(heard), 256):
+            block = looped[i : i + 256].copy()
+            out = offline.process(block) if over is None else over.process(offline, block)
+            pieces.append(out[0].copy())
+        np.testing.assert_array_equal(heard, np.concatenate(pieces)[: len(heard)])
+        # the first pass is the offline render in float64 (its delay taken out), within
+        # float32 rounding: scipy.signal.sosfilt at 1x, render's resamplers when oversampled
+        if over is None:
+            reference = signal.sosfilt(twin.filters[0].sos, source.astype(np.float64), axis=0)
+            np.testing.assert_array_equal(heard[: len(source)], reference.astype(np.float32))
+        else:
+            reference = render_array(twin, source.astype(np.float64), 4096)[0]
+            delay = over.delay_frames
+            live = heard[delay : len(source)].astype(np.float64)
+            np.testing.assert_allclose(live, reference[: len(live)], rtol=0, atol=2e-6)
 
     until_undisturbed(run, check)
 
@@ -200,7 +218,7 @@ def test_switching_from_a_to_b_during_a_sine_makes_no_click(tmp_path, jack_serve
         y = y[int(0.2 * RATE_HZ) : int(1.45 * RATE_HZ)]  # after the ramp; every switch inside
         assert len(y) == int(1.25 * RATE_HZ)
         twins = player.session.twins
-        amps = [amplitude * abs(signal.sosfreqz(tw.filters[0].sos, [f_hz], fs=RATE_HZ)[1][0])
+        amps = [amplitude * abs(signal.sosfreqz(tw.filters[0].sos, [f_hz], fs=tw.rate_hz)[1][0])
                 for tw in twins]  # fmt: skip
         fade = round(0.030 * RATE_HZ)  # the default crossfade, 30 ms
         # hand derivation: |y[n+1]-y[n]| <= 2 pi f/fs max(A) + (A_a + A_b)/N, 1 % margin

@@ -8,7 +8,7 @@ from contextlib import ExitStack
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import frequency_hz, positive
+from filtertwin.commands.options import RESAMPLING_HELP, frequency_hz, positive
 from filtertwin.errors import UserInputError
 
 SAFETY_EPILOG = """\
@@ -93,6 +93,8 @@ def register(subparsers: Any) -> None:
     add("--adc-rate", type=frequency_hz, metavar="HZ",
         help="with a recording sampled faster: key c hears what an ideal ADC at this rate "
         "captures of it (aliases included), with and without each candidate")  # fmt: skip
+    add("--resampling", choices=("linear", "causal"), default="linear",
+        help="candidates run at the oversampling render picks; " + RESAMPLING_HELP)  # fmt: skip
     trials = p.add_argument_group("blind trials (two designs)")
     kind = trials.add_mutually_exclusive_group()
     kind.add_argument("--abx", type=positive(int, "--abx"), metavar="N",
@@ -138,6 +140,7 @@ def _options(args: argparse.Namespace) -> Any:
         seed=args.seed,
         log_path=Path(args.log) if args.log else None,
         adc_rate_hz=args.adc_rate,
+        resampling=args.resampling,
     )
     check_options(options, len(args.designs))
     return options

@@ -10,12 +10,17 @@ stream's ports in between).
 Two paths, chosen by the input:
 
 * *in the callback*: live input, or a recording at the stream's rate. The twins run at the
-  stream rate, in the audio callback, on the block just read.
+  stream rate times the oversampling render would pick (the largest any candidate needs),
+  in the audio callback, on the block just read: raised and lowered again there by the
+  allocation-free resamplers render uses (:class:`~filtertwin.live.stream.Oversampling`).
 * *read ahead*: a recording at another rate (a sensor recording, say), or any recording
   with ``--adc-rate``. The twins run at the recording's own rate in the read-ahead thread,
   and every chain's output and the dry input are resampled to the stream rate there (with
   ``--adc-rate`` also what an ideal ADC captures of each, :mod:`filtertwin.live.capture`);
-  the callback only mixes.
+  the callback only mixes. Oversampled twins are resampled around the runner there too.
+
+Each candidate's fidelity line (resampling filters included) is printed before the stream
+starts.
 """
 
 from __future__ import annotations
@@ -94,6 +99,8 @@ class ListenOptions:
     adc_rate_hz : float or None
         Rate of an ideal ADC whose capture of the recording can be heard (a recording
         sampled faster than it only).
+    resampling : str
+        Phase of the resampling filters around oversampled twins: "linear" or "causal".
     """
 
     input_path: Path | None = None
@@ -116,6 +123,7 @@ class ListenOptions:
     seed: int | None = None
     log_path: Path | None = None
     adc_rate_hz: float | None = None
+    resampling: str = "linear"
 
 
 def warm_up() -> None:
@@ -350,6 +358,7 @@ def _prefilter(
     rate_hz: float,
     chains: tuple[list[np.ndarray], list[np.ndarray]],
     say: Callable[[str], None],
+    over: stream.Oversampling | None = None,
 ) -> tuple[stream.PreFilter, capture_mod.CapturePlan | None]:
     """The twins (and the ADC capture) at the recording's rate, for the read-ahead thread."""
     sos, levels = chains
@@ -360,7 +369,8 @@ def _prefilter(
     if options.adc_rate_hz is not None:
         plan = capture_mod.plan_capture(options.adc_rate_hz, info.rate_hz, rate_hz, str(info.path))
         adc = capture_mod.AdcCapture(plan, width, capture_mod.lag_s(resampler, info.rate_hz))
-    runner = engine.CascadeRunner(sos, info.channels, CHUNK_FRAMES, levels)
+    factor = over.factor if over is not None else 1
+    runner = engine.CascadeRunner(sos, info.channels, CHUNK_FRAMES * factor, levels)
     if resampler is not None:
         say(
             f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
@@ -372,7 +382,7 @@ def _prefilter(
             f"{plan.adc_rate_hz:g} Hz with no filter of its own, played back band-limited at "
             f"{rate_hz:g} Hz"
         )
-    return stream.PreFilter(runner, resampler, adc), plan
+    return stream.PreFilter(runner, resampler, adc, over), plan
 
 
 def prepare(
@@ -411,7 +421,10 @@ def prepare(
     same_rate = info is None or abs(info.rate_hz - rate_hz) <= 1e-6 * rate_hz
     in_callback = same_rate and options.adc_rate_hz is None
     processing_rate_hz = rate_hz if in_callback else info.rate_hz  # type: ignore[union-attr]
-    twins = cands.build_twins(candidates, processing_rate_hz)
+    twins = cands.build_twins(candidates, processing_rate_hz, options.resampling)
+    for line in cands.fidelity_lines(candidates, twins, blind=blind is not None):
+        say(line)
+    factor = twins[0].oversampling
     sos, levels = cands.chains(twins)
     program = None
     if info is not None and options.match in (None, "loudness"):
@@ -420,15 +433,21 @@ def prepare(
 
     warm_up()
     block = options.block_frames
-    runner = prefilter = plan = feeder = None
+    runner = prefilter = plan = feeder = over = None
     captures = 0
     if in_callback:
-        runner = engine.CascadeRunner(sos, in_channels, block, levels, dtype=np.float32)
+        runner = engine.CascadeRunner(sos, in_channels, block * factor, levels, dtype=np.float32)
+        if factor > 1:
+            over = stream.Oversampling(factor, len(sos), in_channels, block, options.resampling)
         if info is not None:
             feeder = _feeder(options, info, rate_hz, 1)
     else:
         assert info is not None
-        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say)
+        if factor > 1:
+            over = stream.Oversampling(
+                factor, len(sos), in_channels, CHUNK_FRAMES, options.resampling, np.float64
+            )
+        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say, over)
         captures = 0 if plan is None else len(sos) + 1
         feeder = _feeder(options, info, rate_hz, len(sos) + 1 + captures, prefilter)
     core = stream.StreamCore(
@@ -436,6 +455,7 @@ def prepare(
         runner=runner, ring=None if feeder is None else feeder.ring,
         safety=safety.OutputSafety(rate_hz, options.level_db, options.ceiling_dbfs, options.ramp_s),
         pairs=out_channels // 2, fade_s=options.fade_s, captures=captures,
+        oversampling=over if in_callback else None,
     )  # fmt: skip
     core.prime()
     host: ChainHost = core if prefilter is None else prefilter

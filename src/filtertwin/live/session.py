@@ -364,7 +364,11 @@ class ListenSession:
 
     def _install(self, index: int, design: cands.Design) -> None:
         """Make the twin of an edited candidate and swap its chains into the runner."""
-        twin = build_twin(design, self.processing_rate_hz)
+        old = self.twins[index]  # the same oversampling: the runner's rate stays
+        twin = build_twin(
+            design, self.processing_rate_hz, oversampling=old.oversampling,
+            resampling=old.resampling,
+        )  # fmt: skip
         first = cands.chain_index(self.candidates, index, 0)
         changes = {first + k: (f.sos, f.clip_fs) for k, f in enumerate(twin.filters)}
         all_sos, all_levels = cands.chains([*self.twins[:index], twin, *self.twins[index + 1 :]])

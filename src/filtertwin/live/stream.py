@@ -28,6 +28,7 @@ from __future__ import annotations
 import threading
 import time
 from collections.abc import Callable
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 import numba
@@ -39,7 +40,7 @@ from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.recordings import read_blocks
-from filtertwin.resample import StreamResampler
+from filtertwin.resample import Downsampler, StreamResampler, Upsampler, delay_frames
 
 if TYPE_CHECKING:
     from filtertwin.live.capture import AdcCapture
@@ -81,6 +82,70 @@ def _meter_kernel(
     meters[n_chains + 1] = max(peak, meters[n_chains + 1] * fall)
 
 
+@numba.njit(cache=True)
+def _delay_kernel(block: np.ndarray, line: np.ndarray, position: int) -> int:
+    """Delay ``block`` in place by ``len(line)`` frames (a ring of the last frames)."""
+    n = line.shape[0]
+    if n == 0:
+        return position
+    p = position
+    for f in range(block.shape[0]):
+        for c in range(block.shape[1]):
+            held = line[p, c]
+            line[p, c] = block[f, c]
+            block[f, c] = held
+        p += 1
+        if p == n:
+            p = 0
+    return p
+
+
+@dataclass(eq=False)
+class Oversampling:
+    """The resamplers around an oversampled runner, and the dry input's matching delay.
+
+    The runner runs at ``factor`` times the stream's rate: each block is raised by ``up``,
+    filtered, and every chain lowered by ``down`` (:mod:`filtertwin.resample`, the filters
+    render uses; compiled, allocation-free). With linear-phase filters the chains come out
+    :func:`~filtertwin.resample.delay_frames` late, so the dry input (bypass and meters) is
+    delayed as much to stay in step; causal filters' outputs are not shifted.
+
+    Parameters
+    ----------
+    factor : int
+    chains, channels, block_frames : int
+        Of the runner and the blocks (frames at the stream's rate).
+    phase : {"linear", "causal"}
+    dtype : numpy dtype
+        The runner's.
+    """
+
+    factor: int
+    chains: int
+    channels: int
+    block_frames: int
+    phase: str = "linear"
+    dtype: Any = np.float32
+    up: Upsampler = field(init=False)
+    down: Downsampler = field(init=False)
+    delay_frames: int = field(init=False)
+
+    def __post_init__(self) -> None:
+        n, f = self.block_frames, self.factor
+        self.up = Upsampler(f, self.channels, n, self.phase, self.dtype)
+        self.down = Downsampler(f, self.chains, self.channels, n * f, self.phase, self.dtype)
+        self.delay_frames = delay_frames(f, self.phase)
+        self._line = np.zeros((self.delay_frames, self.channels), dtype=self.dtype)
+        self._position = 0
+
+    def process(self, runner: CascadeRunner, dry: np.ndarray) -> np.ndarray:
+        """Every chain's output for ``dry`` ``(frames, channels)``, which is delayed in place
+        to line up with it; allocates nothing."""
+        chains = self.down.process(runner.process(self.up.process(dry)))
+        self._position = _delay_kernel(dry, self._line, self._position)
+        return chains
+
+
 class StreamCore:
     """The audio callback and its preallocated arrays.
 
@@ -108,6 +173,9 @@ class StreamCore:
     captures : int
         ADC capture sources the ring carries after the chains (``n_chains + 1`` or 0; see
         :func:`filtertwin.live.capture.source_gains`); the mixer sees them as more chains.
+    oversampling : Oversampling, optional
+        When the runner runs at a multiple of the stream rate (its ``max_frames`` is
+        ``block_frames`` times the factor).
     """
 
     def __init__(
@@ -123,6 +191,7 @@ class StreamCore:
         pairs: int = 1,
         fade_s: float = 0.03,
         captures: int = 0,
+        oversampling: Oversampling | None = None,
     ) -> None:
         if channels not in (1, 2):
             raise ValueError(f"channels must be 1 or 2, got {channels}")
@@ -138,6 +207,7 @@ class StreamCore:
         self.block_frames = block_frames
         self.rate_hz = rate_hz
         self.runner = runner
+        self.oversampling = oversampling
         self.ring = ring
         self.safety = safety
         self.out_channels = 2 * pairs
@@ -205,7 +275,12 @@ class StreamCore:
         else:
             np.copyto(self.dry, indata)
         runner = self.runner
-        chains = self._ring_chains if runner is None else runner.process(self.dry)
+        if runner is None:
+            chains = self._ring_chains
+        elif self.oversampling is None:
+            chains = runner.process(self.dry)
+        else:
+            chains = self.oversampling.process(runner, self.dry)
         for mixer, column in self._mixer_columns:
             mixer.process(chains, self.dry, outdata, column, 2)
         self.safety.process(outdata)
@@ -249,6 +324,8 @@ class PreFilter:
         None when the recording is at the stream's rate.
     capture : AdcCapture, optional
         For as many channels: adds what the ADC captures of each (``--adc-rate``).
+    oversampling : Oversampling, optional
+        When the runner runs at a multiple of the recording's rate.
     """
 
     def __init__(
@@ -256,10 +333,12 @@ class PreFilter:
         runner: CascadeRunner,
         resampler: StreamResampler | None,
         capture: AdcCapture | None = None,
+        oversampling: Oversampling | None = None,
     ) -> None:
         self.runner = runner
         self.resampler = resampler
         self.capture = capture
+        self.oversampling = oversampling
         self.blocks = 0
 
     def blocks_done(self) -> int:
@@ -271,7 +350,11 @@ class PreFilter:
         float32 at the stream rate: the chains, then (with a capture) the capture of each
         chain and of the dry input, and the dry input last."""
         frames, channels = block.shape
-        chains = self.runner.process(block)
+        if self.oversampling is None:
+            chains = self.runner.process(block)
+        else:
+            block = block.copy()  # delayed in place to line up with the chains
+            chains = self.oversampling.process(self.runner, block)
         joined = np.concatenate([chains, block[np.newaxis]])
         flat = joined.transpose(1, 0, 2).reshape(frames, -1)
         out = flat if self.resampler is None else self.resampler.process(flat)
