@@ -26,6 +26,7 @@ from filtertwin.live.keys import Command
 from filtertwin.live.safety import db_to_gain, float32_at_or_below
 from filtertwin.live.stream import Oversampling
 from filtertwin.render import render_array
+from filtertwin.twin import build_twin
 
 REPO = Path(__file__).resolve().parents[1]
 RATE_HZ = 48000
@@ -320,6 +321,13 @@ def test_the_live_input_runs_through_a_duplex_stream(jack_server):
     )
     assert player.feeder is None and player.in_channels == 2
     assert player.session.match.mode == "gain"  # no program to measure: passband gains
+    # live input too runs at the factor render picks, and each way's fidelity is said first
+    factor = player.session.twins[0].oversampling
+    assert factor == build_twin(_designs(["bookshelf-2way"])[0][1], RATE_HZ,
+                                oversampling="auto").oversampling  # fmt: skip
+    assert player.core.oversampling is not None and player.core.oversampling.factor == factor
+    assert said[0].startswith("A bookshelf-2way 'woofer': twin at ")
+    assert said[1].startswith("A bookshelf-2way 'tweeter': twin at ")
     player.open()
     player.start()
     time.sleep(0.5)
