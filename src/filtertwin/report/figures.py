@@ -236,14 +236,17 @@ def response_figure(path: str | os.PathLike[str], design: Design, twin: Twin, ti
     _limit_delay_axis(delay)
     _log_axis(error, lo, hi, "twin − analog (dB)")
     error.set_title(
-        f"twin error within {FIDELITY_WINDOW_DB:g} dB of the peak ({twin.rate_hz / 1000:g} kHz, "
-        f"{twin.oversampling}x"
-        + (f", {twin.resampling} resampling included)" if twin.oversampling > 1 else ")"),
+        f"twin error within {FIDELITY_WINDOW_DB:g} dB of the peak\n(twin at "
+        f"{twin.rate_hz / 1000:g} kHz, {twin.oversampling}x"
+        + (f", {twin.resampling}-phase resampling included)" if twin.oversampling > 1 else ")"),
         fontsize="medium",
     )
-    _symmetric(error, minimum=0.2)
     top = twin.filters[0].fidelity.band_hz[1]
-    error.axvline(top, color="grey", ls=":", lw=1.0, label="top of the fidelity band")
+    _symmetric(error, minimum=0.2, below_hz=top)  # the fall past the band's top is off-scale
+    label = "top of the fidelity band" + (
+        " (resampling filters roll off above)" if twin.oversampling > 1 else ""
+    )
+    error.axvline(top, color="grey", ls=":", lw=1.0, label=label)
     error.legend(loc="lower left", fontsize="small")
     return save_png(fig, path)
 
@@ -256,8 +259,11 @@ def _limit_delay_axis(ax: Axes) -> None:
         ax.set_ylim(min(0.0, float(values.min())), top * 1.1 if top > 0 else 1.0)
 
 
-def _symmetric(ax: Axes, minimum: float) -> None:
-    values = np.concatenate([line.get_ydata() for line in ax.get_lines()])
+def _symmetric(ax: Axes, minimum: float, below_hz: float = math.inf) -> None:
+    lines = ax.get_lines()
+    values = np.concatenate(
+        [np.asarray(line.get_ydata())[np.asarray(line.get_xdata()) <= below_hz] for line in lines]
+    )
     values = values[np.isfinite(values)]
     span = max(minimum, float(np.max(np.abs(values))) * 1.15 if len(values) else minimum)
     ax.set_ylim(-span, span)
