@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any, NoReturn
 
 from filtertwin import __version__
-from filtertwin.commands.options import frequency_hz, oversampling
+from filtertwin.commands.options import add_resampling, frequency_hz, oversampling
 from filtertwin.errors import UserInputError
 
 SAFETY_NOTE = (
@@ -32,7 +32,11 @@ def cmd_design(args: argparse.Namespace) -> int:
     from filtertwin.twin import build_twin
 
     design = load(args.design)
-    twin = build_twin(design, args.rate, oversampling=args.oversample) if args.rate else None
+    twin = (
+        build_twin(design, args.rate, oversampling=args.oversample, resampling=args.resampling)
+        if args.rate
+        else None
+    )
     noise = design_noise(design, noise_band(args.noise_band, args.rate))
     if args.bom:
         with atomic_path(args.bom, protect=[design.spec.source]) as tmp:
@@ -115,6 +119,7 @@ def build_parser() -> argparse.ArgumentParser:
         help="band of the noise figures (default 20 Hz to 20 kHz, also A-weighted; with a "
         "--rate below 32 kHz, the twin's band)",
     )  # fmt: skip
+    add_resampling(p)
     p.set_defaults(func=cmd_design)
 
     p = sub.add_parser("examples", help="list the packaged example designs")
