@@ -348,3 +348,42 @@ def test_blind_trials_show_nothing_of_x_and_end_with_the_exact_binomial_p_value(
     assert shown_p == expected
     assert f"{hits} of 4 right" in result and "A was" in result
     assert json.loads(frames[-1])["type"] in ("said", "state", "ended", "live")
+
+
+# --- undo, redo, save as; the terminal alongside -------------------------------------------------
+
+
+def test_undo_redo_and_save_as_from_the_page_and_the_terminal_drives_the_same_session(
+    tmp_path, jack_server, browser, monkeypatch
+):
+    from filtertwin.design import build_design
+    from filtertwin.live.keys import Command
+    from filtertwin.spec import load_design
+
+    monkeypatch.chdir(tmp_path)
+    wav, _ = noise_wav(tmp_path, 1.0)
+    said: list[str] = []
+    player = player_for(NAMES, wav, said)
+    with served(player) as (server, _, _):
+        page = open_page(browser, server)
+        part = "[data-part='low-2-C1']"
+        page.click("[data-step='low-2-C1-up']")
+        page.wait_for_selector(f"{part}:text-is('33n')")
+        page.click("#undo")
+        page.wait_for_selector(f"{part}:text-is('27n')")
+        assert page.is_enabled("#redo")
+        page.click("#redo")
+        page.wait_for_selector(f"{part}:text-is('33n')")
+        page.fill("#save-name", "my-build.toml")
+        page.click("#save")
+        page.wait_for_selector("#said:has-text('saved A as my-build.toml')")
+        page.click("#save")  # the same name again: refused, nothing overwritten
+        page.wait_for_selector("#said:has-text('exists; choose a new name')")
+        # a terminal key or script line goes to the same session: the page follows it
+        player.session.handle(Command("select", ("2",)), time.monotonic())
+        page.wait_for_selector("[data-candidate=B].on")
+        assert "hearing B" in page.inner_text("#hearing")
+        page.close()
+    saved = build_design(load_design(tmp_path / "my-build.toml"))
+    assert saved.filter("topcut").stages[1].circuit.c1 == pytest.approx(33e-9, rel=1e-12)
+    assert any("saved A as my-build.toml" in line for line in said)

@@ -21,14 +21,14 @@ DRY, OUT = 0, 1
 @numba.njit(cache=True)
 def _tap_kernel(dry: np.ndarray, out: np.ndarray, ring: np.ndarray, written: np.ndarray) -> None:
     """Append the channel means of ``dry`` (frames, ch) and ``out[:, :2]`` to the ring."""
-    capacity = ring.shape[1]
+    mask = ring.shape[1] - 1  # the capacity is a power of two
     start = written[0]
     frames = dry.shape[0]
     dry_scale = 1.0 / dry.shape[1]
     out_channels = min(2, out.shape[1])
     out_scale = 1.0 / out_channels
     for f in range(frames):
-        row = (start + f) % capacity
+        row = (start + f) & mask
         total = 0.0
         for c in range(dry.shape[1]):
             total += dry[f, c]
@@ -44,8 +44,8 @@ class SignalTap:
     """Ring of the dry input and the output (mono), written by the audio callback."""
 
     def __init__(self, capacity_frames: int = CAPACITY_FRAMES) -> None:
-        if capacity_frames < 16:
-            raise ValueError(f"capacity_frames must be >= 16, got {capacity_frames}")
+        if capacity_frames < 16 or capacity_frames & (capacity_frames - 1):
+            raise ValueError(f"capacity_frames must be a power of two >= 16, got {capacity_frames}")
         self.ring = np.zeros((2, capacity_frames), dtype=np.float32)
         self.written = np.zeros(1, dtype=np.int64)
 

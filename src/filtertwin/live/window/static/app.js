@@ -36,13 +36,13 @@ function renderChoices(s) {
   const box = $("candidates");
   box.replaceChildren(el("span", { class: "label" }, "candidate"));
   s.candidates.forEach((c, i) => {
-    const fid = c.fidelity.map(f => `${f.way} ${num(f.max_db, 2)} dB`).join(", ");
+    const fid = c.fidelity.map(f => `${f.way} ${num(f.max_db, 2)}`).join(", ") + " dB";
     box.append(el("button", {
       class: "cand" + (s.selected === i ? " on" : ""), "data-candidate": c.label,
-      title: `${c.title}\ntwin vs analog: largest difference ${fid}`,
+      title: `${c.title}\ntwin against the analog circuit, largest difference: ${fid}`,
       onclick: () => send("select", c.label),
     }, el("b", {}, `${c.label} · ${c.name}`),
-      el("small", {}, `twin off by ≤ ${fid}` + (c.match_db !== null ? ` · match ${num(c.match_db, 1)} dB` : ""))));
+      el("small", {}, `twin vs analog ≤ ${fid}` + (c.match_db !== null ? ` · match ${num(c.match_db, 1)} dB` : ""))));
   });
   box.append(el("button", {
     class: "cand" + (s.selected === null ? " on" : ""), "data-candidate": "bypass",
@@ -98,7 +98,7 @@ function stageCard(card) {
       el("span", { "data-q": `${card.way}-${card.stage}`, "data-value": card.built_q }, q(card.built_q))),
     el("div", { class: "flags" },
       `peak ${num(card.peak_db, 1)} dB`,
-      card.clip_input_dbfs !== null ? ` · swing at ${num(card.clip_input_dbfs, 1)} dBFS in ` : " ",
+      card.clip_input_dbfs !== null ? ` · clips from ${num(card.clip_input_dbfs, 1)} dBFS in ` : " ",
       card.clipping ? el("span", { class: "flag" }, "clipping") : ""));
 }
 
