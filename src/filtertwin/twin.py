@@ -106,9 +106,16 @@ class Twin:
 
 
 def characteristic_hz(b: np.ndarray, a: np.ndarray) -> float:
-    """f0 of a second-order section or the corner of a first-order one, in Hz (a[0] == 1)."""
+    """f0 of a second-order section or the corner of a first-order one, in Hz (a[0] == 1).
+
+    A first-order section with a zero away from the origin (an amplifier pole with the
+    zero its output resistance adds) is matched at the lower of its zero and its pole.
+    """
     a = np.asarray(a, float) / a[0]
     w = math.sqrt(a[2]) if len(a) == 3 else a[1]
+    b = np.trim_zeros(np.asarray(b, float), "f")
+    if len(a) == 2 and len(b) == 2 and b[1] != 0:
+        w = min(w, abs(b[1] / b[0]))
     return w / (2 * math.pi)
 
 

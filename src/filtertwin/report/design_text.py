@@ -6,7 +6,7 @@ import math
 from typing import Any
 
 from filtertwin import units
-from filtertwin.design import Design, Filter, Stage
+from filtertwin.design import Design, Filter, Stage, StopbandFloor
 from filtertwin.twin import (
     FIDELITY_TOL_DB,
     FIDELITY_TOL_DEG,
@@ -67,7 +67,10 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
     lines = [f"{design.title}"]
     amp = design.amplifier
     lines.append(
-        f"amplifier: {amp.description}, swing +/-{amp.swing_v:g} V" if amp else "amplifier: ideal"
+        f"amplifier: {amp.description}, swing +/-{amp.swing_v:g} V, open-loop output "
+        f"resistance {amp.output_resistance_ohm:g} ohm"
+        if amp
+        else "amplifier: ideal"
     )
     sp = design.spec.parts
     lines.append(
@@ -90,6 +93,9 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
         )
         for s in f.stages:
             lines.append(_stage_line(s))
+        floor = f.stopband_floor()
+        if floor is not None:
+            lines.append(_floor_line(floor))
         if twin is not None and f.name in twins:
             lines.append(_fidelity_line(twins[f.name], twin))
     if design.warnings:
@@ -97,6 +103,14 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
         lines.append("warnings:")
         lines += [f"  ! {w}" for w in design.warnings]
     return "\n".join(lines)
+
+
+def _floor_line(floor: StopbandFloor) -> str:
+    return (
+        f"  stopband floor {floor.level_db:.1f} dB re passband at "
+        f"{units.format_si(floor.at_hz, 'Hz', 4)} (the input reaches the output around the "
+        f"amplifiers through their output resistance), rising to {floor.rises_to_db:.1f} dB above"
+    )
 
 
 def _stage_line(s: Stage) -> str:
@@ -179,6 +193,7 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
             "noise_v_per_rthz": amp.noise_v_per_rthz,
             "noise_a_per_rthz": amp.noise_a_per_rthz,
             "open_loop_gain": amp.open_loop_gain,
+            "output_resistance_ohm": amp.output_resistance_ohm,
         },
         "filters": [],
         "warnings": [
@@ -201,6 +216,7 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                 "distance": f.resembles.distance,
             },
             "stages": [_stage_dict(s) for s in f.stages],
+            "stopband_floor": _floor_dict(f.stopband_floor()),
         }
         if f.name in twins and twin is not None:
             ft = twins[f.name]
@@ -222,6 +238,12 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
             }
         out["filters"].append(entry)
     return out
+
+
+def _floor_dict(floor: StopbandFloor | None) -> dict[str, float] | None:
+    if floor is None:
+        return None
+    return {"level_db": floor.level_db, "at_hz": floor.at_hz, "rises_to_db": floor.rises_to_db}
 
 
 def _stage_dict(s: Stage) -> dict[str, Any]:
