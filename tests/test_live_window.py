@@ -21,6 +21,7 @@ import pytest
 from scipy import signal, stats
 
 from filtertwin import eseries, sallenkey
+from filtertwin.live.tap import SignalTap
 from filtertwin.live.window import open_window
 from test_live_listen_stream import (
     PREROLL,
@@ -28,7 +29,6 @@ from test_live_listen_stream import (
     Recorder,
     player_for,
     signal_start,
-    until_undisturbed,
     write_wav,
 )
 
@@ -164,8 +164,8 @@ def where_in(segment: np.ndarray, reference: np.ndarray) -> float:
 def heard_as(y: np.ndarray, references: list[np.ndarray], starts) -> list[int | None]:
     """For each segment of ``y``: which reference it is a stretch of (1e-6), or None.
 
-    Matching each segment on its own keeps the check exact when a busy machine makes JACK
-    drop or repeat a block (an xrun shifts what follows; it does not change it).
+    Each segment is found on its own in the looped reference, so the check does not depend
+    on knowing when the file's loop started.
     """
     found = []
     for k in starts:
@@ -189,13 +189,17 @@ def test_clicking_candidate_b_makes_the_output_b_s_twin(tmp_path, jack_server, b
         time.sleep(1.2)
         page.close()
     y = recorder.data[: recorder.position, 0].astype(np.float64)
+    xruns = int(player.core.counters[1]) + recorder.xruns
     start, end = signal_start(y[:, None]), int(np.max(np.nonzero(y)))
     # scipy.signal.sosfilt of each twin on the looped file: the reference for what is heard
     refs = [signal.sosfilt(t.filters[0].sos, looped) for t in player.session.twins]
-    before = heard_as(y, refs, np.linspace(start + 0.1 * RATE_HZ, clicked_at - 2048, 8, dtype=int))
-    after = heard_as(y, refs, np.linspace(end - 0.6 * RATE_HZ, end - 1024, 8, dtype=int))
-    assert before.count(0) >= 6 and 1 not in before, before  # A, bit for bit in float32
-    assert after.count(1) >= 6 and 0 not in after, after  # then B
+    first = heard_as(y, refs, np.linspace(start + 0.1 * RATE_HZ, clicked_at - 2048, 8, dtype=int))
+    last = heard_as(y, refs, np.linspace(end - 0.6 * RATE_HZ, end - 1024, 8, dtype=int))
+    assert 1 not in first and 0 not in last, (first, last)  # never the other candidate
+    # every stretch is the twin's output to float32 rounding; on a busy machine a stretch
+    # across a block JACK dropped (an xrun) matches neither, so most must match then
+    need = 8 if xruns == 0 else 4
+    assert first.count(0) >= need and last.count(1) >= need, (first, last, xruns)
 
 
 def card_numbers(page, key: str) -> tuple[float, float]:
@@ -210,59 +214,63 @@ def test_stepping_a_capacitor_moves_the_card_the_plot_and_the_sound_without_a_cl
     f_hz, amplitude = 3000.0, 0.3
     t = np.arange(3 * RATE_HZ) / RATE_HZ
     wav = write_wav(tmp_path / "sine.wav", amplitude * np.sin(2 * np.pi * f_hz * t))
+    player = player_for(NAMES[:1], wav, [])
+    old_design = player.session.candidates[0].design
+    old_stage = old_design.filter("topcut").stages[1]
+    tap = SignalTap(2**18)  # 5.5 s of what the callback hands to the stream, for the click
+    with served(player, record_s=3.0) as (server, recorder, _):
+        player.core.tap = server.link.tap = tap
+        page = open_page(browser, server)
+        time.sleep(0.8)
+        drawn = page.get_attribute("#response", "data-drawn")
+        picture = page.evaluate("document.getElementById('response').toDataURL()")
+        edit_at = recorder.position
+        page.click("[data-step='low-2-C1-up']")
+        page.wait_for_function(
+            "old => document.getElementById('response').dataset.drawn !== old", arg=drawn
+        )
+        value = page.inner_text("[data-part='low-2-C1']")
+        f0, q = card_numbers(page, "low-2")
+        redrawn = page.evaluate("document.getElementById('response').toDataURL()") != picture
+        time.sleep(1.0)
+        page.close()
+        _, played, frames = tap.latest(tap.ring.shape[1])
+    new_c1 = eseries.step(old_stage.circuit.c1, "E12", 1)  # IEC 60063 E12: 27n -> 33n
+    assert value == "33n" and math.isclose(new_c1, 33e-9, rel_tol=1e-12)
+    # the node equations of the stepped circuit with the design's amplifier
+    model = sallenkey.analyze(old_stage.circuit.with_parts(C1=new_c1), old_design.amplifier)
+    assert f0 == pytest.approx(model.f0_hz, rel=1e-9)
+    assert q == pytest.approx(model.q, rel=1e-9)
+    assert redrawn
+    # the sound: before and after the edit the sine has the old and the new twin's gain
+    # (scipy.signal.sosfreqz of each twin); amplitudes fitted on short stretches, median
+    old_gain = abs(signal.sosfreqz(player_twin_sos(old_design), [f_hz], fs=RATE_HZ)[1][0])
+    new_sos = player.session.twins[0].filters[0].sos
+    new_gain = abs(signal.sosfreqz(new_sos, [f_hz], fs=RATE_HZ)[1][0])
+    assert abs(new_gain - old_gain) > 0.02  # the step is audible at 3 kHz
+    y = recorder.data[: recorder.position, 0].astype(np.float64)
+    start, end = signal_start(y[:, None]), int(np.max(np.nonzero(y)))
+    before = stretch_amplitude(y[start + int(0.3 * RATE_HZ) : edit_at - 512], f_hz)
+    after = stretch_amplitude(y[end - int(0.5 * RATE_HZ) : end - 1024], f_hz)
+    assert before == pytest.approx(amplitude * old_gain, rel=1e-3)
+    assert after == pytest.approx(amplitude * new_gain, rel=1e-3)
+    # no click in what the callback played (the tap holds it whole, whatever JACK dropped):
+    # a sine of amplitude A moves at most 2 pi f / fs A per sample (hand derivation); the
+    # new coefficients take over from the old state, 10 % margin
+    assert frames < len(played)
+    out = played[len(played) - frames :]
+    begin = signal_start(out[:, None]) + int(0.3 * RATE_HZ)
+    stop = int(np.max(np.nonzero(out)))
+    assert stop - begin > 1.5 * RATE_HZ  # the edit is inside
+    bound = 2 * math.pi * f_hz / RATE_HZ * amplitude * max(old_gain, new_gain) * 1.10
+    assert np.max(np.abs(np.diff(out[begin:stop]))) < bound
 
-    def run():
-        player = player_for(NAMES[:1], wav, [])
-        shown = {}
-        with served(player, record_s=3.0) as (server, recorder, _):
-            page = open_page(browser, server)
-            time.sleep(0.8)
-            drawn = page.get_attribute("#response", "data-drawn")
-            picture = page.evaluate("document.getElementById('response').toDataURL()")
-            shown["edit_at"] = recorder.position
-            page.click("[data-step='low-2-C1-up']")
-            page.wait_for_function(
-                "old => document.getElementById('response').dataset.drawn !== old", arg=drawn
-            )
-            shown["value"] = page.inner_text("[data-part='low-2-C1']")
-            shown["f0"], shown["q"] = card_numbers(page, "low-2")
-            shown["redrawn"] = (
-                page.evaluate("document.getElementById('response').toDataURL()") != picture
-            )
-            time.sleep(1.0)
-            page.close()
-        y = recorder.data[: recorder.position, 0].astype(np.float64)
-        return player, shown, y, int(player.core.counters[1]), recorder.xruns
 
-    def check(result):
-        player, shown, y, _, _ = result
-        old_design = player_for(NAMES[:1], wav, []).session.candidates[0].design
-        old_stage = old_design.filter("topcut").stages[1]
-        new_c1 = eseries.step(old_stage.circuit.c1, "E12", 1)  # IEC 60063 E12: 27n -> 33n
-        assert shown["value"] == "33n" and math.isclose(new_c1, 33e-9, rel_tol=1e-12)
-        # the node equations of the stepped circuit with the design's amplifier
-        model = sallenkey.analyze(old_stage.circuit.with_parts(C1=new_c1), old_design.amplifier)
-        assert shown["f0"] == pytest.approx(model.f0_hz, rel=1e-9)
-        assert shown["q"] == pytest.approx(model.q, rel=1e-9)
-        assert shown["redrawn"]
-        # the sound: before and after the edit the sine has the old and the new twin's gain
-        # (scipy.signal.sosfreqz of each twin)
-        old_gain = abs(signal.sosfreqz(player_twin_sos(old_design), [f_hz], fs=RATE_HZ)[1][0])
-        new_sos = player.session.twins[0].filters[0].sos
-        new_gain = abs(signal.sosfreqz(new_sos, [f_hz], fs=RATE_HZ)[1][0])
-        assert abs(new_gain - old_gain) > 0.02  # the step is audible at 3 kHz
-        start, end = signal_start(y[:, None]), int(np.max(np.nonzero(y)))
-        before = y[start + int(0.3 * RATE_HZ) : shown["edit_at"] - 512]
-        after = y[end - int(0.5 * RATE_HZ) : end - 1024]
-        assert sine_amplitude(before, f_hz) == pytest.approx(amplitude * old_gain, rel=1e-3)
-        assert sine_amplitude(after, f_hz) == pytest.approx(amplitude * new_gain, rel=1e-3)
-        # no click: a sine of amplitude A moves at most 2 pi f / fs A per sample (hand
-        # derivation); the new coefficients take over from the old state, 10 % margin
-        across = y[start + int(0.3 * RATE_HZ) : end - 1024]
-        bound = 2 * math.pi * f_hz / RATE_HZ * amplitude * max(old_gain, new_gain) * 1.10
-        assert np.max(np.abs(np.diff(across))) < bound
-
-    until_undisturbed(run, check)
+def stretch_amplitude(y: np.ndarray, f_hz: float, frames: int = 2048) -> float:
+    """Median over stretches of the least-squares amplitude of a sine of known frequency
+    (a stretch across a block that JACK dropped is an outlier the median ignores)."""
+    fits = [sine_amplitude(y[k : k + frames], f_hz) for k in range(0, len(y) - frames, frames)]
+    return float(np.median(fits))
 
 
 def player_twin_sos(design) -> np.ndarray:
@@ -297,7 +305,18 @@ def test_the_live_spectrum_updates_20_times_a_second_and_the_window_is_not_blank
         frames = int(page.get_attribute("#spectrum", "data-frames")) - first
         shot = tmp_path / "preview-window.png"
         page.screenshot(path=str(shot), full_page=True)
+        # phase and group delay on demand, and the tolerance envelope
+        views_drawn = []
+        for view in ("phase", "delay", "magnitude"):
+            page.select_option("#response-view", view)
+            views_drawn.append(page.get_attribute("#response", "data-drawn").split(":")[1])
+        plain = page.evaluate("document.getElementById('response').toDataURL()")
+        page.check("#envelope")
+        page.wait_for_function(
+            "old => document.getElementById('response').toDataURL() !== old", arg=plain
+        )
         page.close()
+    assert views_drawn == ["phase", "delay", "magnitude"]
     print(f"\npreview window screenshot: {shot}")
     assert frames >= 2.0 * 20  # 20 frames a second or more (the issue's requirement)
     import matplotlib.image

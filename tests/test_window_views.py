@@ -128,6 +128,25 @@ def test_a_design_given_by_parts_is_saved_with_its_gain_resistors(tmp_path):
 
 
 def test_toml_text_round_trips_through_the_standard_reader():
-    document = {"title": 'a "quoted" name', "n": 3, "x": 0.1, "on": True,
-                "t": {"list": [1, 2]}, "rows": [{"a": "1"}, {"a": "2", "sub": [{"b": 1.5}]}]}  # fmt: skip
+    document = {
+        "title": 'a "quoted" name',
+        "n": 3,
+        "x": 0.1,
+        "on": True,
+        "t": {"list": [1, 2]},
+        "rows": [{"a": "1"}, {"a": "2", "sub": [{"b": 1.5}]}],
+    }
     assert tomllib.loads(savefile.dumps(document)) == document  # Python's tomllib (TOML 1.0)
+
+
+def test_the_tolerance_envelope_holds_the_nominal_response_of_every_way():
+    design = load("bookshelf-2way")
+    f = views.plot_grid_hz(RATE_HZ)
+    envelope = views.tolerance_envelope(way_names(design), design, f, builds=200)
+    for band, filt in zip(envelope, design.filters, strict=True):
+        nominal = np.maximum(20 * np.log10(np.abs(filt.frequency_response(f))), views.FLOOR_DB)
+        lo, hi = np.array(band["min_db"]), np.array(band["max_db"])
+        # the analog response of the nominal parts lies between the extremes of the builds
+        # wherever parts spread it (Monte Carlo, run_tolerance), to the page's rounding
+        assert np.all(lo <= nominal + 0.01) and np.all(nominal <= hi + 0.01)
+        assert np.max(hi - lo) > 0.1  # 1 % and 5 % parts do spread it

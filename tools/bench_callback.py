@@ -25,9 +25,9 @@ from __future__ import annotations
 import argparse
 import datetime
 import json
-import threading
 import os
 import platform
+import threading
 import time
 
 import numba

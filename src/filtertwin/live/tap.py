@@ -67,8 +67,13 @@ class SignalTap:
         if not 0 < frames <= capacity:
             raise ValueError(f"frames must be 1 to {capacity}, got {frames}")
         written = int(self.written[0])
-        rows = np.arange(written - frames, written) % capacity
-        data = self.ring[:, rows].astype(np.float64)
+        end = written % capacity
+        data = np.empty((2, frames))
+        if frames <= end:
+            data[:] = self.ring[:, end - frames : end]
+        else:  # the stretch wraps round the end of the ring
+            data[:, : frames - end] = self.ring[:, capacity - (frames - end) :]
+            data[:, frames - end :] = self.ring[:, :end]
         if written < frames:
             data[:, : frames - written] = 0.0
         return data[DRY], data[OUT], written

@@ -174,20 +174,12 @@ class WindowServer:
             return _json({"type": "live", "blind": True, "level_db": view.level_db})
         meters = self.link.meters()
         dry, out, rate_hz = self.link.latest_signals(views.SPECTRUM_FRAMES)
-        edges = views.spectrum_grid_hz(rate_hz)
-        return _json(
-            _finite(
-                {
-                    "type": "live",
-                    "meters": meters,
-                    "spectrum": {
-                        "f_hz": [round(float(f), 2) for f in (edges[:-1] * edges[1:]) ** 0.5],
-                        "in_db": views.spectrum_db(dry, rate_hz),
-                        "out_db": views.spectrum_db(out, rate_hz),
-                    },
-                }
-            )
-        )
+        spectrum = {
+            "f_hz": views.spectrum_centres_hz(views.SPECTRUM_FRAMES, rate_hz),
+            "in_db": views.spectrum_db(dry, rate_hz),
+            "out_db": views.spectrum_db(out, rate_hz),
+        }
+        return _json({"type": "live", "meters": _finite(meters), "spectrum": spectrum})
 
     async def _broadcast(self, text: str) -> None:
         for ws in list(self._sockets):

@@ -32,7 +32,12 @@ RESPONSE_WORDS = {"lowpass": "low-pass", "highpass": "high-pass"}
 def db(h: np.ndarray) -> list[float]:
     """Magnitude in dB, floored at ``FLOOR_DB``, rounded for the page."""
     mag = np.maximum(np.abs(h), 10 ** (FLOOR_DB / 20))
-    return [round(float(v), 3) for v in 20 * np.log10(mag)]
+    return rounded(20 * np.log10(mag), 3)
+
+
+def rounded(values: np.ndarray, decimals: int) -> list[float]:
+    """Values rounded for the page, as a list (non-finite ones stay, the server nulls them)."""
+    return np.round(np.asarray(values, float), decimals).tolist()
 
 
 def plot_grid_hz(rate_hz: float) -> np.ndarray:
@@ -177,11 +182,11 @@ def response_curves(
 
 
 def _phase(h: np.ndarray) -> list[float]:
-    return [round(float(v), 2) for v in np.degrees(np.unwrap(np.angle(h)))]
+    return rounded(np.degrees(np.unwrap(np.angle(h))), 2)
 
 
 def _delay(d: np.ndarray) -> list[float]:
-    return [float(f"{v:.5g}") for v in d]
+    return rounded(d, 9)  # to the nanosecond
 
 
 def _sum_delay(h: np.ndarray, f_hz: np.ndarray) -> np.ndarray:
@@ -198,10 +203,13 @@ def tolerance_envelope(
 
     result = run_tolerance(design, builds, seed=1, f_hz=f_hz)
     return [
-        {"way": way, "min_db": [round(float(v), 3) for v in ft.min_db],
-         "max_db": [round(float(v), 3) for v in ft.max_db]}
+        {
+            "way": way,
+            "min_db": rounded(np.maximum(ft.min_db, FLOOR_DB), 3),
+            "max_db": rounded(np.maximum(ft.max_db, FLOOR_DB), 3),
+        }
         for way, ft in zip(ways, result.filters, strict=True)
-    ]  # fmt: skip
+    ]
 
 
 def spectrum_grid_hz(rate_hz: float) -> np.ndarray:
@@ -209,30 +217,50 @@ def spectrum_grid_hz(rate_hz: float) -> np.ndarray:
     return np.geomspace(SPECTRUM_LOW_HZ, 0.5 * rate_hz, SPECTRUM_BINS + 1)
 
 
-_WINDOWS: dict[int, tuple[np.ndarray, float]] = {}
+class SpectrumBands:
+    """Power spectra of blocks of ``frames`` samples in log-spaced bands (plan made once).
+
+    Each band holds the largest FFT bin inside it (or the nearest bin when a band is
+    narrower than a bin), so a sine reads its level whatever band it falls in; the level is
+    in dB re a full-scale sine (Hann window, amplitude-corrected).
+    """
+
+    def __init__(self, frames: int, rate_hz: float) -> None:
+        self.window = np.hanning(frames)
+        self.scale = (2.0 / float(np.sum(self.window))) ** 2
+        freqs = np.fft.rfftfreq(frames, 1.0 / rate_hz)
+        edges = spectrum_grid_hz(rate_hz)
+        lo = np.minimum(np.searchsorted(freqs, edges[:-1]), len(freqs) - 1)
+        hi = np.maximum(lo + 1, np.searchsorted(freqs, edges[1:]))
+        self.starts = lo
+        self.single = hi - lo <= 1
+        self.centres_hz = rounded(np.sqrt(edges[:-1] * edges[1:]), 2)
+
+    def __call__(self, x: np.ndarray) -> list[float]:
+        power = np.abs(np.fft.rfft(x * self.window)) ** 2 * self.scale
+        peaks = np.maximum.reduceat(power, self.starts)
+        peaks = np.where(self.single, power[self.starts], peaks)
+        return rounded(10 * np.log10(np.maximum(peaks, 1e-16)), 1)
+
+
+_PLANS: dict[tuple[int, float], SpectrumBands] = {}
+
+
+def _plan(frames: int, rate_hz: float) -> SpectrumBands:
+    key = (frames, float(rate_hz))
+    if key not in _PLANS:
+        _PLANS[key] = SpectrumBands(frames, rate_hz)
+    return _PLANS[key]
 
 
 def spectrum_db(x: np.ndarray, rate_hz: float) -> list[float]:
-    """Power spectrum of the last block (Hann window), in dB re full-scale sine, per band.
+    """:class:`SpectrumBands` of ``x`` (plans kept per length and rate)."""
+    return _plan(len(x), rate_hz)(x)
 
-    Each band holds the largest FFT bin inside it (or the nearest bin when a band is
-    narrower than a bin), so a sine reads its level whatever band it falls in.
-    """
-    n = len(x)
-    if n not in _WINDOWS:
-        window = np.hanning(n)
-        _WINDOWS[n] = (window, float(np.sum(window)))
-    window, gain = _WINDOWS[n]
-    power = np.abs(np.fft.rfft(x * window)) ** 2 * (2.0 / gain) ** 2
-    freqs = np.fft.rfftfreq(n, 1.0 / rate_hz)
-    edges = spectrum_grid_hz(rate_hz)
-    lo = np.searchsorted(freqs, edges[:-1])
-    hi = np.maximum(lo + 1, np.searchsorted(freqs, edges[1:]))
-    lo = np.minimum(lo, len(power) - 1)
-    peaks = np.maximum.reduceat(power, lo) if len(lo) else power[:0]
-    # reduceat takes lo[i]:lo[i+1]; bands narrower than a bin take the bin itself
-    peaks = np.where(hi - lo <= 1, power[lo], peaks)
-    return [round(float(v), 1) for v in 10 * np.log10(np.maximum(peaks, 1e-16))]
+
+def spectrum_centres_hz(frames: int, rate_hz: float) -> list[float]:
+    """Centre frequency of each band of :func:`spectrum_db` (geometric mean of its edges)."""
+    return _plan(frames, rate_hz).centres_hz
 
 
 def session_state(view: SessionView, originals: Sequence[Design], clipping: Sequence[str]) -> dict:
@@ -280,7 +308,7 @@ def session_state(view: SessionView, originals: Sequence[Design], clipping: Sequ
         "can_redo": view.can_redo,
         "capture": view.capture,
         "blind": view.blind,
-        "f_hz": [round(float(f), 3) for f in f_hz],
+        "f_hz": rounded(f_hz, 3),
     }
     index = view.selected
     if index is not None:

@@ -183,16 +183,34 @@ function spectrumPlot() {
 
 // --- meters ----------------------------------------------------------------------------------
 
-function meter(name, peak) {
+function meterLevel(peak) {
   const db = peak > 0 ? 20 * Math.log10(peak) : -120;
-  const fraction = Math.max(0, Math.min(1, (db + 60) / 60));
-  return el("div", { class: "meter" },
-    el("div", { class: "row" }, el("span", {}, name), el("span", {}, `${dbfs(peak)} dBFS`)),
-    el("div", { class: "bar" }, el("div", { class: "fill" + (db > -1.5 ? " hot" : ""), style: `width:${(100 * fraction).toFixed(1)}%` })));
+  return [Math.max(0, Math.min(1, (db + 60) / 60)), db > -1.5];
 }
 
+function meter(name) {
+  const value = el("span", {}, "");
+  const fill = el("div", { class: "fill" });
+  const node = el("div", { class: "meter", "data-meter": name },
+    el("div", { class: "row" }, el("span", {}, name), value), el("div", { class: "bar" }, fill));
+  return { node, value, fill };
+}
+
+// the meters are made once per set of ways and then only their numbers and widths change
 function renderMeters(m) {
-  $("meter-rows").replaceChildren(meter("output", m.output_peak), ...m.way_peaks.map(([w, p]) => meter(w, p)));
+  const names = ["output", ...m.way_peaks.map(([w]) => w)];
+  if (!page.meters || page.meters.key !== names.join()) {
+    const rows = names.map(meter);
+    $("meter-rows").replaceChildren(...rows.map(r => r.node));
+    page.meters = { key: names.join(), rows };
+  }
+  const peaks = [m.output_peak, ...m.way_peaks.map(([, p]) => p)];
+  page.meters.rows.forEach((row, i) => {
+    const [fraction, hot] = meterLevel(peaks[i]);
+    row.value.textContent = `${dbfs(peaks[i])} dBFS`;
+    row.fill.style.width = `${(100 * fraction).toFixed(1)}%`;
+    row.fill.classList.toggle("hot", hot);
+  });
   const facts = [
     ["limiter", m.limit_db < -0.05 ? `${num(m.limit_db, 1)} dB` : "0 dB"],
     ["clipping", m.clipping.length ? m.clipping.join(", ") : "none"],
@@ -202,7 +220,10 @@ function renderMeters(m) {
     ["level", `${num(m.level_db, 1)} dB` + (m.ramp < 0.999 ? ` (ramp ${num(100 * m.ramp, 0)} %)` : "")],
     ["ADC capture", page.state && page.state.capture ? page.state.capture : "not set up"],
   ];
-  $("facts").replaceChildren(...facts.flatMap(([k, v]) => [el("dt", {}, k), el("dd", {}, v)]));
+  if (!page.facts) {
+    page.facts = facts.map(([k]) => { const dd = el("dd", {}, ""); $("facts").append(el("dt", {}, k), dd); return dd; });
+  }
+  facts.forEach(([, v], i) => { if (page.facts[i].textContent !== v) page.facts[i].textContent = v; });
   if (m.loop_s) {
     $("loop-fill").style.width = `${(100 * m.position_s / m.loop_s).toFixed(1)}%`;
     $("loop-text").textContent = `loop ${num(m.position_s, 1)} of ${num(m.loop_s, 1)} s`;
@@ -250,6 +271,7 @@ function onState(s) {
   if (s.blind && !s.blind.finished) {
     // nothing that could tell X apart: the page holds no candidate, plot or meter
     for (const id of ["candidates", "ways", "rows", "meter-rows", "facts", "response-key"]) $(id).replaceChildren();
+    page.meters = null; page.facts = null;
     $("hearing").textContent = `blind trial ${s.blind.trial} of ${s.blind.trials}`;
     renderBlind(s.blind);
     return;

@@ -29,13 +29,28 @@ const Plot = (() => {
       canvas.style.height = cssHeight + "px";
     }
     const ctx = canvas.getContext("2d");
-    ctx.setTransform(ratio, 0, 0, ratio, 0, 0);
     const w = canvas.width / ratio, h = canvas.height / ratio;
-    ctx.clearRect(0, 0, w, h);
     const lx0 = Math.log10(spec.xMin), lx1 = Math.log10(spec.xMax);
     const X = f => PAD.left + (Math.log10(f) - lx0) / (lx1 - lx0) * (w - PAD.left - PAD.right);
     const Y = v => PAD.top + (spec.yMax - v) / (spec.yMax - spec.yMin) * (h - PAD.top - PAD.bottom);
+    const gridKey = [canvas.width, canvas.height, spec.xMin, spec.xMax, spec.yMin, spec.yMax].join();
+    if (canvas._gridKey !== gridKey) {
+      canvas._grid = document.createElement("canvas");
+      canvas._grid.width = canvas.width;
+      canvas._grid.height = canvas.height;
+      const g = canvas._grid.getContext("2d");
+      g.setTransform(ratio, 0, 0, ratio, 0, 0);
+      drawGrid(g, w, h, spec, X, Y, lx0);
+      canvas._gridKey = gridKey;
+    }
+    ctx.setTransform(1, 0, 0, 1, 0, 0);
+    ctx.clearRect(0, 0, canvas.width, canvas.height);
+    ctx.drawImage(canvas._grid, 0, 0);
+    ctx.setTransform(ratio, 0, 0, ratio, 0, 0);
+    drawData(ctx, w, h, spec, X, Y);
+  }
 
+  function drawGrid(ctx, w, h, spec, X, Y, lx0) {
     ctx.font = "11px system-ui, sans-serif";
     ctx.strokeStyle = "#e4e0d8";
     ctx.fillStyle = "#69707a";
@@ -55,6 +70,11 @@ const Plot = (() => {
       ctx.beginPath(); ctx.moveTo(PAD.left, Y(v)); ctx.lineTo(w - PAD.right, Y(v)); ctx.stroke();
       ctx.fillText(Number(v.toPrecision(6)) + (spec.yUnit || ""), PAD.left - 4, Y(v) + 4);
     }
+    ctx.strokeStyle = "#c9c3b8";
+    ctx.strokeRect(PAD.left, PAD.top, w - PAD.left - PAD.right, h - PAD.top - PAD.bottom);
+  }
+
+  function drawData(ctx, w, h, spec, X, Y) {
     ctx.save();
     ctx.beginPath();
     ctx.rect(PAD.left, PAD.top, w - PAD.left - PAD.right, h - PAD.top - PAD.bottom);
@@ -84,8 +104,6 @@ const Plot = (() => {
     }
     ctx.restore();
     ctx.setLineDash([]);
-    ctx.strokeStyle = "#c9c3b8";
-    ctx.strokeRect(PAD.left, PAD.top, w - PAD.left - PAD.right, h - PAD.top - PAD.bottom);
   }
 
   return { draw };
