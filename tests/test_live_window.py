@@ -352,6 +352,7 @@ def test_blind_trials_show_nothing_of_x_and_end_with_the_exact_binomial_p_value(
             assert not any(name in html for name in names)
             assert page.locator(".meter, .card, [data-candidate]").count() == 0
             assert page.get_attribute("#spectrum", "data-frames") is None  # never drawn
+            before_last_answer = len(frames)
             page.click(f"[data-answer={answer}]")
             if trial < len(answers):
                 page.wait_for_selector(f"#blind-title:text('trial {trial + 1} of')")
@@ -359,14 +360,15 @@ def test_blind_trials_show_nothing_of_x_and_end_with_the_exact_binomial_p_value(
         shown_p = float(page.get_attribute("[data-p-value]", "data-p-value"))
         result = page.inner_text("#blind-result")
         page.close()
-    before_end = [f for f in frames if '"finished":true' not in f and '"ended"' not in f]
-    before_end = before_end[: next(i for i, f in enumerate(frames) if '"finished":true' in f)]
-    assert before_end and not any(name in f for f in before_end for name in names)
+    # nothing the page received before the last answer names a design (on the wire too)
+    received = frames[:before_last_answer]
+    assert received and not any(name in f for f in received for name in names)
+    assert any(name in f for f in frames[before_last_answer:] for name in NAMES)  # revealed
     hits = sum(a == x for a, x in zip(answers, plan.x_is, strict=True))
     expected = stats.binomtest(hits, 4, 0.5, alternative="greater").pvalue  # exact binomial
     assert shown_p == expected
     assert f"{hits} of 4 right" in result and "A was" in result
-    assert json.loads(frames[-1])["type"] in ("said", "state", "ended", "live")
+    assert all(json.loads(f)["type"] in ("said", "state", "ended", "live") for f in frames)
 
 
 # --- undo, redo, save as; the terminal alongside -------------------------------------------------
