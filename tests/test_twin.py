@@ -94,7 +94,7 @@ def test_corner_at_or_above_nyquist_is_a_clear_error():
     with pytest.raises(
         UserInputError,
         match=r"stage 1 f0 \d+ Hz is at or above the Nyquist frequency 24000 Hz of the "
-        r"48000 Hz twin; raise --rate",
+        r"48000 Hz twin; --oversample auto runs the twin at a multiple of the rate",
     ):
         build_twin(d, 48000.0)
 
