@@ -10,6 +10,12 @@ times and reports the median and the 99th percentile of its time, in microsecond
 share of the block period at 48 kHz (targets at 64 frames: median below 5 % at 1x, below
 10 % with the twins oversampled 8x, the resampling in the callback as ``listen`` runs it).
 
+With ``--window`` it also times the callback as ``listen --window`` runs it: the preview
+window's tap attached (the callback copies each block into it) and, on another thread, what
+the server does 25 times a second for a connected page (the latest 4096 frames copied out of
+the tap, two spectra, the JSON message). Runs with and without alternate; the medians'
+ratio is printed (target: within 10 %).
+
 For scale, the same run measures ``scipy.signal.sosfilt`` with ``zi`` on one chain's block
 (8 sections, stereo) and prints the ratio; machines are shared and noisy, so compare the
 ratio between runs rather than the microseconds.
@@ -19,8 +25,10 @@ from __future__ import annotations
 
 import argparse
 import datetime
+import json
 import os
 import platform
+import threading
 import time
 
 import numba
@@ -33,6 +41,10 @@ from filtertwin.live.player import warm_up
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.live.stream import Oversampling, StreamCore
+from filtertwin.live.tap import SignalTap
+from filtertwin.live.tap import warm_up as warm_up_tap
+from filtertwin.live.window import views
+from filtertwin.live.window.server import LIVE_RATE_HZ
 
 RATE_HZ = 48000.0
 SECTIONS = 8
@@ -70,8 +82,21 @@ def make_core(frames: int, factor: int = 1) -> StreamCore:
     return core
 
 
-def time_callback(frames: int, blocks: int, factor: int = 1) -> np.ndarray:
+def serve_page(tap: SignalTap, stop: threading.Event) -> None:
+    """What the window's server does for a connected page, LIVE_RATE_HZ times a second."""
+    while not stop.wait(1.0 / LIVE_RATE_HZ):
+        dry, out, _ = tap.latest(views.SPECTRUM_FRAMES)
+        json.dumps(
+            {"in_db": views.spectrum_db(dry, RATE_HZ), "out_db": views.spectrum_db(out, RATE_HZ)}
+        )
+
+
+def time_callback(frames: int, blocks: int, window: bool = False, factor: int = 1) -> np.ndarray:
     core = make_core(frames, factor)
+    stop = threading.Event()
+    if window:
+        core.tap = SignalTap()
+        threading.Thread(target=serve_page, args=(core.tap, stop), daemon=True).start()
     rng = np.random.default_rng(1)
     source = (0.1 * rng.standard_normal((1, 32 * frames, 2))).astype(np.float32)
     out = np.zeros((frames, 2), dtype=np.float32)
@@ -88,7 +113,23 @@ def time_callback(frames: int, blocks: int, factor: int = 1) -> np.ndarray:
         started = clock()
         core.output_callback(out, frames, None, 0)
         times[n] = clock() - started
+    stop.set()
     return times / 1e3
+
+
+def compare_window(frames: int, blocks: int, rounds: int = 4) -> None:
+    """Median callback time without and with a connected page, runs alternating."""
+    plain, served = [], []
+    for _ in range(rounds):
+        plain.append(time_callback(frames, blocks)[100:])
+        served.append(time_callback(frames, blocks, window=True)[100:])
+    without, with_page = np.median(np.concatenate(plain)), np.median(np.concatenate(served))
+    ratio = with_page / without
+    verdict = "met" if ratio <= 1.10 else "MISSED"
+    print(
+        f"  {frames:4d} frames: median {without:6.1f} us without the window, {with_page:6.1f} us "
+        f"with a connected page; ratio {ratio:.3f} (target <= 1.10: {verdict})"
+    )
 
 
 def time_sosfilt(frames: int, blocks: int) -> np.ndarray:
@@ -109,6 +150,7 @@ def main() -> None:
     parser.add_argument("--blocks", type=int, default=20000, help="callbacks timed per size")
     parser.add_argument("--frames", type=int, nargs="+", default=[64, 256])
     parser.add_argument("--factors", type=int, nargs="+", default=[1, 8])
+    parser.add_argument("--window", action="store_true", help="also compare with a page served")
     args = parser.parse_args()
     print(f"date: {datetime.datetime.now().astimezone().isoformat(timespec='seconds')}")
     print(f"machine: {machine()}")
@@ -120,7 +162,9 @@ def main() -> None:
         print(f" twins at {factor}x" + (" (resampling in the callback)" if factor > 1 else ""))
         for frames in args.frames:
             period_us = 1e6 * frames / RATE_HZ
-            cb = time_callback(frames, args.blocks, factor)[100:]  # the first calls fill caches
+            cb = time_callback(frames, args.blocks, factor=factor)[
+                100:
+            ]  # the first calls fill caches
             ref = time_sosfilt(frames, args.blocks)[100:]
             med, p99 = np.median(cb), np.percentile(cb, 99)
             medians[factor, frames] = med
@@ -138,6 +182,11 @@ def main() -> None:
             print(f"target at {factor}x (median < {share:.0%} of the 64-frame period): {verdict}")
     if (1, 64) in medians and (8, 64) in medians:
         print(f"8x / 1x callback time at 64 frames: {medians[8, 64] / medians[1, 64]:.2f}")
+    if args.window:
+        warm_up_tap()
+        print("preview window (listen --window): tap attached, page served 25 times a second")
+        for frames in args.frames:
+            compare_window(frames, args.blocks // 4)
 
 
 if __name__ == "__main__":
