@@ -11,6 +11,7 @@ MODULES = [
     "filtertwin.units",
     "filtertwin.eseries",
     "filtertwin.noise",
+    "filtertwin.resample",
 ]
 
 
