@@ -20,8 +20,8 @@ from filtertwin.checks.alias import (
     capture,
     check_alias,
     ideal_dynamic_range_db,
-    psd,
 )
+from filtertwin.checks.foldpower import plan_spectrum, spectrum
 from filtertwin.design import design_filter, load
 from filtertwin.errors import UserInputError
 
@@ -88,9 +88,10 @@ def test_welch_psd_integrates_to_the_variance():
     rng = np.random.default_rng(5)
     rate = 48000.0
     x = 0.2 * rng.standard_normal(96000) + tones(rate, 2.0, [(1234.5, 0.3)]) + 0.7
-    f, p = psd(x, rate)
+    plan = plan_spectrum(len(x), rate, 2000.0, 150.0)
+    f, p = spectrum(x, rate, plan)
     assert np.sum(p) * (f[1] - f[0]) == pytest.approx(np.var(x), rel=0.01)
-    assert f[1] - f[0] <= 6.0  # about the resolution asked for (4 Hz), a power of two
+    assert f[1] - f[0] <= 2000.0 / 100  # well under a hundredth of the band
 
 
 def test_check_finds_tones_their_aliases_and_the_filtered_levels():
@@ -99,7 +100,8 @@ def test_check_finds_tones_their_aliases_and_the_filtered_levels():
     filt = design.filters[0]
     parts = [(500.0, 0.5), (5300.0, 0.1), (11100.0, 0.05)]
     x = tones(rate, 2.0, parts)
-    check, caps = check_alias(design, x, rate, adc, band_hz=band, reject_db=20.0)
+    # 16 bits: the twin must follow the model down to 108 dB, which covers both spurs
+    check, caps = check_alias(design, x, rate, adc, band_hz=band, bits=16)
 
     found = {round(c.source_hz / 100) * 100: c for c in check.components}
     assert set(found) == {5300, 11100}
@@ -110,6 +112,7 @@ def test_check_finds_tones_their_aliases_and_the_filtered_levels():
         assert c.alias_hz == pytest.approx(float(alias_frequency(f, adc)), abs=6)
         assert c.without_filter_peak == pytest.approx(a, rel=0.01)
         # level times |H(f)| of the analog model (the twin runs oversampled: within 0.3 dB)
+        assert c.note == ""
         assert 20 * math.log10(c.with_filter_peak / (a * g)) == pytest.approx(0, abs=0.3)
         assert c.in_band
 
@@ -139,14 +142,20 @@ def test_requirement_is_attenuation_at_adc_rate_minus_band():
     assert check.required_db == pytest.approx(6.02 * 8 + 1.76, abs=0.01)  # Bennett; Kester
     assert not check.passed
     assert check.margin_db == pytest.approx(check.attenuation_db - check.required_db)
-    passing, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=3500.0, reject_db=20.0)
+    # 20 dB asked and met at 4.5 kHz, but the band reaches beyond the 2 kHz corner: FAIL
+    wide, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=3500.0, reject_db=20.0)
+    assert wide.margin_db > 0 and not wide.passed
+    assert "beyond the filter's passband edge" in " ".join(wide.reasons())
+    passing, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=1900.0, reject_db=20.0)
     assert passing.passed and passing.margin_db == pytest.approx(passing.attenuation_db - 20)
 
 
-def test_default_band_is_the_filter_corner_capped_at_the_adc_nyquist():
+def test_default_band_is_where_the_droop_reaches_its_limit_capped_at_the_adc_nyquist():
     x = tones(48000.0, 0.5, [(500.0, 0.5)])
     check, _ = check_alias(lowpass(corner="2 kHz"), x, 48000.0, 8000.0)
-    assert check.band_hz == 2000.0
+    # a Butterworth filter is 3.01 dB down at its corner (10 log10 2, Butterworth 1930)
+    assert 1950.0 <= check.band_hz <= 2000.0
+    assert check.droop.max_droop_db <= 3.0 and check.droop.passed
     check, _ = check_alias(lowpass(corner="6 kHz"), x, 48000.0, 8000.0)
     assert check.band_hz == 4000.0
 

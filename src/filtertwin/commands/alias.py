@@ -10,11 +10,14 @@ import json
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import column, frequency_hz, hz, out_folder
+from filtertwin.commands.options import column, frequency_hz, hz, out_folder, positive
 from filtertwin.errors import UserInputError
 
 DEFAULT_OUT = "filtertwin-alias"
 DEFAULT_BITS = 16
+DEFAULT_MAX_DROOP_DB = 3.0
+"""Same as :data:`filtertwin.checks.droop.DEFAULT_MAX_DROOP_DB` (a test keeps them equal; the
+parser does not import numpy)."""
 
 
 def register(subparsers: Any) -> None:
@@ -43,7 +46,15 @@ def register(subparsers: Any) -> None:
     need.add_argument("--reject-db", type=float, metavar="X", help="required attenuation, dB")
     p.add_argument(
         "--band", type=frequency_hz, metavar="HZ",
-        help="top of the band of interest (default: the filter's corner, at most ADC rate / 2)",
+        help="top of the band of interest (default: where the filter droops --max-droop, at "
+        "most its corner and ADC rate / 2)",
+    )  # fmt: skip
+    p.add_argument(
+        "--max-droop", type=positive(float, "--max-droop"), metavar="DB",
+        default=DEFAULT_MAX_DROOP_DB,
+        help=f"largest loss allowed over the band, dB below the passband gain (default "
+        f"{DEFAULT_MAX_DROOP_DB:g}: the half-power edge of a passband; an amplitude-accuracy "
+        "spec sets it tighter, e.g. 0.1)",
     )  # fmt: skip
     p.add_argument(
         "--out", metavar="DIR", default=DEFAULT_OUT,
@@ -77,6 +88,7 @@ def run(args: argparse.Namespace) -> int:
     check, captures = check_alias(
         design, samples, info.rate_hz, adc_rate, filter_name=args.filter, band_hz=band,
         bits=args.bits if args.bits is not None else DEFAULT_BITS, reject_db=args.reject_db,
+        max_droop_db=args.max_droop,
     )  # fmt: skip
 
     out = out_folder(args.out)
@@ -98,7 +110,11 @@ def run(args: argparse.Namespace) -> int:
     files["figure"] = str(alias_figure(check, out / f"{stem}-alias.png", protect=protect))
 
     if args.json:
-        summary = check.to_dict() | {"recording": str(info.path), "files": files}
+        summary = check.to_dict() | {
+            "recording": str(info.path),
+            "column": info.channel_names[0],
+            "files": files,
+        }
         print(json.dumps(summary, indent=2))
     else:
         print(_text(check, info, files))
@@ -106,16 +122,21 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _text(check: Any, info: Any, files: dict[str, str]) -> str:
+    d = check.droop
     lines = [
         f"anti-alias check of filter '{check.filter_name}'",
         f"recording: {info.path} ({hz(info.rate_hz)}, {info.duration_s:.3f} s, "
-        f"{info.channel_names[0]})",
+        f"column {info.channel_names[0]})",
         f"ADC: {hz(check.adc_rate_hz)} (Nyquist {hz(check.adc_rate_hz / 2)}); band of interest "
         f"0 to {hz(check.band_hz)}",
         f"required: {check.required_db:.2f} dB at {hz(check.attenuation_at_hz)} "
         f"(ADC rate - band): {check.requirement}",
-        f"attenuation there (analog as-built model): {check.attenuation_db:.2f} dB",
-        f"verdict: {check.verdict}, margin {check.margin_db:+.2f} dB",
+        f"attenuation there (analog as-built model): {check.attenuation_db:.2f} dB, "
+        f"margin {check.margin_db:+.2f} dB",
+        f"band edge {hz(d.band_hz)}: gain {d.edge_gain_db:+.2f} dB, phase "
+        f"{d.edge_phase_deg:.1f} deg, group delay {_seconds(d.edge_delay_s)}; largest droop "
+        f"{d.max_droop_db:.2f} dB at {hz(d.max_droop_at_hz)} (limit {d.limit_db:g} dB)",
+        f"verdict: {check.verdict}" + "".join(f"; {r}" for r in check.reasons()),
         f"power folding into the band, re in-band signal: without filter "
         f"{check.aliased_without_db:.1f} dB, with filter {check.aliased_with_db:.1f} dB",
         "",
@@ -127,14 +148,25 @@ def _text(check: Any, info: Any, files: dict[str, str]) -> str:
                      f"{'filter':>8s}")  # fmt: skip
         for c in check.components:
             where = "  in band" if c.in_band else ""
+            note = f"  ({c.note}; model: {c.expected_with_db:.1f})" if c.note else ""
             lines.append(
                 f"  {hz(c.source_hz):>11s} {hz(c.alias_hz):>11s} {c.without_filter_db:9.1f} "
-                f"{c.with_filter_db:9.1f} {c.filter_db:8.1f}{where}"
+                f"{c.with_filter_db:9.1f} {c.filter_db:8.1f}{where}{note}"
             )
     else:
         lines.append("no distinct components above the ADC's Nyquist frequency (only noise)")
     lines.append("")
-    lines.append(f"twin oversampling: {check.oversampling}x; ADC captures at "
-                 f"{hz(check.capture_rate_hz)}")  # fmt: skip
+    sp = check.spectrum
+    short = " (as fine as the recording's length allows)" if sp.limited_by_length else ""
+    lines.append(f"spectra: {hz(sp.bin_hz)} bins{short}, Kaiser window with sidelobes "
+                 f"{sp.sidelobe_db:.0f} dB down")  # fmt: skip
+    lines.append(check.twin.describe())
+    lines.append(f"ADC captures at {hz(check.capture_rate_hz)}")
     lines += [f"wrote {path}" for path in files.values()]
     return "\n".join(lines)
+
+
+def _seconds(value_s: float) -> str:
+    from filtertwin.units import format_si
+
+    return format_si(value_s, "s", 4)
