@@ -293,3 +293,31 @@ def test_command_defaults_agree_with_the_check():
 
     defaults = inspect.signature(check_alias).parameters
     assert command.DEFAULT_BITS == defaults["bits"].default
+
+
+def test_command_suggests_designs_writes_the_first_and_records_the_column(
+    tmp_path, capsys, monkeypatch
+):
+    from filtertwin import cli
+
+    inputs = write_inputs(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    argv = ["alias", inputs["design"], inputs["csv"], "--adc-rate", "8k", "--column", "b",
+            "--rate", "48k", "--band", "1k", "--reject-db", "60", "--max-droop", "1",
+            "--suggest", "--save-suggestion", "better.toml", "--json", "--out", "o"]  # fmt: skip
+    status = cli.main(argv)
+    data = json.loads(capsys.readouterr().out)
+    assert status in (0, 1)
+    assert data["column"] == "b"
+    assert data["suggestions"] and data["saved_design"] == "better.toml"
+    first = data["suggestions"][0]
+    # the design written passes the same check (exit status 0)
+    again = cli.main(["alias", "better.toml", inputs["csv"], "--adc-rate", "8k", "--column", "b",
+                      "--rate", "48k", "--band", "1k", "--reject-db", "60", "--max-droop", "1",
+                      "--out", "o2"])  # fmt: skip
+    out = capsys.readouterr().out
+    assert again == 0 and "verdict: PASS" in out, out
+    assert first["yield"] >= 0.99  # the default target, 99 % of the builds
+    # never overwritten
+    assert cli.main(argv) == 2
+    assert "exists" in capsys.readouterr().err

@@ -16,6 +16,8 @@ from filtertwin.errors import UserInputError
 DEFAULT_OUT = "filtertwin-alias"
 DEFAULT_BITS = 16
 DEFAULT_MAX_DROOP_DB = 3.0
+DEFAULT_BUILDS = 500
+DEFAULT_MIN_YIELD_PCT = 99.0
 """Same as :data:`filtertwin.checks.droop.DEFAULT_MAX_DROOP_DB` (a test keeps them equal; the
 parser does not import numpy)."""
 
@@ -67,6 +69,27 @@ def register(subparsers: Any) -> None:
         help="sample rate of a CSV without time column or NPY",
     )  # fmt: skip
     p.add_argument("--column", metavar="NAME", help="CSV column or audio/NPY channel to read")
+    what = p.add_argument_group("what would pass")
+    what.add_argument(
+        "--suggest", action="store_true",
+        help="also search alignments, orders 1-10 and corners for low-pass designs (on this "
+        "design's parts and amplifier) that meet the requirement and --max-droop, and print "
+        "them fewest amplifiers first",
+    )  # fmt: skip
+    what.add_argument(
+        "--builds", type=positive(int, "--builds"), metavar="N", default=DEFAULT_BUILDS,
+        help=f"tolerance builds per suggested design (default {DEFAULT_BUILDS})",
+    )  # fmt: skip
+    what.add_argument(
+        "--min-yield", type=positive(float, "--min-yield"), metavar="PCT",
+        default=DEFAULT_MIN_YIELD_PCT,
+        help=f"share of builds that must pass for a design to be suggested (default "
+        f"{DEFAULT_MIN_YIELD_PCT:g} %%)",
+    )  # fmt: skip
+    what.add_argument(
+        "--save-suggestion", metavar="FILE",
+        help="write the first suggested design to FILE (a new design file, never overwritten)",
+    )  # fmt: skip
     p.set_defaults(func=run)
 
 
@@ -109,15 +132,21 @@ def run(args: argparse.Namespace) -> int:
         files[label] = str(path)
     files["figure"] = str(alias_figure(check, out / f"{stem}-alias.png", protect=protect))
 
+    suggestions = _suggest(args, design, check, protect) if args.suggest else None
     if args.json:
         summary = check.to_dict() | {
             "recording": str(info.path),
             "column": info.channel_names[0],
             "files": files,
         }
+        if suggestions is not None:
+            summary["suggestions"] = [x.to_dict() for x in suggestions[0]]
+            summary["saved_design"] = suggestions[1]
         print(json.dumps(summary, indent=2))
     else:
         print(_text(check, info, files))
+        if suggestions is not None:
+            print(_suggestion_text(check, args, *suggestions))
     return 0 if check.passed else 1
 
 
@@ -163,6 +192,54 @@ def _text(check: Any, info: Any, files: dict[str, str]) -> str:
     lines.append(check.twin.describe())
     lines.append(f"ADC captures at {hz(check.capture_rate_hz)}")
     lines += [f"wrote {path}" for path in files.values()]
+    return "\n".join(lines)
+
+
+def _suggest(
+    args: argparse.Namespace, design: Any, check: Any, protect: list[Path]
+) -> tuple[tuple[Any, ...], str | None]:
+    """The search, and the first design written where asked."""
+    from filtertwin.checks.suggest import design_toml, suggest_designs, write_design
+
+    if args.min_yield > 100:
+        raise UserInputError(f"--min-yield {args.min_yield:g} is above 100 %; give e.g. 99")
+    found = suggest_designs(
+        check.adc_rate_hz, check.band_hz, check.required_db, max_droop_db=args.max_droop,
+        base=design, builds=args.builds, min_yield=args.min_yield / 100,
+    )  # fmt: skip
+    saved = None
+    if args.save_suggestion and found:
+        text = design_toml(found[0], design)
+        saved = str(write_design(args.save_suggestion, text, tuple(protect)))
+    return found, saved
+
+
+def _suggestion_text(check: Any, args: argparse.Namespace, found: Any, saved: str | None) -> str:
+    head = (
+        f"\nwhat would pass: low-pass designs on this design's parts and amplifier with "
+        f"{check.required_db:.1f} dB at {hz(check.attenuation_at_hz)}, droop <= "
+        f"{args.max_droop:g} dB to {hz(check.band_hz)}, and {args.min_yield:g} % of "
+        f"{args.builds} tolerance builds passing"
+    )
+    if not found:
+        return (
+            f"{head}:\n  none up to order 10 with these parts; raise the ADC rate, narrow "
+            "--band, allow more droop (--max-droop) or widen the part ranges"
+        )
+    lines = [head + " (fewest amplifiers first, then margin):"]
+    lines.append(f"  {'alignment':<18s} {'order':>5s} {'corner':>11s} {'amps':>4s} "
+                 f"{'atten dB':>8s} {'margin':>7s} {'droop':>6s} {'yield':>6s}")  # fmt: skip
+    for s in found:
+        lines.append(
+            f"  {s.label:<18s} {s.order:5d} {hz(s.corner_hz):>11s} {s.amplifiers:4d} "
+            f"{s.attenuation_db:8.1f} {s.margin_db:+7.1f} {s.droop_db:6.2f} "
+            f"{100 * s.yield_fraction:5.1f}%"
+            + ("" if s.topology == "unity" else f"  ({s.topology})")
+        )
+    if saved:
+        lines.append(f"wrote {saved} (the first design): try it with filtertwin design {saved}")
+    elif not args.save_suggestion:
+        lines.append("(--save-suggestion FILE writes the first one as a design file)")
     return "\n".join(lines)
 
 
