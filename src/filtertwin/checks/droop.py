@@ -2,8 +2,9 @@
 
 A filter that meets its stopband requirement by eating the band of interest has not solved
 anything: the check reports the analog as-built model's gain, phase and group delay at the
-band edge and the largest droop over the band, and fails when the droop exceeds a limit or
-the band reaches beyond the filter's passband.
+band edge and the largest droop over the band (the largest departure from the passband gain:
+a loss, or the rise of a peaking response such as an even-order Chebyshev), and fails when
+the droop exceeds a limit or the band reaches beyond the filter's passband.
 
 The default limit, :data:`DEFAULT_MAX_DROOP_DB` (3 dB), is the conventional edge of a
 passband (half power, where a Butterworth or Bessel filter's corner is defined): a band
@@ -41,7 +42,8 @@ class Droop:
         Gain (dB re passband gain), phase (degrees, unwrapped from low frequency) and group
         delay at the band edge.
     max_droop_db : float
-        Largest loss over the band (dB below the passband gain, >= 0).
+        Largest departure from the passband gain over the band (dB, >= 0): a loss, or a
+        rise where the response peaks (Chebyshev ripple of even order).
     max_droop_at_hz : float
         Where it is.
     limit_db : float
@@ -75,7 +77,8 @@ class Droop:
             )
         if self.max_droop_db > self.limit_db:
             return (
-                f"the band droops {self.max_droop_db:.2f} dB (at {self.max_droop_at_hz:.5g} Hz), "
+                f"the band departs {self.max_droop_db:.2f} dB from the passband gain (at "
+                f"{self.max_droop_at_hz:.5g} Hz), "
                 f"more than the {self.limit_db:g} dB allowed (--max-droop)"
             )
         return ""
@@ -119,7 +122,7 @@ def passband_droop(filt: Filter, band_hz: float, limit_db: float = DEFAULT_MAX_D
         raise UserInputError(f"droop limit {limit_db:g} dB must be positive; give --max-droop 3")
     lo, hi = passband_edges_hz(filt)
     grid = _band_grid(lo, band_hz)
-    loss = -_gain_db(filt, grid)
+    loss = np.abs(_gain_db(filt, grid))
     i = int(np.argmax(loss))
     edge = np.array([band_hz])
     h = filt.frequency_response(grid)
@@ -129,7 +132,7 @@ def passband_droop(filt: Filter, band_hz: float, limit_db: float = DEFAULT_MAX_D
         edge_gain_db=float(_gain_db(filt, edge)[0]),
         edge_phase_deg=float(phase[-1]),
         edge_delay_s=float(filt.group_delay_s(edge)[0]),
-        max_droop_db=float(max(loss[i], 0.0)),
+        max_droop_db=float(loss[i]),
         max_droop_at_hz=float(grid[i]),
         limit_db=float(limit_db),
         passband_edge_hz=float(hi),
@@ -143,7 +146,7 @@ def band_within_droop(filt: Filter, limit_db: float, cap_hz: float) -> float:
     lo, hi = passband_edges_hz(filt)
     top = min(hi, cap_hz)
     grid = _band_grid(lo, top)
-    loss = -_gain_db(filt, grid)
+    loss = np.abs(_gain_db(filt, grid))
     start = int(np.argmin(loss))
     over = np.nonzero(loss[start:] > limit_db)[0]
     if not len(over):

@@ -145,7 +145,7 @@ def corner_range(
     meeting the requirement at ``stop_hz``, from the ideal prototype (Hz)."""
     poles = prototypes.prototype_poles(alignment, order, ripple_db=ripple_db, bessel_norm="mag")
     w = np.geomspace(1e-3, 1e3, 6000)
-    loss = _loss_db(poles, w)
+    loss = np.abs(_loss_db(poles, w))
     worst_so_far = np.maximum.accumulate(loss)
     ok = np.nonzero(worst_so_far <= max_droop_db)[0]
     w_droop = float(w[ok[-1]]) if len(ok) else 0.0
@@ -250,7 +250,7 @@ def _yields(design: Design, band_hz: float, stop_hz: float, required_db: float,
     db = (10 * np.log10(np.maximum(power, 1e-300)) - filt.passband_db).reshape(
         builds, len(corners_hz), len(f)
     )
-    ok = (-db[:, :, -1] >= required_db) & (np.max(-db[:, :, :-1], axis=2) <= max_droop_db)
+    ok = (-db[:, :, -1] >= required_db) & (np.max(np.abs(db[:, :, :-1]), axis=2) <= max_droop_db)
     return np.asarray(ok.mean(axis=0))
 
 

@@ -54,7 +54,8 @@ def register(subparsers: Any) -> None:
     p.add_argument(
         "--max-droop", type=positive(float, "--max-droop"), metavar="DB",
         default=DEFAULT_MAX_DROOP_DB,
-        help=f"largest loss allowed over the band, dB below the passband gain (default "
+        help=f"largest droop (or peaking rise) allowed over the band, dB from the passband "
+        f"gain (default "
         f"{DEFAULT_MAX_DROOP_DB:g}: the half-power edge of a passband; an amplitude-accuracy "
         "spec sets it tighter, e.g. 0.1)",
     )  # fmt: skip
