@@ -321,3 +321,31 @@ def test_command_suggests_designs_writes_the_first_and_records_the_column(
     # never overwritten
     assert cli.main(argv) == 2
     assert "exists" in capsys.readouterr().err
+
+
+def test_csv_messages_name_the_real_cause_and_an_option_that_exists(tmp_path, capsys,
+                                                                    monkeypatch):  # fmt: skip
+    from filtertwin import cli
+
+    inputs = write_inputs(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    comma = tmp_path / "comma.csv"
+    comma.write_text("time;value\n0,000;0,25\n0,001;0,30\n0,002;0,10\n")
+    assert cli.main(["alias", inputs["design"], str(comma), "--adc-rate", "200"]) == 2
+    err = capsys.readouterr().err
+    assert "decimal comma" in err and err.count("\n") == 1
+    # an uneven logger clock: one step 5 % long (common practice: 1 % is the default limit)
+    rate = 8000.0
+    t = np.arange(4000) / rate
+    t[2000:] += 0.05 / rate
+    values = np.sin(2 * np.pi * 500 * t)
+    jitter = tmp_path / "jitter.csv"
+    jitter.write_text(
+        "time,v\n" + "".join(f"{a:.9f},{b:.6f}\n" for a, b in zip(t, values, strict=True))
+    )
+    argv = ["alias", inputs["design"], str(jitter), "--adc-rate", "2000", "--band", "900",
+            "--reject-db", "10"]  # fmt: skip
+    assert cli.main(argv) == 2
+    err = capsys.readouterr().err
+    assert "--max-jitter" in err
+    assert cli.main([*argv, "--max-jitter", "10"]) in (0, 1)  # the option exists and works

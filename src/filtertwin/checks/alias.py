@@ -298,6 +298,8 @@ def capture(samples: np.ndarray, rate_hz: float, adc_rate_hz: float) -> tuple[np
         return np.array(samples[::step], dtype=float), rate_hz / step
     frac = (Fraction(adc_rate_hz) / Fraction(rate_hz)).limit_denominator(MAX_RATIO_DENOMINATOR)
     up, down = frac.numerator, frac.denominator
+    if up == 1:  # the nearest ratio of whole numbers is a whole-number step
+        return np.array(samples[::down], dtype=float), rate_hz / down
     h = interpolator_taps(up)
     delay = INTERP_ZERO_CROSSINGS * up
     pad = (-delay) % down

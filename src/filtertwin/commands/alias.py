@@ -10,7 +10,14 @@ import json
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import column, frequency_hz, hz, out_folder, positive
+from filtertwin.commands.options import (
+    add_max_jitter,
+    column,
+    frequency_hz,
+    hz,
+    out_folder,
+    positive,
+)
 from filtertwin.errors import UserInputError
 
 DEFAULT_OUT = "filtertwin-alias"
@@ -70,6 +77,7 @@ def register(subparsers: Any) -> None:
         help="sample rate of a CSV without time column or NPY",
     )  # fmt: skip
     p.add_argument("--column", metavar="NAME", help="CSV column or audio/NPY channel to read")
+    add_max_jitter(p)
     what = p.add_argument_group("what would pass")
     what.add_argument(
         "--suggest", action="store_true",
@@ -102,7 +110,10 @@ def run(args: argparse.Namespace) -> int:
 
     design = load(args.design)
     adc_rate, band = args.adc_rate, args.band
-    info = recordings.inspect(args.recording, rate_hz=args.rate, column=column(args.column))
+    info = recordings.inspect(
+        args.recording, rate_hz=args.rate, column=column(args.column),
+        jitter_limit=args.max_jitter / 100,
+    )  # fmt: skip
     if info.channels != 1:
         names = ", ".join(info.channel_names)
         raise UserInputError(
