@@ -176,3 +176,21 @@ def test_plan_uses_bins_under_a_hundredth_of_the_band_when_the_recording_allows(
     assert plan.bin_hz < 5.0 / 100
     plan = plan_spectrum(100 * 3600, 100.0, 5.0, 148.0)  # an hour: the wanted 200 bins per band
     assert plan.bin_hz == pytest.approx(5.0 / 200, rel=0.01) and not plan.limited_by_length
+
+
+def test_with_filter_figures_equal_without_plus_the_model_gain_or_say_why():
+    # a filter is linear: a spur keeps its ratio to the noise beside it, so after the filter
+    # it sits where the model puts it (without + |H| in dB) unless the row says why not
+    rate, adc, band = 48000.0, 8000.0, 1500.0
+    design = design_filter("aa", response="lowpass", alignment="butterworth", order=6,
+                           corner="2 kHz")  # fmt: skip
+    x = recording(rate, 2.0, (300.0, 1.0), (9300.0, 0.1), 1e-3, seed=8)
+    check, _ = check_alias(design, x, rate, adc, band_hz=band)
+    (comp,) = check.components
+    gain = abs(design.filters[0].frequency_response(np.array([9300.0]))[0])
+    # the analog model's gain at the source frequency, in dB (Oppenheim & Schafer 4.2 for
+    # where it lands; the model is the reference the twin must follow)
+    assert comp.filter_db == pytest.approx(20 * math.log10(gain), abs=0.01)
+    assert comp.expected_with_db == pytest.approx(comp.without_filter_db + comp.filter_db, abs=0.1)
+    assert abs(comp.with_filter_db - comp.expected_with_db) <= 1.0 or comp.note
+    assert comp.with_filter_db == pytest.approx(comp.expected_with_db, abs=1.0)
