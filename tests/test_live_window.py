@@ -408,3 +408,49 @@ def test_undo_redo_and_save_as_from_the_page_and_the_terminal_drives_the_same_se
     saved = build_design(load_design(tmp_path / "my-build.toml"))
     assert saved.filter("topcut").stages[1].circuit.c1 == pytest.approx(33e-9, rel=1e-12)
     assert any("saved A as my-build.toml" in line for line in said)
+
+
+# --- the command line ------------------------------------------------------------------------
+
+
+def test_listen_window_from_the_command_line_prints_the_address_and_serves_the_page(
+    tmp_path, jack_server
+):
+    import os
+    import shutil
+    import subprocess
+    import sys
+
+    wav, _ = noise_wav(tmp_path, 1.0)
+    env = {
+        k: v for k, v in os.environ.items() if k not in ("DISPLAY", "WAYLAND_DISPLAY", "BROWSER")
+    }
+    env["PYTHONPATH"] = str(Path(__file__).resolve().parents[1] / "src")
+    command = [sys.executable, "-m", "filtertwin", "listen", "candidate-butterworth", "--input",
+               str(wav), "--device", "system", "--window", "--duration", "6"]  # fmt: skip
+    process = subprocess.Popen(
+        command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, stdin=subprocess.DEVNULL,
+        text=True, env=env,
+    )  # fmt: skip
+    lines = []
+    try:
+        while not lines or not lines[-1].startswith("preview window: "):
+            line = process.stdout.readline()
+            assert line, "the address was never printed"
+            lines.append(line)
+        url = lines[-1].split()[2]
+        assert url.startswith("http://127.0.0.1:")
+        assert status_of(url) == 200 and status_of(url + "app.js") == 200
+        assert status_of(url.rsplit("/", 2)[0] + "/") == 403
+        rest = process.stdout.read()  # the same buffered reader, up to the end of the run
+        process.wait(timeout=30)
+        errors = process.stderr.read()
+    finally:
+        if process.poll() is None:
+            process.kill()
+    text = "".join(lines) + rest
+    assert process.returncode == 0, errors
+    assert "stopped (duration)" in text and "Traceback" not in errors
+    console_browsers = ("www-browser", "links", "elinks", "lynx", "w3m")
+    if not any(shutil.which(b) for b in console_browsers):  # a headless machine, as in CI
+        assert "no web browser found here: open the address above in one" in text
