@@ -454,3 +454,53 @@ def test_listen_window_from_the_command_line_prints_the_address_and_serves_the_p
     console_browsers = ("www-browser", "links", "elinks", "lynx", "w3m")
     if not any(shutil.which(b) for b in console_browsers):  # a headless machine, as in CI
         assert "no web browser found here: open the address above in one" in text
+
+
+# --- the loop: jump and region -----------------------------------------------------------------
+
+
+def source_position_s(dry: np.ndarray, source: np.ndarray) -> float | None:
+    """Where in the source file a stretch of the heard dry input starts (seconds), or None
+    when it is no exact stretch of it (it holds a crossfade)."""
+    mono = source.astype(np.float64).mean(axis=1)
+    scores = signal.correlate(mono, dry, mode="valid", method="fft")
+    k = int(np.argmax(scores))
+    return k / RATE_HZ if np.max(np.abs(mono[k : k + len(dry)] - dry)) < 1e-6 else None
+
+
+def test_clicking_the_loop_bar_jumps_and_a_region_keeps_the_loop_inside_it(
+    tmp_path, jack_server, browser
+):
+    wav, source = noise_wav(tmp_path, 4.0)  # 0.17 s of silence, then 4 s of noise
+    length_s = len(source) / RATE_HZ
+    player = player_for(NAMES[:1], wav, [])
+    with served(player) as (server, _, _):
+        page = open_page(browser, server)
+        page.wait_for_selector("#loop-text[data-position]")
+        box = page.locator("#loop").bounding_box()
+        page.mouse.click(box["x"] + 0.75 * box["width"], box["y"] + box["height"] / 2)
+        time.sleep(0.6)  # the read-ahead (0.25 s) in front of the jump plays first
+        dry, _, _ = server.link.tap.latest(4096)
+        jumped_to = source_position_s(dry[-2048:], source)
+        assert jumped_to is not None
+        shown = float(page.get_attribute("#loop-text", "data-position"))
+        page.fill("#loop-start", "1.0")
+        page.fill("#loop-end", "1.5")
+        page.click("#loop-set")
+        page.wait_for_selector("#loop-text:has-text('looping 1.0 to 1.5 s')")
+        time.sleep(1.2)  # more than two rounds of the 0.5 s region
+        heard = []
+        for _ in range(12):
+            dry, _, _ = server.link.tap.latest(1024)
+            heard.append(source_position_s(dry, source))
+            time.sleep(0.07)
+        page.close()
+    # the click at 3/4 of the bar asks for 0.75 x the file's length; 0.6 s later the heard
+    # stretch starts between there and 0.6 s on (plus a block)
+    target = 0.75 * length_s
+    assert target - 0.01 <= jumped_to <= target + 0.6 + 0.05, (target, jumped_to)
+    assert abs(shown - (jumped_to + 2048 / RATE_HZ)) < 0.35  # the page shows where it is
+    found = [s for s in heard if s is not None]  # a stretch across the crossfaded wrap: None
+    assert len(found) >= 6, heard
+    for start in found:  # every stretch heard lies inside the region (1024 frames long)
+        assert 1.0 - 1e-9 <= start and start + 1024 / RATE_HZ <= 1.5 + 1e-9, heard
