@@ -12,6 +12,8 @@ MODULES = [
     "filtertwin.eseries",
     "filtertwin.noise",
     "filtertwin.resample",
+    "filtertwin.checks.alias",
+    "filtertwin.checks.foldpower",
 ]
 
 

@@ -448,6 +448,11 @@ def prepare(
                 factor, len(sos), in_channels, CHUNK_FRAMES, options.resampling, np.float64
             )
         prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say, over)
+        if plan is not None:
+            for c in candidates:
+                for note in capture_mod.stopband_notes(c.label, c.design, info.rate_hz,
+                                                       plan.adc_rate_hz):  # fmt: skip
+                    say(note)
         captures = 0 if plan is None else len(sos) + 1
         feeder = _feeder(options, info, rate_hz, len(sos) + 1 + captures, prefilter)
     core = stream.StreamCore(
