@@ -253,7 +253,7 @@ def _polyphase(h: np.ndarray, gain: float) -> tuple[np.ndarray, np.ndarray, np.n
     return taps, lengths, offsets
 
 
-@numba.njit(cache=True, fastmath=True, nogil=True)
+@numba.njit(cache=True, fastmath=True)
 def _taps_into(part, row, start, taps, length):  # pragma: no cover
     """``part[i] += sum_t taps[t] row[start + t + i]``, four taps per pass over ``part``
     (fewer loads and stores per multiply-add); slices keep every index non-negative, so
@@ -277,7 +277,7 @@ def _taps_into(part, row, start, taps, length):  # pragma: no cover
         t += 1
 
 
-@numba.njit(cache=True, fastmath=True, nogil=True)
+@numba.njit(cache=True, fastmath=True)
 def _up_stage(buf, hist, n, taps, lengths, offsets, acc, out, out_start):  # pragma: no cover
     """``buf[:, hist:hist+n]`` (lanes, low rate, history before it) -> ``out[:, out_start:
     out_start+2n]``: ``y[2i+k] = sum_j g_k[j] x[i - j]``; then keep the history.
@@ -304,7 +304,7 @@ def _up_stage(buf, hist, n, taps, lengths, offsets, acc, out, out_start):  # pra
             row[j] = row[n + j]
 
 
-@numba.njit(cache=True, fastmath=True, nogil=True)
+@numba.njit(cache=True, fastmath=True)
 def _down_stage(buf, hist, n, taps, lengths, offsets, out, out_start):  # pragma: no cover
     """``buf[:, 0]`` even and ``buf[:, 1]`` odd input samples (``hist`` of history, then
     ``n`` new of each) -> ``y[i] = sum_j h[j] x[2i - j]`` into ``out[:, out_start:]``:
