@@ -150,8 +150,9 @@ class StopbandPlan:
             f"-{self.level_db:.0f} dB"
             if self.reached
             else f"NO factor up to {self.largest_factor}x keeps the stopband within "
-            f"{TOLERANCE_DB:g} dB down to -{self.level_db:.0f} dB: off by {self.stopband_db:.1f} dB at "
-            f"{self.stopband_at_hz:.5g} Hz, so 'with filter' figures there are not the circuit's"
+            f"{TOLERANCE_DB:g} dB down to -{self.level_db:.0f} dB: off by "
+            f"{self.stopband_db:.1f} dB at {self.stopband_at_hz:.5g} Hz, so 'with filter' "
+            "figures there are not the circuit's"
         )
         return (
             f"twin at {self.factor}x: {where}; band of interest within "
