@@ -43,7 +43,7 @@ def test_stopband_twin_is_within_1_db_of_the_model_down_to_the_required_level(
 ):
     adc = rate / 4
     band = corner_frac * adc
-    parts = {"capacitor_range": ["1n", "10u"]}
+    parts = {"capacitor_range": ["100p", "10u"], "resistor_range": ["1k", "1M"]}
     design = design_filter(
         "aa", response="lowpass", order=order, corner=band, parts=parts, **ALIGNMENTS[kind]
     )
