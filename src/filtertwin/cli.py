@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any, NoReturn
 
 from filtertwin import __version__
-from filtertwin.commands.options import frequency_hz, oversampling
+from filtertwin.commands.options import add_resampling, frequency_hz, oversampling
 from filtertwin.errors import UserInputError
 
 SAFETY_NOTE = (
@@ -31,7 +31,11 @@ def cmd_design(args: argparse.Namespace) -> int:
     from filtertwin.twin import build_twin
 
     design = load(args.design)
-    twin = build_twin(design, args.rate, oversampling=args.oversample) if args.rate else None
+    twin = (
+        build_twin(design, args.rate, oversampling=args.oversample, resampling=args.resampling)
+        if args.rate
+        else None
+    )
     if args.bom:
         with atomic_path(args.bom, protect=[design.spec.source]) as tmp:
             with open(tmp, "w", encoding="utf-8", newline="") as fh:
@@ -90,6 +94,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--oversample", type=oversampling, default=1, help="twin oversampling: 1, 2, 4, 8 or auto"
     )
+    add_resampling(p)
     p.set_defaults(func=cmd_design)
 
     p = sub.add_parser("examples", help="list the packaged example designs")

@@ -35,6 +35,7 @@ class AmplifierSpec:
     noise_a_per_rthz: float
     open_loop_gain: float
     description: str
+    output_resistance_ohm: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -227,6 +228,7 @@ def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:
         "noise_voltage",
         "noise_current",
         "open_loop_gain_db",
+        "output_resistance",
     )
     _check_keys(table, allowed, ctx)
     preset_name = table.get("preset")
@@ -275,9 +277,31 @@ def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:
         a0 = 10 ** (a0_db / 20)
     else:
         a0 = base.open_loop_gain if base else 1e5
+    if "output_resistance" in table:
+        ro = _output_resistance(table["output_resistance"], ctx.at("output_resistance"))
+    else:
+        ro = base.output_resistance_ohm if base else DEFAULT_OUTPUT_RESISTANCE_OHM
     changed = base is None or any(k in table for k in allowed if k != "preset")
     description = base.description if base and not changed else _describe(gbw, base)
-    return AmplifierSpec(preset_name, gbw, swing, slew, en, inoise, a0, description)
+    return AmplifierSpec(preset_name, gbw, swing, slew, en, inoise, a0, description, ro)
+
+
+# common practice (no single source): open-loop output resistance of a general op-amp
+# is tens of ohms to a few hundred; used when the figures are given without a preset
+DEFAULT_OUTPUT_RESISTANCE_OHM = 50.0
+
+
+def _output_resistance(value: Any, ctx: _Ctx) -> float:
+    """Open-loop output resistance in ohm, 0 allowed (an ideal output)."""
+    if not isinstance(value, bool) and isinstance(value, int | float) and value == 0:
+        return 0.0
+    ro = _quantity(value, "ohm", ctx, '"50 ohm"')
+    if ro > 10e3:
+        raise ctx.fail(
+            f"open-loop output resistance {value!r} is above 10 kOhm, beyond any op-amp",
+            'give the figure in ohm, e.g. "50 ohm"',
+        )
+    return ro
 
 
 _DENSITY_SUFFIXES = ("/rtHz", "/sqrt(Hz)", "/\u221aHz", "/rthz")

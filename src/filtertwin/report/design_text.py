@@ -6,7 +6,7 @@ import math
 from typing import Any
 
 from filtertwin import units
-from filtertwin.design import Design, Filter, Stage
+from filtertwin.design import Design, Filter, Stage, StopbandFloor
 from filtertwin.twin import (
     FIDELITY_TOL_DB,
     FIDELITY_TOL_DEG,
@@ -67,7 +67,10 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
     lines = [f"{design.title}"]
     amp = design.amplifier
     lines.append(
-        f"amplifier: {amp.description}, swing +/-{amp.swing_v:g} V" if amp else "amplifier: ideal"
+        f"amplifier: {amp.description}, swing +/-{amp.swing_v:g} V, open-loop output "
+        f"resistance {amp.output_resistance_ohm:g} ohm"
+        if amp
+        else "amplifier: ideal"
     )
     sp = design.spec.parts
     lines.append(
@@ -90,13 +93,24 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
         )
         for s in f.stages:
             lines.append(_stage_line(s))
+        floor = f.stopband_floor()
+        if floor is not None:
+            lines.append(_floor_line(floor))
         if twin is not None and f.name in twins:
-            lines.append(_fidelity_line(twins[f.name], twin))
+            lines.append(fidelity_line(twins[f.name], twin))
     if design.warnings:
         lines.append("")
         lines.append("warnings:")
         lines += [f"  ! {w}" for w in design.warnings]
     return "\n".join(lines)
+
+
+def _floor_line(floor: StopbandFloor) -> str:
+    return (
+        f"  stopband floor {floor.level_db:.1f} dB re passband at "
+        f"{units.format_si(floor.at_hz, 'Hz', 4)} (the input reaches the output around the "
+        f"amplifiers through their output resistance), rising to {floor.rises_to_db:.1f} dB above"
+    )
 
 
 def _stage_line(s: Stage) -> str:
@@ -118,10 +132,16 @@ def _stage_line(s: Stage) -> str:
     )
 
 
-def _fidelity_line(ft: FilterTwin, twin: Twin) -> str:
+def fidelity_line(ft: FilterTwin, twin: Twin) -> str:
+    """One filter's fidelity, as the terminal and the design table show it (two spaces in),
+    with what to do when it is outside the tolerance on further lines."""
     fid = ft.fidelity
     lo, hi = fid.band_hz
-    over = f" (oversampled {twin.oversampling}x)" if twin.oversampling > 1 else ""
+    over = (
+        f" (oversampled {twin.oversampling}x, {twin.resampling_words()})"
+        if twin.oversampling > 1
+        else ""
+    )
     stop = (
         f"; stopband error {fid.stopband_error_db:.1f} dB re peak"
         if fid.stopband_error_db is not None
@@ -137,18 +157,32 @@ def _fidelity_line(ft: FilterTwin, twin: Twin) -> str:
 
 
 def _fidelity_hint(ft: FilterTwin, twin: Twin) -> str:
-    """What to do when the twin is further from the analog model than the tolerance."""
-    if ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG):
+    """What to do when the twin is further from the analog model than the tolerance: blame
+    the resampling filters when the sections alone are within it."""
+    fid = ft.fidelity
+    if fid.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG):
         return ""
+    over = f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg"
+    sections_ok = fid.sections_db <= FIDELITY_TOL_DB and fid.sections_deg <= FIDELITY_TOL_DEG
+    if twin.oversampling > 1 and sections_ok:
+        if twin.resampling == "causal":
+            return (
+                f"{over}: the sections alone are within it; the causal resampling filters "
+                "shift the phase near the top of the band; --resampling linear keeps it)"
+            )
+        return (
+            f"{over}: the sections alone are within it; the loss is the resampling filters, "
+            f"{fid.resampling_db:.3f} dB in the band)"
+        )
     if twin.oversampling < OVERSAMPLING_FACTORS[-1]:
         return (
-            f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg: the bilinear "
-            "transform compresses frequencies near Nyquist; --oversample auto runs the twin at "
-            "a higher rate)"
+            f"{over}: the bilinear transform compresses frequencies near Nyquist; "
+            "--oversample auto runs the twin at a higher rate)"
         )
     return (
-        f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg even at "
-        f"{twin.oversampling}x, on a steep skirt at {units.format_si(ft.fidelity.at_hz, 'Hz', 4)})"
+        f"{over} even at {twin.oversampling}x, the sections alone "
+        f"{fid.sections_db:.3f} dB / {fid.sections_deg:.2f} deg, largest at "
+        f"{units.format_si(fid.at_hz, 'Hz', 4)}: a skirt steeper than the twin follows there)"
     )
 
 
@@ -179,6 +213,7 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
             "noise_v_per_rthz": amp.noise_v_per_rthz,
             "noise_a_per_rthz": amp.noise_a_per_rthz,
             "open_loop_gain": amp.open_loop_gain,
+            "output_resistance_ohm": amp.output_resistance_ohm,
         },
         "filters": [],
         "warnings": [
@@ -201,6 +236,7 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                 "distance": f.resembles.distance,
             },
             "stages": [_stage_dict(s) for s in f.stages],
+            "stopband_floor": _floor_dict(f.stopband_floor()),
         }
         if f.name in twins and twin is not None:
             ft = twins[f.name]
@@ -209,6 +245,7 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                 "rate_hz": ft.rate_hz,
                 "input_rate_hz": twin.input_rate_hz,
                 "oversampling": twin.oversampling,
+                "resampling": twin.resampling if twin.oversampling > 1 else None,
                 "sos": ft.sos.tolist(),
                 "stage_of_section": list(ft.stage_of_section),
                 "fidelity": {
@@ -218,10 +255,19 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                     "at_deg_hz": fid.at_deg_hz,
                     "band_hz": list(fid.band_hz),
                     "stopband_error_db": fid.stopband_error_db,
+                    "sections_db": fid.sections_db,
+                    "sections_deg": fid.sections_deg,
+                    "resampling_db": fid.resampling_db,
                 },
             }
         out["filters"].append(entry)
     return out
+
+
+def _floor_dict(floor: StopbandFloor | None) -> dict[str, float] | None:
+    if floor is None:
+        return None
+    return {"level_db": floor.level_db, "at_hz": floor.at_hz, "rises_to_db": floor.rises_to_db}
 
 
 def _stage_dict(s: Stage) -> dict[str, Any]:

@@ -116,6 +116,8 @@ def summary_dict(
             "max_deg": ft.fidelity.max_deg,
             "at_hz": ft.fidelity.at_hz,
             "band_hz": list(ft.fidelity.band_hz),
+            "sections_db": ft.fidelity.sections_db,
+            "resampling_db": ft.fidelity.resampling_db,
             "within_tolerance": ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG),
         }
         for ft in twin.filters
@@ -137,6 +139,7 @@ def summary_dict(
         "twin": {
             "rate_hz": twin.rate_hz,
             "oversampling": twin.oversampling,
+            "resampling": twin.resampling if twin.oversampling > 1 else None,
             "fidelity": fidelity,
         },
         "render": {
@@ -256,8 +259,8 @@ def render_sections(
             f"{info.path.name}: {info.kind}, {info.channels} channel(s), "
             f"{units.format_si(info.rate_hz, 'Hz')}, {info.frames} frames "
             f"({info.duration_s:.3f} s). Rendered with the {what}, twin at "
-            f"{units.format_si(twin.rate_hz, 'Hz')} ({twin.oversampling}x oversampling), "
-            f"in {result.elapsed_s:.2f} s.",
+            f"{units.format_si(twin.rate_hz, 'Hz')} ({twin.oversampling}x oversampling, "
+            f"{twin.resampling_words()}), in {result.elapsed_s:.2f} s.",
         ],
     )
     level = "dBFS" if info.kind == "audio" else "dB re 1 unit"
@@ -297,7 +300,8 @@ def render_sections(
             ReportSection(
                 "Analog model and digital twin",
                 ["Exact analog response of the parts with the amplifier model against the"
-                 " digital twin's sections, up to the input's Nyquist frequency."],
+                 " digital twin as a render plays it (its sections and, when oversampled, the"
+                 " resampling filters around them), up to the input's Nyquist frequency."],
                 figures=[figure_paths["response"]],
                 captions=["Analog model solid, twin dashed; bottom right: twin error in dB."],
             )
