@@ -136,8 +136,8 @@ class _ProgressBar:
 
 
 def cmd_render(args: argparse.Namespace) -> int:
-    """Run ``filtertwin render``; returns the exit status (0, or 1 when a filter's twin is
-    outside the fidelity tolerance, resampling filters included)."""
+    """Run ``filtertwin render``; returns the exit status (0, or 1 when a verdict of
+    :func:`filtertwin.verdicts.render_verdicts` fails: fidelity, amplifier swing, PCM clip)."""
     from filtertwin import recordings
 
     info = recordings.inspect(args.input, rate_hz=args.rate, column=column(args.column))
@@ -203,24 +203,20 @@ def cmd_render(args: argparse.Namespace) -> int:
         _remove(audio + extra, made)
         raise
     _print_summary(result, twin, design, folder, extra + written)
-    return 0 if _print_fidelity(twin) else 1
+    return _print_verdicts(result, twin)
 
 
-def _print_fidelity(twin: Any) -> bool:
-    """Print each filter's fidelity with its verdict; True when all are within tolerance."""
+def _print_verdicts(result: Any, twin: Any) -> int:
+    """Print each filter's fidelity, then every verdict of the render; the exit status."""
+    from filtertwin import verdicts
     from filtertwin.report.design_text import fidelity_line
-    from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG
 
-    passed = True
     for ft in twin.filters:
-        ok = ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG)
-        passed = passed and ok
-        verdict = (
-            "PASS" if ok else f"FAIL (tolerance {FIDELITY_TOL_DB:g} dB, {FIDELITY_TOL_DEG:g} deg)"
-        )
-        print(f"fidelity: filter '{ft.name}' {verdict}")
         print(fidelity_line(ft, twin))
-    return passed
+    found = verdicts.render_verdicts(result, twin)
+    for line in verdicts.lines(found):
+        print(line)
+    return verdicts.exit_status(found)
 
 
 def _remove(files: list[Path], folders: list[Path]) -> None:

@@ -310,28 +310,9 @@ def render_sections(
 
 
 def _check_rows(result: RenderResult, twin: Twin) -> list[tuple[str, str, str, str]]:
-    rows = []
-    for ft in twin.filters:
-        fid = ft.fidelity
-        ok = fid.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG)
-        lo, hi = fid.band_hz
-        rows.append((
-            "twin fidelity", ft.name,
-            f"{fid.max_db:.3f} dB (at {units.format_si(fid.at_hz, 'Hz')}), {fid.max_deg:.2f} deg,"
-            f" {units.format_si(lo, 'Hz', 3)} to {units.format_si(hi, 'Hz', 3)}",
-            "PASS" if ok else "FAIL",
-        ))  # fmt: skip
-    for ft in twin.filters:
-        clips = [c for c in result.clips if c.filter == ft.name]
-        text = "; ".join(f"stage {c.stage}: {c.samples} samples limited" for c in clips)
-        verdict = "FAIL" if clips else "PASS"
-        rows.append(("amplifier swing", ft.name, text or "never reached", verdict))
-    for f in result.files:
-        if f.over_full_scale and f.subtype and f.subtype.startswith("PCM"):
-            rows.append(("file full scale", f.path.name,
-                         f"{f.over_full_scale} samples beyond full scale clipped in the file",
-                         "FAIL"))  # fmt: skip
-    return rows
+    from filtertwin import verdicts  # the same verdicts the terminal prints and exits on
+
+    return verdicts.rows(verdicts.render_verdicts(result, twin))
 
 
 def crossover_section(check: CrossoverCheck, figure: Path | None = None) -> ReportSection:
