@@ -9,6 +9,7 @@ open and what to listen to.
 from __future__ import annotations
 
 import argparse
+import shutil
 import time
 from pathlib import Path
 from typing import Any
@@ -72,10 +73,22 @@ def _audio_device_present() -> bool:
 
 
 def run(args: argparse.Namespace) -> int:
+    from filtertwin.outputs import prepare_folder
+
+    out = Path(args.out)
+    made = prepare_folder(out, "--out")  # one line, exit 2, when it cannot be written
+    try:
+        return _run_demo(out)
+    except BaseException:  # a failure or Ctrl-C: remove what this run created
+        if made:
+            shutil.rmtree(made[-1], ignore_errors=True)
+        raise
+
+
+def _run_demo(out: Path) -> int:
     from filtertwin import samples
 
     start = time.perf_counter()
-    out = Path(args.out)
     inputs = out / "inputs"
     print(
         f"filtertwin demo: invented example designs and invented recordings -> {out}/\n"

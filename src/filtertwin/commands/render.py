@@ -174,8 +174,10 @@ def cmd_render(args: argparse.Namespace) -> int:
     ]
     render.refuse_input_overwrite([p.path for p in plan] + reported, info.path)
 
-    made = [p for p in (figure_dir, folder, *folder.parents) if not p.exists()]  # deepest first
-    folder.mkdir(parents=True, exist_ok=True)
+    from filtertwin.outputs import prepare_folder
+
+    made = [figure_dir] if not figure_dir.exists() else []  # deepest first
+    made += prepare_folder(folder, "--out")  # one line, exit 2, when it cannot be written
     audio: list[Path] = []
     extra: list[Path] = []  # figures of the checks, drawn here
     try:

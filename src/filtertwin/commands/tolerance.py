@@ -12,7 +12,7 @@ import json
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import frequency_hz, hz, out_folder
+from filtertwin.commands.options import frequency_hz, hz
 from filtertwin.errors import UserInputError
 
 # the choices and defaults of filtertwin.checks.tolerance, repeated: every start registers
@@ -71,7 +71,7 @@ def _percent(text: str) -> float:
 
 
 def run(args: argparse.Namespace) -> int:
-    from filtertwin import verdicts
+    from filtertwin import outputs, verdicts
     from filtertwin.checks.tolerance import run_tolerance
     from filtertwin.design import load
 
@@ -87,8 +87,10 @@ def run(args: argparse.Namespace) -> int:
     if args.out:
         from filtertwin.report.check_figures import tolerance_figure
 
-        target = out_folder(args.out) / f"{Path(design.spec.source).stem}-tolerance.png"
-        files["figure"] = str(tolerance_figure(result, target, protect=[design.spec.source]))
+        with outputs.OutputRun(args.out) as written:  # a failure leaves nothing behind
+            target = written.folder / f"{Path(design.spec.source).stem}-tolerance.png"
+            figure = tolerance_figure(result, target, protect=[design.spec.source])
+            files["figure"] = str(written.add(figure))
     found = verdicts.tolerance_verdicts(
         result.yield_fraction, result.builds, args.yield_target / 100
     )
