@@ -78,6 +78,7 @@ def cmd_examples(args: argparse.Namespace) -> int:
         for path in examples.copy_to(Path(args.copy)):
             print(f"wrote {path}")
         return 0
+    print(examples.INVENTED_NOTE)
     for name, summary in examples.listing():
         print(f"  {name:<26s} {summary}")
     print("\nuse a name wherever a design file goes, e.g. `filtertwin design bookshelf-2way`;")

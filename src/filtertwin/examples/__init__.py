@@ -9,6 +9,12 @@ from pathlib import Path
 from filtertwin.errors import UserInputError
 
 
+INVENTED_NOTE = (
+    "packaged example designs (every one an invented scenario: no real product, board or "
+    "recording):"
+)
+
+
 def _folder() -> Path:
     return Path(str(resources.files(__package__)))
 
