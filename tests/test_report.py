@@ -207,3 +207,50 @@ def test_render_report_lists_every_file_and_figure(tmp_path):
     assert data["noise"]["filters"]["woofer"]["rms_v"] == pytest.approx(noise.filters[0].rms_v)
     assert data["noise"]["sum"]["snr_db"] == pytest.approx(noise.sum.snr_db)
     assert "Circuit noise" in page
+
+
+def _as_built_lowpass(c1: str, c2: str, r2: str = "10k"):
+    from filtertwin.design import build_design
+    from filtertwin.spec import parse_design
+
+    spec = {"filter": [{"name": "lp", "response": "lowpass", "stage": [
+        {"topology": "unity", "R1": "10k", "R2": r2, "C1": c1, "C2": c2}]}]}  # fmt: skip
+    return build_design(parse_design(spec, "<test>")).filters[0]
+
+
+def test_a_near_butterworth_stage_is_called_close_to_butterworth_with_its_q_and_minus_3_db():
+    import math
+
+    import scipy.optimize
+    import scipy.signal
+
+    from filtertwin.report.design_text import resemblance
+
+    f = _as_built_lowpass("22n", "10n", r2="12k")
+    # textbook unity-gain Sallen-Key low-pass (Horowitz & Hill 3rd ed. 6.3):
+    # w0 = 1 / sqrt(R1 R2 C1 C2), Q = sqrt(R1 R2 C1 C2) / (C2 (R1 + R2))
+    r1, r2, c1, c2 = 10e3, 12e3, 22e-9, 10e-9
+    w0 = 1 / math.sqrt(r1 * r2 * c1 * c2)
+    q = math.sqrt(r1 * r2 * c1 * c2) / (c2 * (r1 + r2))
+    # Butterworth Q of a 2nd-order section is 1/sqrt(2) (scipy.signal.butter's poles)
+    high_pct = 100 * (q * math.sqrt(2) - 1)
+
+    def level_db(f_hz: float) -> float:  # scipy.signal.freqs of the same textbook section
+        _, h = scipy.signal.freqs([w0 * w0], [1, w0 / q, w0 * w0], worN=[2 * math.pi * f_hz])
+        return 20 * math.log10(abs(h[0])) + 3.0
+
+    f3 = scipy.optimize.brentq(level_db, w0 / (2 * math.pi) / 2, 2 * w0 / (2 * math.pi))
+    text = resemblance(f)
+    assert text.startswith(f"close to Butterworth, Q {high_pct:.0f} % high, -3 dB at ")
+    shown = text.split("-3 dB at ")[1]
+    assert float(shown.split()[0]) * (1e3 if "kHz" in shown else 1) == pytest.approx(f3, rel=1e-3)
+    assert "Chebyshev" not in text
+
+
+def test_a_stage_with_real_ripple_keeps_its_chebyshev_name():
+    from filtertwin.report.design_text import resemblance
+
+    # Chebyshev 1 dB 2nd order: Q = 0.9565 (Williams & Taylor table, from memory); with equal
+    # resistors C1 / C2 = 4 Q^2 = 3.66 (common practice, REFERENCES.md)
+    text = resemblance(_as_built_lowpass("36.6n", "10n"))
+    assert text.startswith("Chebyshev 1.0") and "ripple" in text and "close to" not in text

@@ -349,16 +349,22 @@ def _stages(
     return tuple(stages)
 
 
-def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
-    responses = {s.circuit.response for s in stages}
-    if len(responses) != 1:
-        return None
+def lowpass_sections(stages: tuple[Stage, ...]) -> list[prototypes.Section]:
+    """The stages (ideal amplifier) as low-pass prototype sections: a high-pass stage's f0
+    is inverted, so both compare with the alignments' tables."""
     secs = []
     for s in stages:
         f0 = s.ideal.f0_hz
         ratio = f0 if s.circuit.response == "lowpass" else 1.0 / f0
         secs.append(prototypes.Section(s.circuit.order, ratio, s.ideal.q))
-    return prototypes.nearest_alignment(secs)
+    return secs
+
+
+def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
+    responses = {s.circuit.response for s in stages}
+    if len(responses) != 1:
+        return None
+    return prototypes.nearest_alignment(lowpass_sections(stages))
 
 
 def _amplifier_warnings(name: str, s: Stage, amp: Amplifier) -> list[DesignWarning]:

@@ -19,6 +19,15 @@ ANTIALIAS_EXAMPLE = "vibration-antialias"
 LOGGER_ADC_RATE_HZ = "8000"
 LOGGER_BITS = "16"
 TOLERANCE_BUILDS = "1000"
+LISTENING_CAUTIONS = (
+    "caution, hearing: start playback quiet and raise it slowly; loud levels, in headphones "
+    "above all, harm hearing for good.",
+    "caution, tweeters: play before.wav, woofer.wav and sum.wav only on full-range speakers "
+    "or headphones, never straight into a tweeter: full-range and low-frequency signal "
+    "destroys it.",
+    "caution, mains: a mains-powered build follows your local electrical codes; leave mains "
+    "wiring to people licensed for it.",
+)
 
 
 def register(subparsers: Any) -> None:
@@ -145,6 +154,7 @@ def _run_demo(out: Path) -> int:
         )
     else:
         print("  live   no audio device found; with one, `filtertwin listen` compares designs live")
-    print("  Start playback quiet: loud levels harm hearing and drivers.")
+    for line in LISTENING_CAUTIONS:
+        print(f"  {line}")
     print(f"\ndemo finished in {time.perf_counter() - start:.1f} s")
     return 0

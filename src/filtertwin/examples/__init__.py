@@ -8,7 +8,6 @@ from pathlib import Path
 
 from filtertwin.errors import UserInputError
 
-
 INVENTED_NOTE = (
     "packaged example designs (every one an invented scenario: no real product, board or "
     "recording):"
