@@ -324,3 +324,25 @@ def test_the_tolerance_panels_measure_the_worst_build_where_the_check_does():
     assert WORST_WINDOW_DB == 20.0
     for ft in result.filters:  # no build of a filter deviates more than its panel says
         assert check_figures.worst_here_db(ft) <= ft.worst_deviation_db + 1e-12
+
+
+def test_the_spectra_plot_names_the_roll_off_toward_nyquist():
+    import matplotlib.pyplot as plt
+
+    from filtertwin.report import figures
+    from filtertwin.twin import build_twin, resampling_response
+
+    twin = build_twin(_design("bookshelf-2way"), 48000.0, oversampling=4)
+    f = np.linspace(10.0, 24000.0, 4000)
+    fig, (top, bottom) = plt.subplots(2)
+    figures._mark_nyquist_rolloff((top, bottom), twin, f)
+    (label,) = [t for t in bottom.get_legend_handles_labels()[1] if "Nyquist" in t]
+    assert label == "resampling filters of the 4x twin roll off toward Nyquist (24 kHz)"
+    # the shading starts where the resampling filters (filtertwin.resample, the FIR of
+    # scipy.signal.resample_poly) have lost 0.1 dB
+    loss = -20 * np.log10(np.abs(resampling_response(4, f, twin.rate_hz, twin.resampling)))
+    start = f[loss > figures.ROLLOFF_DB][0]
+    (patch,) = bottom.patches
+    assert patch.get_x() == pytest.approx(start)
+    assert patch.get_x() + patch.get_width() == pytest.approx(24000.0)  # Nyquist of 48 kHz
+    plt.close(fig)
