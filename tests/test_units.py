@@ -301,6 +301,7 @@ def test_prefixes_keep_their_case_milli_is_not_mega():
             r"uF for microfarads$",
         ),  # fmt: skip
         ("10 f", r"a lone 'f' could be a prefix \(femto\) rather than F; write F for farads$"),
+        ("10 Mf", r"'mf' could mean millifarads or .* microfarads; write mF for"),
         ("10 S", r"unknown suffix 'S'"),
     ],
 )

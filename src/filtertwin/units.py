@@ -105,7 +105,7 @@ def _unit_of(spelling: str, text: str, prefixed: bool) -> str:
     folded = spelling.lower()
     if folded in _UNIT_ANY_CASE:
         return _UNIT_ANY_CASE[folded]
-    if prefixed and folded in _UNIT_AFTER_PREFIX and not text.rstrip().endswith("mf"):
+    if prefixed and folded in _UNIT_AFTER_PREFIX and not text.rstrip().lower().endswith("mf"):
         return _UNIT_AFTER_PREFIX[folded]
     if not prefixed and folded in _UNIT_AFTER_PREFIX:
         unit = _UNIT_AFTER_PREFIX[folded]
