@@ -233,6 +233,7 @@ def _print_verdicts(result: Any, twin: Any) -> int:
     from filtertwin.report.design_text import fidelity_line
 
     for ft in twin.filters:
+        print(f"fidelity of filter '{ft.name}':")
         print(fidelity_line(ft, twin))
     found = verdicts.render_verdicts(result, twin)
     for line in verdicts.lines(found):
