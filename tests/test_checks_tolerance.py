@@ -317,19 +317,19 @@ def test_tolerance_prints_a_yield_verdict_and_exits_1_below_the_target():
     first = _tolerance_cli(*args, "--json")
     data = json.loads(first.stdout)
     pct = 100 * data["yield"]
-    assert data["yield_target"] == 0.9
+    assert data["min_yield"] == 0.9
     assert first.returncode == (0 if pct >= 90 else 1) and data["verdict"] in ("PASS", "FAIL")
-    above = _tolerance_cli(*args, "--yield-target", f"{min(pct + 0.5, 100):g}")
+    above = _tolerance_cli(*args, "--min-yield", f"{min(pct + 0.5, 100):g}")
     if pct < 99.5:
         assert above.returncode == 1, above.stderr
         (line,) = [s for s in above.stdout.splitlines() if s.startswith("yield: design")]
         assert line.startswith(f"yield: design FAIL ({pct:.1f} % of 200 builds")
         assert above.stdout.splitlines()[-1].startswith("verdict: FAIL (1 of 1 failed: yield")
-    at = _tolerance_cli(*args, "--yield-target", f"{max(pct - 0.05, 0.01):.2f}")
+    at = _tolerance_cli(*args, "--min-yield", f"{max(pct - 0.05, 0.01):.2f}")
     assert at.returncode == 0 and at.stdout.splitlines()[-1] == "verdict: PASS (1 check)"
-    bad = _tolerance_cli("bookshelf-2way", "--builds", "50", "--yield-target", "120")
+    bad = _tolerance_cli("bookshelf-2way", "--builds", "50", "--min-yield", "120")
     assert bad.returncode == 2 and bad.stdout == "" and bad.stderr.count("\n") == 1
-    assert "--yield-target: must be above 0 and at most 100" in bad.stderr
+    assert "--min-yield: must be above 0 and at most 100" in bad.stderr
 
 
 def test_tolerance_of_one_filter_lists_only_that_filters_parts_under_the_worst_build():

@@ -124,7 +124,7 @@ def render_verdicts(result: RenderResult, twin: Twin) -> list[Verdict]:
 
 DEFAULT_YIELD_TARGET = 0.9
 """Yield the tolerance check asks for by default: 90 % of builds inside every filter's mask
-(common practice for a hand-built or small-batch filter; set your own with --yield-target)."""
+(common practice for a hand-built or small-batch filter; set your own with --min-yield)."""
 
 
 def tolerance_verdicts(yield_fraction: float, builds: int, target: float) -> list[Verdict]:
@@ -133,6 +133,6 @@ def tolerance_verdicts(yield_fraction: float, builds: int, target: float) -> lis
         Verdict(
             "yield", "design", yield_fraction >= target,
             f"{100 * yield_fraction:.1f} % of {builds} builds inside every filter's mask",
-            f"target {100 * target:g} %, --yield-target",
+            f"target {100 * target:g} %, --min-yield",
         )
     ]  # fmt: skip

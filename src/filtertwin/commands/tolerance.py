@@ -1,7 +1,7 @@
 """`filtertwin tolerance`: build the design many times with parts drawn within tolerance.
 
 Prints each stage's f0 and Q spread, the yield against a mask and the worst build's parts.
-With --out, writes a figure of the envelope. Verdict: the yield against --yield-target
+With --out, writes a figure of the envelope. Verdict: the yield against --min-yield
 (default 90 %); exit 0 PASS, 1 FAIL, 2 bad input.
 """
 
@@ -51,7 +51,7 @@ def register(subparsers: Any) -> None:
     p.add_argument("--stop-db", type=float, metavar="Y", help="least stopband attenuation, dB")
     p.add_argument("--filter", metavar="NAME", help="only this filter of the design")
     p.add_argument(
-        "--yield-target", type=_percent, default=DEFAULT_YIELD_PCT, metavar="PCT",
+        "--min-yield", type=_percent, default=DEFAULT_YIELD_PCT, metavar="PCT",
         help="verdict: PASS when at least this percentage of builds is inside every mask "
         f"(default {DEFAULT_YIELD_PCT:g})",
     )  # fmt: skip
@@ -91,13 +91,11 @@ def run(args: argparse.Namespace) -> int:
             target = written.folder / f"{Path(design.spec.source).stem}-tolerance.png"
             figure = tolerance_figure(result, target, protect=[design.spec.source])
             files["figure"] = str(written.add(figure))
-    found = verdicts.tolerance_verdicts(
-        result.yield_fraction, result.builds, args.yield_target / 100
-    )
+    found = verdicts.tolerance_verdicts(result.yield_fraction, result.builds, args.min_yield / 100)
     if args.json:
         extra = {
             "design": design.spec.source, "files": files,
-            "yield_target": args.yield_target / 100, "verdict": verdicts.overall(found),
+            "min_yield": args.min_yield / 100, "verdict": verdicts.overall(found),
         }  # fmt: skip
         print(json.dumps(result.to_dict() | extra, indent=2))
     else:
