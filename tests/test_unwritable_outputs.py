@@ -167,8 +167,19 @@ def test_numba_cache_falls_back_to_a_temporary_folder_with_one_notice(tmp_path):
     env = {"XDG_CACHE_HOME": str(tmp_path / "home" / "cache")}
     notice = choose_cache_dir(env, [Path(UNWRITABLE_EXISTING)])
     assert notice is not None and notice.count("\n") == 0
-    folder = Path(env["NUMBA_CACHE_DIR"])
+    folder = Path(env["NUMBA_CACHE_DIR"]).parent  # a fresh temporary folder, removed at exit
     assert folder.is_dir() and str(folder) in notice and "NUMBA_CACHE_DIR" in notice
+    assert "MPLCONFIGDIR" not in env  # matplotlib's own folder works here
+
+
+def test_matplotlib_gets_the_temporary_folder_too_when_its_config_folder_cannot_be_written(
+    tmp_path,
+):
+    (tmp_path / "home").write_text("a file where the home folder should be")
+    env = {"XDG_CONFIG_HOME": str(tmp_path / "home" / "config")}
+    notice = choose_cache_dir(env, [tmp_path])
+    assert notice is not None and notice.count("\n") == 0 and "MPLCONFIGDIR" in notice
+    assert Path(env["MPLCONFIGDIR"]).parent.is_dir() and "NUMBA_CACHE_DIR" not in env
 
 
 def test_kernels_compile_without_a_cache_when_no_folder_can_hold_one(tmp_path):

@@ -43,7 +43,8 @@ def choose_cache_dir(
     environ: MutableMapping[str, str] | None = None,
     package_dirs: Iterable[Path] = PACKAGE_DIRS,
 ) -> str | None:
-    """Make sure numba has a cache folder it can write; a one-line notice when it is temporary.
+    """Make sure numba (and matplotlib) have cache folders they can write; one notice line
+    when a temporary folder stands in.
 
     Parameters
     ----------
@@ -55,32 +56,54 @@ def choose_cache_dir(
     Returns
     -------
     str or None
-        None when numba's own places work (or ``NUMBA_CACHE_DIR`` is set); else the notice.
+        None when their own places work (or ``NUMBA_CACHE_DIR`` / ``MPLCONFIGDIR`` are set);
+        else the notice.
     """
     env = os.environ if environ is None else environ
-    if env.get("NUMBA_CACHE_DIR"):
-        return None
-    if all(_can_write(d / "__pycache__") for d in package_dirs):
-        return None
+    numba_ok = bool(env.get("NUMBA_CACHE_DIR")) or all(
+        _can_write(d / "__pycache__") for d in package_dirs
+    )
     home_cache = user_cache_dir(env)
-    if _can_write(home_cache):
+    numba_ok = numba_ok or _can_write(home_cache)
+    plot_config = matplotlib_config_dir(env)
+    plots_ok = bool(env.get("MPLCONFIGDIR")) or _can_write(plot_config)
+    if numba_ok and plots_ok:
         return None
     try:
-        folder = tempfile.mkdtemp(prefix="filtertwin-numba-")
+        folder = tempfile.mkdtemp(prefix="filtertwin-cache-")
     except OSError:
+        if numba_ok:
+            return None  # matplotlib makes do on its own
         _compile_without_cache()
         return (
             "note: no folder can hold numba's compiled kernels (not the installed package, "
             f"{home_cache} nor a temporary folder), so they are compiled without a cache; set "
             "NUMBA_CACHE_DIR to a writable folder to keep them"
         )
-    env["NUMBA_CACHE_DIR"] = folder
     atexit.register(shutil.rmtree, folder, ignore_errors=True)  # nothing left behind
+    what, where, names = [], [], []
+    if not numba_ok:
+        env["NUMBA_CACHE_DIR"] = os.path.join(folder, "numba")
+        what.append("numba's compiled kernels")
+        where.append(f"the installed package nor {home_cache}")
+        names.append("NUMBA_CACHE_DIR")
+    if not plots_ok:
+        env["MPLCONFIGDIR"] = os.path.join(folder, "matplotlib")
+        what.append("matplotlib's font cache")
+        where.append(str(plot_config))
+        names.append("MPLCONFIGDIR")
     return (
-        f"note: neither the installed package nor {home_cache} can be written, so numba's "
-        f"compiled kernels go to the temporary {folder} (compiled again each run); set "
-        "NUMBA_CACHE_DIR to a writable folder to keep them"
+        f"note: neither {' nor '.join(where)} can be written, so {' and '.join(what)} go to "
+        f"the temporary {folder} (made again each run); set {' and '.join(names)} to a "
+        "writable folder to keep them"
     )
+
+
+def matplotlib_config_dir(environ: MutableMapping[str, str]) -> Path:
+    """matplotlib's configuration and cache folder on Linux: ``$XDG_CONFIG_HOME/matplotlib``
+    or ``~/.config/matplotlib``."""
+    base = environ.get("XDG_CONFIG_HOME") or os.path.join(os.path.expanduser("~"), ".config")
+    return Path(base) / "matplotlib"
 
 
 def _compile_without_cache() -> None:
