@@ -14,6 +14,7 @@ MODULES = [
     "filtertwin.resample",
     "filtertwin.checks.alias",
     "filtertwin.checks.foldpower",
+    "filtertwin.prototypes",
 ]
 
 
