@@ -9,12 +9,13 @@ stream's ports in between).
 
 Two paths, chosen by the input:
 
-* *in the callback*: live input, or a recording at the stream's rate. The twins run at the
-  stream rate times the oversampling render would pick (the largest any candidate needs),
-  in the audio callback, on the block just read: raised and lowered again there by the
-  allocation-free resamplers render uses (:class:`~filtertwin.live.stream.Oversampling`).
-* *read ahead*: a recording at another rate (a sensor recording, say), or any recording
-  with ``--adc-rate``. The twins run at the recording's own rate in the read-ahead thread,
+* *in the callback*: live input, or a recording at the stream's rate whose twins need no
+  oversampling. The twins run in the audio callback, on the block just read; for live input
+  at the stream rate times the oversampling render would pick (the largest any candidate
+  needs), raised and lowered again there by the allocation-free resamplers render uses
+  (:class:`~filtertwin.live.stream.Oversampling`).
+* *read ahead*: a recording at another rate (a sensor recording, say), a recording whose
+  twins run oversampled, or any recording with ``--adc-rate``. The twins run at the recording's own rate in the read-ahead thread,
   and every chain's output and the dry input are resampled to the stream rate there (with
   ``--adc-rate`` also what an ideal ADC captures of each, :mod:`filtertwin.live.capture`);
   the callback only mixes. Oversampled twins are resampled around the runner there too.
@@ -419,12 +420,14 @@ def prepare(
     blind = _blind(options, candidates)
 
     same_rate = info is None or abs(info.rate_hz - rate_hz) <= 1e-6 * rate_hz
-    in_callback = same_rate and options.adc_rate_hz is None
-    processing_rate_hz = rate_hz if in_callback else info.rate_hz  # type: ignore[union-attr]
+    processing_rate_hz = rate_hz if info is None else info.rate_hz
     twins = cands.build_twins(candidates, processing_rate_hz, options.resampling)
     for line in cands.fidelity_lines(candidates, twins, blind=blind is not None):
         say(line)
     factor = twins[0].oversampling
+    # a recording's oversampled twins run in the read-ahead thread (the callback only mixes);
+    # live input has no read-ahead, so its twins are resampled in the callback
+    in_callback = info is None or (same_rate and options.adc_rate_hz is None and factor == 1)
     sos, levels = cands.chains(twins)
     program = None
     if info is not None and options.match in (None, "loudness"):
