@@ -15,8 +15,9 @@ Two paths, chosen by the input:
   needs), raised and lowered again there by the allocation-free resamplers render uses
   (:class:`~filtertwin.live.stream.Oversampling`).
 * *read ahead*: a recording at another rate (a sensor recording, say), a recording whose
-  twins run oversampled, or any recording with ``--adc-rate``. The twins run at the recording's own rate in the read-ahead thread,
-  and every chain's output and the dry input are resampled to the stream rate there (with
+  twins run oversampled, or any recording with ``--adc-rate``. The twins run at the
+  recording's own rate (times their oversampling) in the read-ahead thread, and every
+  chain's output and the dry input are resampled to the stream rate there (with
   ``--adc-rate`` also what an ideal ADC captures of each, :mod:`filtertwin.live.capture`);
   the callback only mixes. Oversampled twins are resampled around the runner there too.
 
