@@ -54,6 +54,7 @@ from collections.abc import Sequence
 import numpy as np
 from llvmlite import ir
 from numba import njit, types
+from numba.core import cgutils
 from numba.extending import intrinsic, models, overload, register_model
 
 __all__ = ["FLUSH_BELOW", "CascadeRunner", "sosfilt_blocks", "validate_sos", "warm_up"]
@@ -65,8 +66,9 @@ _CHUNK_FRAMES = 256  # frames staged per pass; also how often the state is flush
 _FRAMES_PER_STEP = 4  # frames each section takes per step (the state stays in registers)
 _WIDTH = 4  # float64 lanes per vector (256 bits): one lane group
 # Coefficients: for each lane group and section a block of rows, each row _WIDTH lanes wide
-# (b0, b1, b2, a1, a2, swing level, slew step, one spare row: 256 bytes):
-_B0, _B1, _B2, _A1, _A2, _LEVEL, _STEP = (row * _WIDTH for row in range(7))
+# (b0, b1, b2, a1, a2, swing level, slew step, and the section's kind in every lane: 0 no
+# limits, 1 swing clamping, 2 clamping and slewing, for every lane of its group; 256 bytes):
+_B0, _B1, _B2, _A1, _A2, _LEVEL, _STEP, _KIND = (row * _WIDTH for row in range(8))
 _SEC_ROWS = 8
 _SEC_BLOCK = _SEC_ROWS * _WIDTH
 # Working memory: for each lane group and section (plus one slot for the cascade's output):
@@ -191,21 +193,50 @@ def _vclamp(typingctx, y, level):
 
 
 @intrinsic
-def _vslew(typingctx, y, prev, step):
-    """``y`` moved at most ``step`` away from ``prev``, element by element.
+def _vslew(typingctx, y, prev, step, level):
+    """``y`` clamped to +/- ``level`` and moved at most ``step`` away from ``prev``.
 
-    Where ``|y - prev| <= step`` (or either is NaN) the result is ``y`` itself, bit for bit.
+    One clamp to [max(prev - step, -level), min(prev + step, level)]: the same as clamping to
+    the swing and then limiting the step, as ``prev`` is within the swing. Where ``y`` is
+    inside both limits (or NaN) the result is ``y`` itself, bit for bit.
     """
 
     def codegen(context, builder, sig, args):
-        y, prev, step = args
-        change = builder.fsub(y, prev)
-        up = builder.fcmp_ordered(">", change, step)
-        down = builder.fcmp_ordered("<", change, builder.fneg(step))
+        y, prev, step, level = args
         rise, fall = builder.fadd(prev, step), builder.fsub(prev, step)
-        return builder.select(up, rise, builder.select(down, fall, y))
+        low = builder.fneg(level)
+        high = builder.select(builder.fcmp_ordered("<", rise, level), rise, level)
+        low = builder.select(builder.fcmp_ordered(">", fall, low), fall, low)
+        y = builder.select(builder.fcmp_ordered("<", y, low), low, y)
+        return builder.select(builder.fcmp_ordered(">", y, high), high, y)
 
-    return _VEC(y, prev, step), codegen
+    return _VEC(y, prev, step, level), codegen
+
+
+@intrinsic
+def _vchanged(typingctx, out, y):
+    """1.0 where ``out != y`` (neither NaN), else 0.0."""
+
+    def codegen(context, builder, sig, args):
+        return builder.uitofp(builder.fcmp_ordered("!=", args[0], args[1]), _LL_VEC)
+
+    return _VEC(out, y), codegen
+
+
+@intrinsic
+def _vrailed(typingctx, out, y, level):
+    """1.0 where ``out != y`` and ``|out| == level`` (held at the rail), else 0.0."""
+
+    def codegen(context, builder, sig, args):
+        out, y, level = args
+        fabs = cgutils.get_or_insert_function(
+            builder.module, ir.FunctionType(_LL_VEC, [_LL_VEC]), "llvm.fabs.v4f64"
+        )
+        at_rail = builder.fcmp_ordered("==", builder.call(fabs, [out]), level)
+        changed = builder.fcmp_ordered("!=", out, y)
+        return builder.uitofp(builder.and_(at_rail, changed), _LL_VEC)
+
+    return _VEC(out, y, level), codegen
 
 
 @intrinsic
@@ -237,25 +268,67 @@ def _gather(x, start, frames, n_chains, mem, stage, width):
 
 
 @njit(inline="always")
+def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
+    """Run one section over its ``per_step`` staged frames (``kind`` and ``keep_prev`` are
+    compile-time constants: the limits applied, and whether ``_PREV`` is kept)."""
+    b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
+    a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
+    z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
+    level = _vzeros()
+    clamped = _vzeros()
+    step = _vzeros()
+    prev = _vzeros()
+    slewed = _vzeros()
+    if kind >= _CLAMP:
+        level, clamped = _vload(sec, c + _LEVEL), _vload(mem, m + _COUNT)
+    if kind == _SLEW:
+        step, prev = _vload(sec, c + _STEP), _vload(mem, m + _PREV)
+        slewed = _vload(mem, m + _SLEWED)
+    y = _vzeros()
+    for k in range(per_step):
+        x = _vload(mem, m + _INPUT + k * _WIDTH)
+        # scipy's order: y = b0 x + z0; z0 = (b1 x - a1 y) + z1; z1 = b2 x - a2 y
+        y = b0 * x + z0
+        if kind == _CLAMP:
+            clamped = clamped + _vexceeds(y, level)
+            y = _vclamp(y, level)
+        elif kind == _SLEW:
+            limited = _vslew(y, prev, step, level)
+            # every limited sample, and those held at the rail (clipped, not slewing): the
+            # slewed count is their difference (see _store_state)
+            slewed = slewed + _vchanged(limited, y)
+            clamped = clamped + _vrailed(limited, y, level)
+            y = limited
+            prev = y
+        z0 = (b1 * x - a1 * y) + z1
+        z1 = b2 * x - a2 * y
+        _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
+    _vstore(mem, m + _Z0, z0)
+    _vstore(mem, m + _Z1, z1)
+    if kind >= _CLAMP:
+        _vstore(mem, m + _COUNT, clamped)
+    if kind == _SLEW:
+        _vstore(mem, m + _SLEWED, slewed)
+    if keep_prev:
+        _vstore(mem, m + _PREV, y)
+
+
+@njit(inline="always")
 def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, mode, per_step):
     """Run every section over ``frames`` staged frames, in place.
 
     Sections are skewed: in step ``t`` section ``s`` takes the ``per_step`` frames starting at
     ``(t - s) * per_step``, so the sections of one step are independent. ``frames`` must be a
     multiple of ``per_step``. ``mode`` (a compile-time constant) is ``_PLAIN``, ``_CLAMP`` or
-    ``_SLEW``. Returns False if any staged input was NaN or inf.
+    ``_SLEW``: the most any section needs; each section then runs the loop of its own kind
+    (a branch per section and step, predicted well), so sections without limits cost no more
+    than in the plain kernel. Returns False if any staged input was NaN or inf.
     """
-    limit = mode >= _CLAMP
-    slew = mode == _SLEW
     steps = frames // per_step
     last = n_sections - 1
     width = n_groups * _WIDTH
+    keep = mode == _SLEW
     nonfinite = _vzeros()  # stays zero while every input is finite (x - x == 0)
-    level = _vzeros()
-    clamped = _vzeros()
-    step = _vzeros()
-    prev = _vzeros()
-    slewed = _vzeros()
     for t in range(steps + last):
         s_low = max(0, t - steps + 1)
         s_high = min(last, t)
@@ -271,39 +344,16 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, mode, per_step
             for s in range(s_high, s_low - 1, -1):
                 c = c_group + s * _SEC_BLOCK
                 m = m_group + s * _MEM_BLOCK
-                b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
-                a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
-                z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
-                if limit:
-                    level, clamped = _vload(sec, c + _LEVEL), _vload(mem, m + _COUNT)
-                if slew:
-                    step, prev = _vload(sec, c + _STEP), _vload(mem, m + _PREV)
-                    slewed = _vload(mem, m + _SLEWED)
-                for k in range(per_step):
-                    x = _vload(mem, m + _INPUT + k * _WIDTH)
-                    # scipy's order: y = b0 x + z0; z0 = (b1 x - a1 y) + z1; z1 = b2 x - a2 y
-                    y = b0 * x + z0
-                    if limit:
-                        over = _vexceeds(y, level)
-                        y = _vclamp(y, level)
-                        if slew:
-                            # a sample still slewing has not reached the rail: not clipped
-                            limited = _vexceeds(y - prev, step)
-                            slewed = slewed + limited
-                            over = over - over * limited
-                            y = _vslew(y, prev, step)
-                            prev = y
-                        clamped = clamped + over
-                    z0 = (b1 * x - a1 * y) + z1
-                    z1 = b2 * x - a2 * y
-                    _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
-                _vstore(mem, m + _Z0, z0)
-                _vstore(mem, m + _Z1, z1)
-                if limit:
-                    _vstore(mem, m + _COUNT, clamped)
-                if slew:
-                    _vstore(mem, m + _PREV, prev)
-                    _vstore(mem, m + _SLEWED, slewed)
+                if mode == _PLAIN:
+                    _section_frames(sec, mem, c, m, per_step, _PLAIN, False)
+                else:
+                    kind = sec[c + _KIND]
+                    if mode == _SLEW and kind == _SLEW:
+                        _section_frames(sec, mem, c, m, per_step, _SLEW, True)
+                    elif kind >= _CLAMP:
+                        _section_frames(sec, mem, c, m, per_step, _CLAMP, keep)
+                    else:
+                        _section_frames(sec, mem, c, m, per_step, _PLAIN, keep)
             if t >= last:
                 for k in range(per_step):
                     y = _vload(mem, m_group + n_sections * _MEM_BLOCK + _INPUT + k * _WIDTH)
@@ -392,12 +442,13 @@ def _load_state(mem, n_chains, n_sections, channels, work):
 
 
 @njit
-def _store_state(mem, n_sections, work, out, frames, input_finite):
+def _store_state(mem, n_sections, work, out, frames, input_finite, sec):
     """Copy the work state back to the public state and add up the clip and slew counts.
 
     A chain whose state is not finite, or every chain when the input was not, is reset (its
     sections' previous outputs too) and its output for the block zeroed. Returns how many
-    chains were reset.
+    chains were reset. A slewing section (kind ``_SLEW``) counted every limited sample in
+    ``_SLEWED`` and those held at the rail in ``_COUNT``: its slewed count is the difference.
     """
     n_chains, _, channels = out.shape
     counts = n_chains * n_sections * channels * 2
@@ -416,8 +467,12 @@ def _store_state(mem, n_sections, work, out, frames, input_finite):
                 mem[i] = z0
                 mem[i + 1] = z1
                 i += 2
+                c = ((lane // _WIDTH) * n_sections + s) * _SEC_BLOCK + _KIND + lane % _WIDTH
+                slewed = work[m + _SLEWED]
+                if sec[c] == _SLEW:
+                    slewed -= work[m + _COUNT]
                 mem[counts + chain * n_sections + s] += work[m + _COUNT]
-                mem[slews + chain * n_sections + s] += work[m + _SLEWED]
+                mem[slews + chain * n_sections + s] += slewed
                 work[m + _COUNT] = 0.0
                 work[m + _SLEWED] = 0.0
         if not finite:
@@ -480,14 +535,11 @@ def _run_block(x, out, sec, mem):
     work = mem[start_work:]
     width = n_groups * _WIDTH
     stage = n_groups * (n_sections + 1) * _MEM_BLOCK
-    limit = False
-    slew = False
-    for i in range(0, sec.shape[0], _SEC_BLOCK):
-        for w in range(_WIDTH):
-            level = sec[i + _LEVEL + w]
-            limit |= level < np.inf
-            # a clamped output cannot step more than 2 level: a larger step never acts
-            slew |= sec[i + _STEP + w] < 2.0 * level
+    mode = 0.0
+    for i in range(_KIND, sec.shape[0], _SEC_BLOCK):
+        mode = max(mode, sec[i])
+    limit = mode >= _CLAMP
+    slew = mode == _SLEW
     _load_state(mem, n_chains, n_sections, channels, work)
     if slew and mem[recall] != 0.0:
         _recall_outputs(work, n_sections, n_groups, int(mem[recall]) - 1)
@@ -507,7 +559,7 @@ def _run_block(x, out, sec, mem):
             mem[recall] = 1.0 + (0 if n % _FRAMES_PER_STEP else _FRAMES_PER_STEP - 1)
         _scatter(out, start, n, work, stage, width)
         _flush(work, n_sections, n_groups)
-    return _store_state(mem, n_sections, work, out, frames, finite)
+    return _store_state(mem, n_sections, work, out, frames, finite, sec)
 
 
 def _kernel_signature(dtype: type[np.floating]) -> tuple[types.Type, ...]:
@@ -628,6 +680,18 @@ def _per_chain(
     ]
 
 
+def _mark_kinds(sec4: np.ndarray) -> None:
+    """Write each (lane group, section)'s kind from its lanes' limits: ``_SLEW`` where a lane
+    has a slew step below twice its swing level (a clamped output never steps further, so a
+    larger step never acts), else ``_CLAMP`` where a lane has a finite level, else ``_PLAIN``."""
+    level = sec4[:, :, _LEVEL // _WIDTH, :]
+    step = sec4[:, :, _STEP // _WIDTH, :]
+    slew = np.any(step < 2.0 * level, axis=-1)
+    clamp = np.any(level < np.inf, axis=-1)
+    kind = np.where(slew, _SLEW, np.where(clamp, _CLAMP, _PLAIN))
+    sec4[:, :, _KIND // _WIDTH, :] = kind[:, :, np.newaxis]
+
+
 def _aligned_zeros(size: int) -> np.ndarray:
     """float64 zeros starting on a 64-byte boundary, so no vector access splits a cache line."""
     spare = 64 // 8
@@ -736,6 +800,7 @@ class CascadeRunner:
         self._allocate()
         for chain, (sos, level, step) in enumerate(zip(sos_list, levels, steps, strict=True)):
             self._write_chain(self._sec4, chain, sos, level, step)
+        _mark_kinds(self._sec4)
         self.nonfinite_resets = 0
 
     def _allocate(self) -> None:
@@ -750,7 +815,7 @@ class CascadeRunner:
         self._sec4 = self._sec.reshape(n_groups, n_sec, _SEC_ROWS, _WIDTH)
         self._spare4 = self._spare.reshape(n_groups, n_sec, _SEC_ROWS, _WIDTH)
         self._sec4[:, :, 0, :] = 1.0  # pass-through sections pad short chains and spare lanes
-        self._sec4[:, :, _LEVEL // _WIDTH :, :] = np.inf
+        self._sec4[:, :, _LEVEL // _WIDTH : _KIND // _WIDTH, :] = np.inf
 
         n_state, _, size = _memory_layout(self.n_chains, n_sec, self.channels)
         self._mem = _aligned_zeros(size)
@@ -899,6 +964,7 @@ class CascadeRunner:
             step = _validate_levels(slew_steps, n, index, "slew steps")
         np.copyto(self._spare4, self._sec4)
         self._write_chain(self._spare4, index, new, level, step)
+        _mark_kinds(self._spare4)
         # one attribute store: a block sees either the old or the new coefficients, whole
         self._sec, self._spare = self._spare, self._sec
         self._sec4, self._spare4 = self._spare4, self._sec4
