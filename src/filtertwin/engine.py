@@ -72,9 +72,10 @@ _B0, _B1, _B2, _A1, _A2, _LEVEL, _STEP, _KIND = (row * _WIDTH for row in range(8
 _SEC_ROWS = 8
 _SEC_BLOCK = _SEC_ROWS * _WIDTH
 # Working memory: for each lane group and section (plus one slot for the cascade's output):
-# z0, z1, clamped-sample count, previous output, slewed-sample count, one spare row, then the
-# section's input for the frames of a step (a section's outputs are the next slot's input)
-_Z0, _Z1, _COUNT, _PREV, _SLEWED, _INPUT = (row * _WIDTH for row in (0, 1, 2, 3, 4, 6))
+# z0, z1, clamped-sample count, previous output, slewed-sample count, whether the last step
+# was limited (first lane), then the section's input for the frames of a step (a section's
+# outputs are the next slot's input)
+_Z0, _Z1, _COUNT, _PREV, _SLEWED, _LIMITING, _INPUT = (row * _WIDTH for row in range(7))
 _MEM_BLOCK = _INPUT + _FRAMES_PER_STEP * _WIDTH
 # the kernels: no limits, swing clamping only, swing clamping and slew limiting
 _PLAIN, _CLAMP, _SLEW = 0, 1, 2
@@ -193,24 +194,70 @@ def _vclamp(typingctx, y, level):
 
 
 @intrinsic
-def _vslew(typingctx, y, prev, step, level):
-    """``y`` clamped to +/- ``level`` and moved at most ``step`` away from ``prev``.
-
-    One clamp to [max(prev - step, -level), min(prev + step, level)]: the same as clamping to
-    the swing and then limiting the step, as ``prev`` is within the swing. Where ``y`` is
-    inside both limits (or NaN) the result is ``y`` itself, bit for bit.
-    """
+def _vhigh(typingctx, prev, step, level):
+    """The highest output allowed after ``prev``: min(prev + step, level)."""
 
     def codegen(context, builder, sig, args):
-        y, prev, step, level = args
-        rise, fall = builder.fadd(prev, step), builder.fsub(prev, step)
-        low = builder.fneg(level)
-        high = builder.select(builder.fcmp_ordered("<", rise, level), rise, level)
-        low = builder.select(builder.fcmp_ordered(">", fall, low), fall, low)
+        prev, step, level = args
+        rise = builder.fadd(prev, step)
+        return builder.select(builder.fcmp_ordered("<", rise, level), rise, level)
+
+    return _VEC(prev, step, level), codegen
+
+
+@intrinsic
+def _vlow(typingctx, prev, step, level):
+    """The lowest output allowed after ``prev``: max(prev - step, -level)."""
+
+    def codegen(context, builder, sig, args):
+        prev, step, level = args
+        fall, low = builder.fsub(prev, step), builder.fneg(level)
+        return builder.select(builder.fcmp_ordered(">", fall, low), fall, low)
+
+    return _VEC(prev, step, level), codegen
+
+
+def _vector_pick(predicate: str):
+    @intrinsic
+    def pick(typingctx, a, b):
+        def codegen(context, builder, sig, args):
+            a, b = args
+            return builder.select(builder.fcmp_ordered(predicate, a, b), a, b)
+
+        return _VEC(a, b), codegen
+
+    return pick
+
+
+_vmax = _vector_pick(">")  # the larger of two, element by element (b where either is NaN)
+_vmin = _vector_pick("<")
+
+
+@intrinsic
+def _vbeyond(typingctx, top, bottom, limit):
+    """True if any element of ``top`` is above ``limit`` or of ``bottom`` below -``limit``,
+    or any is NaN (so that the limited loop, which handles NaN, runs)."""
+
+    def codegen(context, builder, sig, args):
+        top, bottom, limit = args
+        above = builder.fcmp_unordered(">", top, limit)
+        below = builder.fcmp_unordered("<", bottom, builder.fneg(limit))
+        bits = builder.bitcast(builder.or_(above, below), ir.IntType(_WIDTH))
+        return builder.icmp_unsigned("!=", bits, ir.Constant(ir.IntType(_WIDTH), 0))
+
+    return types.boolean(top, bottom, limit), codegen
+
+
+@intrinsic
+def _vbetween(typingctx, y, low, high):
+    """``y`` clamped to [``low``, ``high``], element by element (NaN stays NaN)."""
+
+    def codegen(context, builder, sig, args):
+        y, low, high = args
         y = builder.select(builder.fcmp_ordered("<", y, low), low, y)
         return builder.select(builder.fcmp_ordered(">", y, high), high, y)
 
-    return _VEC(y, prev, step, level), codegen
+    return _VEC(y, low, high), codegen
 
 
 @intrinsic
@@ -293,7 +340,9 @@ def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
             clamped = clamped + _vexceeds(y, level)
             y = _vclamp(y, level)
         elif kind == _SLEW:
-            limited = _vslew(y, prev, step, level)
+            # clamping to the swing, then limiting the step, is one clamp to these bounds
+            # (prev is within the swing)
+            limited = _vbetween(y, _vlow(prev, step, level), _vhigh(prev, step, level))
             # every limited sample, and those held at the rail (clipped, not slewing): the
             # slewed count is their difference (see _store_state)
             slewed = slewed + _vchanged(limited, y)
@@ -311,6 +360,43 @@ def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
         _vstore(mem, m + _SLEWED, slewed)
     if keep_prev:
         _vstore(mem, m + _PREV, y)
+
+
+@njit(inline="always")
+def _section_fits(sec, mem, c, m, per_step):
+    """Run a slew-limited section over its frames as if it had no limits; keep the result
+    (state, previous output) and return True if no output left the swing and no step
+    exceeded the slew step, else leave the state as it was and return False.
+
+    The check is a few maxima and minima per step, off the chain of dependent operations
+    that sets the speed, so a section that is not being limited costs little more than a
+    plain one; the caller runs the limited loop only for the steps that need it.
+    """
+    b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
+    a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
+    z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
+    level, step, prev = _vload(sec, c + _LEVEL), _vload(sec, c + _STEP), _vload(mem, m + _PREV)
+    y = _vzeros()
+    top = bottom = rise = fall = _vzeros()
+    for k in range(per_step):
+        x = _vload(mem, m + _INPUT + k * _WIDTH)
+        y_last = prev if k == 0 else y
+        y = b0 * x + z0
+        z0 = (b1 * x - a1 * y) + z1
+        z1 = b2 * x - a2 * y
+        _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
+        change = y - y_last
+        if k == 0:
+            top, bottom, rise, fall = y, y, change, change
+        else:
+            top, bottom = _vmax(top, y), _vmin(bottom, y)
+            rise, fall = _vmax(rise, change), _vmin(fall, change)
+    if _vbeyond(top, bottom, level) or _vbeyond(rise, fall, step):
+        return False
+    _vstore(mem, m + _Z0, z0)
+    _vstore(mem, m + _Z1, z1)
+    _vstore(mem, m + _PREV, y)
+    return True
 
 
 @njit(inline="always")
@@ -349,7 +435,13 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, mode, per_step
                 else:
                     kind = sec[c + _KIND]
                     if mode == _SLEW and kind == _SLEW:
-                        _section_frames(sec, mem, c, m, per_step, _SLEW, True)
+                        # try without limits unless the last step was limited (slewing
+                        # comes in runs): the limited loop only where it is needed
+                        if mem[m + _LIMITING] != 0.0 or not _section_fits(sec, mem, c, m, per_step):
+                            before = _vload(mem, m + _SLEWED)
+                            _section_frames(sec, mem, c, m, per_step, _SLEW, True)
+                            limiting = not _vall_zero(_vload(mem, m + _SLEWED) - before)
+                            mem[m + _LIMITING] = 1.0 if limiting else 0.0
                     elif kind >= _CLAMP:
                         _section_frames(sec, mem, c, m, per_step, _CLAMP, keep)
                     else:
