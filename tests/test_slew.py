@@ -40,7 +40,8 @@ def run_sine(twin, amplitude_fs: float, f_hz: float, seconds: float = 0.01):
     rate = twin.rate_hz
     t = np.arange(int(seconds * rate)) / rate
     x = (amplitude_fs * np.sin(2 * math.pi * f_hz * t))[:, np.newaxis]
-    runner = CascadeRunner(twin.chains(), 1, len(x), twin.clip_levels(), slew_steps=twin.slew_steps())
+    steps = twin.slew_steps()
+    runner = CascadeRunner(twin.chains(), 1, len(x), twin.clip_levels(), slew_steps=steps)
     return runner.process(x)[0, :, 0].copy(), runner
 
 
