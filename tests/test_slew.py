@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import math
 from pathlib import Path
 
@@ -147,6 +148,8 @@ def test_a_hot_15_khz_sine_through_a_slow_amplifier_is_reported_as_slewing(tmp_p
     assert "slewing: filter 'rumble' stage 1:" in printed
     assert "slewing: none" not in printed
     assert "clipping: none" in printed  # 9 V is inside the 13 V swing: slewing, not clipping
+    summary = json.loads((out / "summary.json").read_text())
+    assert [(c["filter"], c["stage"]) for c in summary["slewing"]] == [("rumble", 1)]
     y, _ = sf.read(Path(out) / "rumble.wav")
     steady = y[rate // 8 : -rate // 8]
     level = np.abs(np.fft.rfft(steady * np.hanning(len(steady))))

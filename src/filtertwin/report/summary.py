@@ -153,6 +153,10 @@ def summary_dict(
         "clipping": [
             {"filter": c.filter, "stage": c.stage, "samples": c.samples} for c in result.clips
         ],
+        "slewing": [
+            {"filter": c.filter, "stage": c.stage, "samples": c.samples, "at_rate_hz": twin.rate_hz}
+            for c in result.slews
+        ],
         "caution": CAUTION,
     }
     out.update(extra or {})
@@ -280,7 +284,8 @@ def render_sections(
         [
             f"Twin fidelity passes within {FIDELITY_TOL_DB:g} dB and {FIDELITY_TOL_DEG:g} degrees"
             " of the analog model where it is within 60 dB of its peak. The amplifier model"
-            " limits each stage output to the amplifier's swing; limited samples are listed.",
+            " limits each stage output to the amplifier's swing and its rate of change to the"
+            " slew rate (counted at the twin's rate); limited samples are listed.",
         ],
         tables=[(("check", "filter", "result", "verdict"), _check_rows(result, twin))],
     )
@@ -326,6 +331,10 @@ def _check_rows(result: RenderResult, twin: Twin) -> list[tuple[str, str, str, s
         text = "; ".join(f"stage {c.stage}: {c.samples} samples limited" for c in clips)
         verdict = "FAIL" if clips else "PASS"
         rows.append(("amplifier swing", ft.name, text or "never reached", verdict))
+        slews = [c for c in result.slews if c.filter == ft.name]
+        text = "; ".join(f"stage {c.stage}: {c.samples} samples slewed" for c in slews)
+        rows.append(("amplifier slew rate", ft.name, text or "never reached",
+                     "FAIL" if slews else "PASS"))  # fmt: skip
     for f in result.files:
         if f.over_full_scale and f.subtype and f.subtype.startswith("PCM"):
             rows.append(("file full scale", f.path.name,
