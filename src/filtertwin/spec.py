@@ -47,6 +47,7 @@ class PartsSpec:
     capacitor_tolerance: float = 0.05
     resistor_range_ohm: tuple[float, float] = (1e3, 100e3)
     capacitor_range_f: tuple[float, float] = (100e-12, 1e-6)
+    temperature_k: float = 298.15  # of the parts, for their thermal noise (25 degrees C)
 
 
 @dataclass(frozen=True)
@@ -197,6 +198,7 @@ def _parts(table: dict[str, Any], ctx: _Ctx) -> PartsSpec:
         "capacitor_tolerance",
         "resistor_range",
         "capacitor_range",
+        "temperature_c",
     )
     _check_keys(table, allowed, ctx)
     r_series = _series(table.get("resistors", "E96"), ctx.at("resistors"))
@@ -214,7 +216,17 @@ def _parts(table: dict[str, Any], ctx: _Ctx) -> PartsSpec:
         capacitor_tolerance=_percent(c_tol, ctx.at("capacitor_tolerance")),
         resistor_range_ohm=_range(r_range, "ohm", ctx.at("resistor_range"), '["1k", "100k"]'),
         capacitor_range_f=_range(c_range, "F", ctx.at("capacitor_range"), '["100p", "1u"]'),
+        temperature_k=_temperature_k(table.get("temperature_c", 25.0), ctx.at("temperature_c")),
     )
+
+
+def _temperature_k(value: Any, ctx: _Ctx) -> float:
+    """Degrees Celsius -> kelvin, within the range parts are rated for."""
+    if isinstance(value, bool) or not isinstance(value, int | float) or not -55 <= value <= 155:
+        raise ctx.fail(
+            f"must be a number of degrees C from -55 to 155, got {value!r}", "use e.g. 25"
+        )
+    return float(value) + 273.15
 
 
 def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:

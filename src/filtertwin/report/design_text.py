@@ -7,6 +7,7 @@ from typing import Any
 
 from filtertwin import units
 from filtertwin.design import Design, Filter, Stage, StopbandFloor
+from filtertwin.noise import DesignNoise, NoiseFigures
 from filtertwin.twin import (
     FIDELITY_TOL_DB,
     FIDELITY_TOL_DEG,
@@ -62,8 +63,9 @@ def resemblance(f: Filter) -> str:
     return f"{name} at {units.format_si(corner, 'Hz', 4)} (distance {m.distance:.3f}, 0 = exact)"
 
 
-def design_table(design: Design, twin: Twin | None = None) -> str:
-    """The per-filter stage table an engineer reads before building."""
+def design_table(design: Design, twin: Twin | None = None, noise: DesignNoise | None = None) -> str:
+    """The per-filter stage table an engineer reads before building (with the circuit's
+    noise when ``noise`` is given)."""
     lines = [f"{design.title}"]
     amp = design.amplifier
     lines.append(
@@ -96,13 +98,71 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
         floor = f.stopband_floor()
         if floor is not None:
             lines.append(_floor_line(floor))
+        if noise is not None:
+            lines += noise_lines(next(n for n in noise.filters if n.name == f.name), noise)
         if twin is not None and f.name in twins:
             lines.append(fidelity_line(twins[f.name], twin))
+    if noise is not None and noise.sum is not None:
+        lines.append("")
+        lines.append("sum of the filters (separate amplifiers: their noises add as powers):")
+        lines += noise_lines(noise.sum, noise)
     if design.warnings:
         lines.append("")
         lines.append("warnings:")
         lines += [f"  ! {w}" for w in design.warnings]
     return "\n".join(lines)
+
+
+def _volts(v: float) -> str:
+    return units.format_si(v, "V", 4)
+
+
+def _with_a(value: float | None, weighted: float | None, unit: str) -> str:
+    text = f"{value:.1f}{unit}" if value is not None else "-"
+    return text + (f" (A: {weighted:.1f}{unit})" if weighted is not None else "")
+
+
+def noise_lines(n: NoiseFigures, noise: DesignNoise) -> list[str]:
+    """The noise of one output in three lines of the design table."""
+    lo, hi = n.band_hz
+    temp_c = noise.temperature_k - 273.15
+    rms = f"{_volts(n.rms_v)} rms" + (
+        f", {_volts(n.rms_a_v)} A-weighted" if n.rms_a_v is not None else ""
+    )
+    dr = ""
+    if n.dynamic_range_db is not None:
+        dr = "; dynamic range to the clip level "
+        dr += _with_a(n.dynamic_range_db, n.dynamic_range_a_db, " dB")
+    return [
+        f"  noise {units.format_si(lo, 'Hz', 3)} to {units.format_si(hi, 'Hz', 3)} at "
+        f"{temp_c:g} C: {rms} ({units.format_si(n.spot_v_per_rthz, 'V', 3)}/rtHz at "
+        f"{units.format_si(n.spot_hz, 'Hz', 3)})",
+        f"    {_with_a(n.level_dbfs, n.level_a_dbfs, ' dBFS')}; SNR of a full-scale input "
+        f"{_with_a(n.snr_db, n.snr_a_db, ' dB')}{dr}",
+        f"    {n.stage_words()} gives {100 * n.dominant_stage_share:.0f} % of it; "
+        f"largest source: {n.source_words()}, {100 * n.dominant_source_share:.0f} %",
+    ]
+
+
+def noise_dict(n: NoiseFigures) -> dict[str, Any]:
+    """One output's noise figures, JSON-ready (V, V/sqrt(Hz), dB)."""
+    return {
+        "band_hz": list(n.band_hz),
+        "rms_v": n.rms_v,
+        "rms_a_weighted_v": n.rms_a_v,
+        "spot_hz": n.spot_hz,
+        "spot_v_per_rthz": n.spot_v_per_rthz,
+        "level_dbfs": n.level_dbfs,
+        "level_a_weighted_dbfs": n.level_a_dbfs,
+        "snr_db": n.snr_db,
+        "snr_a_weighted_db": n.snr_a_db,
+        "dynamic_range_db": n.dynamic_range_db,
+        "dynamic_range_a_weighted_db": n.dynamic_range_a_db,
+        "dominant_stage": n.dominant_stage,
+        "dominant_stage_share": n.dominant_stage_share,
+        "dominant_source": {"stage": n.dominant_source[0], "source": n.dominant_source[1]},
+        "dominant_source_share": n.dominant_source_share,
+    }
 
 
 def _floor_line(floor: StopbandFloor) -> str:
@@ -196,7 +256,9 @@ def _model_dict(m, gain: float) -> dict[str, Any]:
     }
 
 
-def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
+def design_dict(
+    design: Design, twin: Twin | None = None, noise: DesignNoise | None = None
+) -> dict[str, Any]:
     """The design in SI units for scripts (see the README for the schema)."""
     amp = design.amplifier
     twins = {t.name: t for t in twin.filters} if twin else {}
@@ -239,6 +301,8 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
             "stages": [_stage_dict(s) for s in f.stages],
             "stopband_floor": _floor_dict(f.stopband_floor()),
         }
+        if noise is not None:
+            entry["noise"] = noise_dict(next(n for n in noise.filters if n.name == f.name))
         if f.name in twins and twin is not None:
             ft = twins[f.name]
             fid = ft.fidelity
@@ -262,6 +326,13 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                 },
             }
         out["filters"].append(entry)
+    if noise is not None:
+        out["noise"] = {
+            "temperature_k": noise.temperature_k,
+            "band_hz": list(noise.band_hz),
+            "a_weighted": noise.weighted,
+            "sum": None if noise.sum is None else noise_dict(noise.sum),
+        }
     return out
 
 
