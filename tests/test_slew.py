@@ -144,7 +144,8 @@ def test_a_hot_15_khz_sine_through_a_slow_amplifier_is_reported_as_slewing(tmp_p
     out = tmp_path / "out"
     status = cli.main(["render", str(design_file), str(source), "--out", str(out), "--no-report"])
     printed = capsys.readouterr().out
-    assert status == 0
+    assert status == 1  # a slewing stage is a FAIL, as a clipping one is (README exit table)
+    assert "amplifier slew rate: filter 'rumble' FAIL" in printed
     assert "slewing: filter 'rumble' stage 1:" in printed
     assert "slewing: none" not in printed
     assert "clipping: none" in printed  # 9 V is inside the 13 V swing: slewing, not clipping
