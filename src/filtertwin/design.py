@@ -32,6 +32,13 @@ GBW_FACTOR = 50.0
 AMP_SHIFT_PCT = 1.0
 # common practice: an internal peak more than 3 dB above the passband gain costs headroom
 PEAK_MARGIN_DB = 3.0
+# common practice (Horowitz & Hill 3rd ed. 6.3, from memory): a Sallen-Key stage above Q 10
+# is very sensitive to its parts and the amplifier; such stages are built another way
+HIGH_Q = 10.0
+# common practice: above 1 MOhm thermal noise and bias-current offset dominate
+HIGH_OHM = 1e6
+BOLTZMANN_J_PER_K = 1.380649e-23  # SI brochure, 9th ed. (2019), exact
+ROOM_K = 298.15
 
 
 @dataclass(frozen=True)
@@ -342,16 +349,22 @@ def _stages(
     return tuple(stages)
 
 
-def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
-    responses = {s.circuit.response for s in stages}
-    if len(responses) != 1:
-        return None
+def lowpass_sections(stages: tuple[Stage, ...]) -> list[prototypes.Section]:
+    """The stages (ideal amplifier) as low-pass prototype sections: a high-pass stage's f0
+    is inverted, so both compare with the alignments' tables."""
     secs = []
     for s in stages:
         f0 = s.ideal.f0_hz
         ratio = f0 if s.circuit.response == "lowpass" else 1.0 / f0
         secs.append(prototypes.Section(s.circuit.order, ratio, s.ideal.q))
-    return prototypes.nearest_alignment(secs)
+    return secs
+
+
+def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
+    responses = {s.circuit.response for s in stages}
+    if len(responses) != 1:
+        return None
+    return prototypes.nearest_alignment(lowpass_sections(stages))
 
 
 def _amplifier_warnings(name: str, s: Stage, amp: Amplifier) -> list[DesignWarning]:
@@ -380,21 +393,57 @@ def _amplifier_warnings(name: str, s: Stage, amp: Amplifier) -> list[DesignWarni
     return [DesignWarning(name, s.index, text)]
 
 
+def _part_range_messages(s: Stage, parts: PartsSpec) -> list[str]:
+    """Parts outside the design's ranges; resistors above 1 MOhm also get their noise and
+    the offset a bias current makes in them."""
+    from filtertwin.units import format_letter_code
+
+    out = []
+    r_lo, r_hi = parts.resistor_range_ohm
+    c_lo, c_hi = parts.capacitor_range_f
+    for name, value in s.circuit.parts().items():
+        kind = name[0]
+        lo, hi, unit = (r_lo, r_hi, "ohm") if kind == "R" else (c_lo, c_hi, "F")
+        if lo <= value <= hi:
+            continue
+        code = format_letter_code(value, "R" if kind == "R" else "C")
+        span = f"{format_letter_code(lo, kind)}..{format_letter_code(hi, kind)}"
+        if kind == "R" and value > HIGH_OHM:
+            noise = math.sqrt(4 * BOLTZMANN_J_PER_K * ROOM_K * value)  # Johnson, Nyquist 1928
+            why = (
+                f"its thermal noise is {noise * 1e9:.0f} nV/rtHz at 25 C, and each 1 nA of "
+                f"amplifier input bias current through it makes {value * 1e-9 * 1e3:.1f} mV "
+                "of offset; a JFET- or CMOS-input amplifier, or lower resistors with larger "
+                "capacitors, avoid both"
+            )
+        elif kind == "R":
+            why = "common practice: lower loads the amplifier, higher adds noise"
+        elif value > hi:
+            why = "large capacitors are costly, bulky and seldom come in close tolerances"
+        else:
+            why = "stray and amplifier input capacitance (a few pF) become part of the filter"
+        out.append(f"{name} = {code} ({value:.4g} {unit}) is outside the part range {span}: {why}")
+    return out
+
+
+def _high_q_message(s: Stage, passband_db: float) -> str:
+    """A stage whose Q makes it ring, peak and depend strongly on its parts."""
+    peak = s.peak_gain_db - passband_db
+    return (
+        f"Q {s.built.q:.1f} is above {HIGH_Q:g} (common practice): the stage peaks "
+        f"{peak:+.1f} dB above the passband gain near {s.built.f0_hz:.4g} Hz and its ringing "
+        f"after a step takes about {s.built.q / math.pi:.0f} cycles to fall by 1/e; check that "
+        "this is intended"
+    )
+
+
 def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[DesignWarning]:
     out = []
-    lo, hi = parts.resistor_range_ohm
     passband_db = f.passband_db
     for s in f.stages:
-        for name, value in s.circuit.parts().items():
-            if name.startswith("R") and not lo <= value <= hi:
-                out.append(
-                    DesignWarning(
-                        f.name,
-                        s.index,
-                        f"{name} = {value:.4g} ohm is outside {lo:.4g}..{hi:.4g} ohm "
-                        "(common practice: lower loads the amplifier, higher adds noise)",
-                    )
-                )
+        out += [DesignWarning(f.name, s.index, m) for m in _part_range_messages(s, parts)]
+        if not math.isnan(s.built.q) and s.built.q > HIGH_Q:
+            out.append(DesignWarning(f.name, s.index, _high_q_message(s, passband_db)))
         if amp is not None:
             out += _amplifier_warnings(f.name, s, amp)
         excess = s.peak_gain_db - passband_db
