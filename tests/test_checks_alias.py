@@ -291,10 +291,14 @@ def test_csv_input_gives_csv_captures_at_the_adc_rate(tmp_path, capsys, monkeypa
 def test_command_defaults_agree_with_the_check():
     import inspect
 
+    from filtertwin.checks import suggest
     from filtertwin.commands import alias as command
 
     defaults = inspect.signature(check_alias).parameters
     assert command.DEFAULT_BITS == defaults["bits"].default
+    assert command.DEFAULT_MAX_DROOP_DB == defaults["max_droop_db"].default
+    assert command.DEFAULT_BUILDS == suggest.DEFAULT_BUILDS
+    assert command.DEFAULT_MIN_YIELD_PCT == 100 * suggest.DEFAULT_MIN_YIELD
 
 
 def test_command_suggests_designs_writes_the_first_and_records_the_column(

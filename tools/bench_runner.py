@@ -298,8 +298,8 @@ def cpu_name() -> str:
     return f"{platform.machine()} processor"
 
 
-def print_table(rows: list[Row]) -> None:
-    cells = [["measure", "runner", "sosfilt", "ratio", "target", "met"]]
+def print_table(rows: list[Row], reference: str = "sosfilt") -> None:
+    cells = [["measure", "runner", reference, "ratio", "target", "met"]]
     for r in rows:
         cells.append(
             [r.measure, r.runner, r.reference, r.ratio, r.target, "yes" if r.met else "NO"]

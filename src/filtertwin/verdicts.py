@@ -87,8 +87,8 @@ def rows(verdicts: Iterable[Verdict]) -> list[tuple[str, str, str, str]]:
 
 
 def render_verdicts(result: RenderResult, twin: Twin) -> list[Verdict]:
-    """The checks of a render: each filter's twin fidelity (resampling filters included) and
-    amplifier swing, and any PCM output file that clipped at full scale."""
+    """The checks of a render: each filter's twin fidelity (resampling filters included),
+    amplifier swing and slew rate, and any PCM output file that clipped at full scale."""
     from filtertwin import units
     from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG
 
@@ -110,6 +110,15 @@ def render_verdicts(result: RenderResult, twin: Twin) -> list[Verdict]:
             Verdict(
                 "amplifier swing", f"filter '{ft.name}'", not clips, text or "never reached",
                 "limit: the amplifier's output swing" if clips else "",
+            )
+        )  # fmt: skip
+        slews = [c for c in result.slews if c.filter == ft.name]
+        text = "; ".join(f"stage {c.stage}: {c.samples} samples slewed" for c in slews)
+        out.append(
+            Verdict(
+                "amplifier slew rate", f"filter '{ft.name}'", not slews, text or "never reached",
+                f"limit: the amplifier's slew rate, counted at {twin.rate_hz / 1e3:g} kHz"
+                if slews else "",
             )
         )  # fmt: skip
     for f in result.files:

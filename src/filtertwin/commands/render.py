@@ -321,4 +321,12 @@ def _print_summary(result: Any, twin: Any, design: Any, folder: Path, written: l
             )
     else:
         print("clipping: none in the amplifier model")
+    rate = f"{twin.rate_hz / 1e3:g} kHz"
+    for c in result.slews:
+        print(
+            f"slewing: filter '{c.filter}' stage {c.stage}: {c.samples} samples (at {rate}) "
+            "limited to the amplifier slew rate"
+        )
+    if not result.slews:
+        print("slewing: none in the amplifier model")
     print(SAFETY_LINE)

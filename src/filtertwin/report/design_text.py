@@ -257,6 +257,7 @@ def fidelity_line(ft: FilterTwin, twin: Twin) -> str:
         f"{units.format_si(fid.at_hz, 'Hz', 4)}) and {fid.max_deg:.2f} deg (at "
         f"{units.format_si(fid.at_deg_hz, 'Hz', 4)}) of the analog model{stop}"
         + _fidelity_hint(ft, twin)
+        + (f"\n    {ft.slew_note}" if ft.slew_note else "")
     )
 
 

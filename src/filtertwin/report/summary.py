@@ -154,6 +154,10 @@ def summary_dict(
         "clipping": [
             {"filter": c.filter, "stage": c.stage, "samples": c.samples} for c in result.clips
         ],
+        "slewing": [
+            {"filter": c.filter, "stage": c.stage, "samples": c.samples, "at_rate_hz": twin.rate_hz}
+            for c in result.slews
+        ],
         "caution": CAUTION,
     }
     out.update(extra or {})
@@ -315,7 +319,8 @@ def render_sections(
         [
             f"Twin fidelity passes within {FIDELITY_TOL_DB:g} dB and {FIDELITY_TOL_DEG:g} degrees"
             " of the analog model where it is within 60 dB of its peak. The amplifier model"
-            " limits each stage output to the amplifier's swing; limited samples are listed.",
+            " limits each stage output to the amplifier's swing and its rate of change to the"
+            " slew rate (counted at the twin's rate); limited samples are listed.",
         ],
         tables=[(("check", "filter", "result", "verdict"), _check_rows(result, twin))],
     )
