@@ -162,3 +162,43 @@ def test_a_hot_15_khz_sine_through_a_slow_amplifier_is_reported_as_slewing(tmp_p
     # 15 kHz peaks at SR / (4 f) = 8.33 V, its fundamental 8 / pi^2 of that (Fourier series
     # of a triangle wave): -2.5 dB re 9 V; the real waveform follows the sine near its peaks
     assert -2.6 < drop_db < -0.5
+
+
+def test_the_live_status_line_and_summary_report_slewing_by_stage():
+    from filtertwin.live import candidates as cands
+    from filtertwin.live import routing
+    from filtertwin.live.matching import no_match
+    from filtertwin.live.ring import BlockRing
+    from filtertwin.live.safety import OutputSafety
+    from filtertwin.live.session import ListenSession
+    from filtertwin.live.status import StatusReader, status_line, summary_lines
+    from filtertwin.live.stream import StreamCore
+    from test_live_listen_core import BLOCK, RATE_HZ, play
+
+    design = make("10 V")
+    candidates = cands.make_candidates([("slow", design)])
+    twins = cands.build_twins(candidates, RATE_HZ)
+    sos, levels = cands.chains(twins)
+    # the runner as listen builds it: clip levels and slew steps of every chain
+    runner = CascadeRunner(sos, 2, BLOCK, levels, dtype=np.float32,
+                           slew_steps=cands.slew_steps(twins))  # fmt: skip
+    core = StreamCore(
+        n_chains=len(sos), channels=2, block_frames=BLOCK, rate_hz=RATE_HZ, runner=runner,
+        ring=BlockRing(1, 64 * BLOCK, 2), safety=OutputSafety(RATE_HZ, -20.0, ramp_s=0.001),
+        pairs=1,
+    )  # fmt: skip
+    core.prime()
+    session = ListenSession(candidates, twins, core, core, RATE_HZ, no_match(1),
+                            routing.STEREO_MIX, say=lambda _: None)  # fmt: skip
+    session.start(0.0)
+    reader = StatusReader(session, clock=lambda: 1.0)
+    t = np.arange(16 * BLOCK) / RATE_HZ
+    # 15 kHz at 9 V peak on a 0.5 V/us amplifier: its step per sample at 48 kHz, 2 x 9 V x
+    # sin(pi 15/48) = 15 V, is above 0.5 V/us / 48 kHz = 10.4 V (Horowitz & Hill's slew rate)
+    play(core, np.repeat(0.9 * np.sin(2 * np.pi * 15000.0 * t)[:, None], 2, axis=1))
+    facts = reader.facts()
+    assert len(facts.slewing) == 1 and facts.slewing[0].endswith("s1")
+    assert " slew " + facts.slewing[0] in status_line(facts)
+    summary = "\n".join(summary_lines(session, 1.0))
+    assert "stage slewing at the amplifier slew rate: A " in summary
+    assert "stage clipping at the amplifier swing: none" in summary

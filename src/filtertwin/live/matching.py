@@ -89,7 +89,7 @@ def match_by_gain(designs: Sequence[Design]) -> LevelMatch:
 
 
 def twin_output(program: np.ndarray, twin: Twin) -> np.ndarray:
-    """The program through a twin, its ways summed, clipping at the amplifier swing included.
+    """The program through a twin, its ways summed, the amplifier swing and slew included.
 
     Parameters
     ----------

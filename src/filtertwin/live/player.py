@@ -361,6 +361,7 @@ def _prefilter(
     chains: tuple[list[np.ndarray], list[np.ndarray]],
     say: Callable[[str], None],
     over: stream.Oversampling | None = None,
+    steps: list[np.ndarray] | None = None,
 ) -> tuple[stream.PreFilter, capture_mod.CapturePlan | None]:
     """The twins (and the ADC capture) at the recording's rate, for the read-ahead thread."""
     sos, levels = chains
@@ -372,7 +373,9 @@ def _prefilter(
         plan = capture_mod.plan_capture(options.adc_rate_hz, info.rate_hz, rate_hz, str(info.path))
         adc = capture_mod.AdcCapture(plan, width, capture_mod.lag_s(resampler, info.rate_hz))
     factor = over.factor if over is not None else 1
-    runner = engine.CascadeRunner(sos, info.channels, CHUNK_FRAMES * factor, levels)
+    runner = engine.CascadeRunner(
+        sos, info.channels, CHUNK_FRAMES * factor, levels, slew_steps=steps
+    )
     if resampler is not None:
         say(
             f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
@@ -430,6 +433,7 @@ def prepare(
     # live input has no read-ahead, so its twins are resampled in the callback
     in_callback = info is None or (same_rate and options.adc_rate_hz is None and factor == 1)
     sos, levels = cands.chains(twins)
+    steps = cands.slew_steps(twins)
     program = None
     if info is not None and options.match in (None, "loudness"):
         program = _read_excerpt(info, options.match_seconds, in_channels)
@@ -440,7 +444,9 @@ def prepare(
     runner = prefilter = plan = feeder = over = None
     captures = 0
     if in_callback:
-        runner = engine.CascadeRunner(sos, in_channels, block * factor, levels, dtype=np.float32)
+        runner = engine.CascadeRunner(
+            sos, in_channels, block * factor, levels, dtype=np.float32, slew_steps=steps
+        )
         if factor > 1:
             over = stream.Oversampling(factor, len(sos), in_channels, block, options.resampling)
         if info is not None:
@@ -451,7 +457,7 @@ def prepare(
             over = stream.Oversampling(
                 factor, len(sos), in_channels, CHUNK_FRAMES, options.resampling, np.float64
             )
-        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say, over)
+        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say, over, steps)
         if plan is not None:
             for c in candidates:
                 for note in capture_mod.stopband_notes(c.label, c.design, info.rate_hz,
