@@ -25,7 +25,7 @@ def settle(core, blocks=8):
 def test_select_solo_and_mute_set_the_mix_and_say_what_is_heard():
     core, session, _, said = setup(["studio-3way", "bookshelf-2way"])
     session.handle(cmd("select", "B"), 1.0)
-    assert said[-1].startswith("now: B (bookshelf-2way), ways low+high")
+    assert said[-1].startswith("now: B (bookshelf-2way), ways woofer+tweeter")
     session.handle(cmd("solo", "high"), 2.0)
     session.handle(cmd("select", "1"), 3.0)
     settle(core)
@@ -121,21 +121,27 @@ def test_edits_are_refused_during_blind_trials(tmp_path):
     assert "answer A or B" in said[-1]
 
 
-def test_a_part_edit_swaps_the_chain_and_keeps_its_state():
+def test_a_part_edit_ends_with_the_new_sections_in_the_chain_itself():
     core, session, twins, said = setup(["candidate-butterworth", "candidate-bessel"])
-    x = noise(24 * BLOCK, amplitude=0.1)
+    x = noise(80 * BLOCK, amplitude=0.1)
     play(core, x[: 12 * BLOCK])
     runner = core.runner
-    zi = runner.state[0, :4].transpose(0, 2, 1).copy()  # scipy's zi layout (sections, 2, ch)
     session.handle(cmd("part", "topcut", "2", "C1", "+1"), 1.0)
-    assert core.runner is runner  # same section count: set_chain, no new runner
     assert "A topcut stage 2: C1 = 33n (was 27n)" in said[-1]
     assert "as built f0" in said[-1] and "(was f0" in said[-1]
+    assert core.blend is not None  # a warm spare carries the change in
+    start = 12 * BLOCK
+    while session.edits_pending:
+        play(core, x[start : start + BLOCK])
+        session.poll()
+        start += BLOCK
+    assert core.blend is None and core.runner is runner  # same section count: set_chain
     new_sos = session.twins[0].filters[0].sos
     assert not np.array_equal(new_sos, twins[0].filters[0].sos)
-    out = play(core, x[12 * BLOCK : 13 * BLOCK])
-    # the new coefficients from the old state on: scipy.signal.sosfilt with zi
-    expected, _ = signal.sosfilt(new_sos, x[12 * BLOCK : 13 * BLOCK].astype(np.float64),
+    zi = runner.state[0, :4].transpose(0, 2, 1).copy()  # scipy's zi layout (sections, 2, ch)
+    out = play(core, x[start : start + BLOCK])
+    # the new coefficients from the chain's own state on: scipy.signal.sosfilt with zi
+    expected, _ = signal.sosfilt(new_sos, x[start : start + BLOCK].astype(np.float64),
                                  axis=0, zi=zi)  # fmt: skip
     np.testing.assert_array_equal(out, expected.astype(np.float32))
 
@@ -167,12 +173,15 @@ def test_the_status_line_reports_what_the_callback_measured():
     assert facts.limiting  # driven into the ceiling
     # the stages that the analog model says a full-scale sine clips (design.Stage.clip_input_dbfs)
     stages = session.candidates[0].design.filters[0].stages
-    expected = tuple(f"low s{s.index}" for s in stages if s.clip_input_dbfs < 0)
-    assert facts.clipping == expected == ("low s2",)
-    assert facts.way_peaks[0][0] == "low" and facts.way_peaks[0][1] > 1.0
+    expected = tuple(f"voice s{s.index}" for s in stages if s.clip_input_dbfs < 0)
+    assert facts.clipping == expected == ("voice s2",)
+    assert facts.way_peaks[0][0] == "voice" and facts.way_peaks[0][1] > 1.0  # the design's name
     assert facts.elapsed_s == 1.5
     line = status_line(facts)
-    assert "xruns 1" in line and "clip low s2" in line and "LIMIT" in line and "load 3 %" in line
+    assert "xruns 1" in line and "clip voice s2" in line and "load 3 %" in line
+    # the limiter's gain reduction now, from the safety's own state
+    limit_db = 20 * np.log10(core.safety.limiter_gain)
+    assert f"limit {limit_db:.1f} dB" in line and limit_db < -1.0
     summary = "\n".join(summary_lines(session, 1.5))
     assert "1 xruns" in summary and "A low stage 2:" in summary
 
