@@ -171,7 +171,10 @@ def _introduce(player: Any, console: Any, interactive: bool) -> None:
     console.say(player.describe())
     if session.blind is None:
         for c in session.candidates:
-            console.say(f"  {c.label}: {c.name} ({c.design.title}); ways {', '.join(c.ways)}")
+            ways = ", ".join(
+                n if n == w else f"{n} ({w})" for w, n in zip(c.ways, c.filter_names, strict=True)
+            )
+            console.say(f"  {c.label}: {c.name} ({c.design.title}); ways {ways}")
             for warning in c.design.warnings:
                 console.say(f"     design warning: {warning}")
         console.say(matching.describe(session.match, [c.label for c in session.candidates]))
@@ -235,6 +238,8 @@ def _finish(player: Any, console: Any, reason: str) -> None:
 
 CLOSE_TIMEOUT_S = 3.0
 """Longest wait for PortAudio to stop and close the stream before leaving without it."""
+LOST_CLOSE_TIMEOUT_S = 1.0
+"""The same once the stream is known to be lost (closing it then usually blocks)."""
 
 
 def _leave_without_stream(player: Any, console: Any, message: str) -> None:
@@ -288,7 +293,7 @@ def cmd_listen(args: argparse.Namespace) -> int:
             console.end()
             if lost is None:
                 player.fade_out()
-            closed = call_within(player.close, CLOSE_TIMEOUT_S)
+            closed = call_within(player.close, LOST_CLOSE_TIMEOUT_S if lost else CLOSE_TIMEOUT_S)
     # the terminal is restored here (the key reader's context has closed)
     if lost is not None:
         _leave_without_stream(player, console, str(lost))
