@@ -33,6 +33,24 @@ def test_design_json_has_the_documented_shape_in_si_units():
     assert twin["rate_hz"] == 48000.0 and twin["oversampling"] == 1
     assert all(len(row) == 6 and row[3] == 1.0 for row in twin["sos"])
     assert set(twin["fidelity"]) >= {"max_db", "max_deg", "at_hz", "band_hz", "stopband_error_db"}
+    assert set(woofer["stopband_floor"]) == {"level_db", "at_hz", "rises_to_db"}
+    assert data["filters"][1]["stopband_floor"] is None  # the tweeter is a high-pass
+    assert data["amplifier"]["output_resistance_ohm"] == 50.0
+    noise = woofer["noise"]
+    assert noise["band_hz"] == [20.0, 20000.0] and noise["rms_a_weighted_v"] > 0
+    assert data["noise"]["sum"]["rms_v"] ** 2 == pytest.approx(
+        noise["rms_v"] ** 2 + data["filters"][1]["noise"]["rms_v"] ** 2  # uncorrelated ways
+    )
+
+
+def test_noise_band_follows_a_sensor_rate_or_the_option():
+    r = run("design", "vibration-antialias", "--json", "--rate", "8000")
+    noise = json.loads(r.stdout)["noise"]
+    assert noise["band_hz"] == [8.0, 3600.0] and not noise["a_weighted"]  # twin's band
+    r = run("design", "vibration-antialias", "--noise-band", "1", "2k")
+    assert "noise 1.00 Hz to 2.00 kHz" in r.stdout
+    r = run("design", "vibration-antialias", "--noise-band", "2k", "1")
+    assert r.returncode == 2 and r.stderr.count("\n") == 1 and "swap them" in r.stderr
 
 
 def test_every_example_designs_without_unexpected_warnings():

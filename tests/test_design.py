@@ -161,7 +161,7 @@ def test_a_stage_made_sensitive_by_its_part_spread_is_warned_about():
     # (from the textbook Q formula), so even a 3 MHz amplifier (250 x f0 Q) moves it
     stage = {"R1": "27k", "R2": "1k2", "C1": "47n", "C2": "470p"}
     spec = {
-        "amplifier": {"preset": "general-purpose JFET input"},
+        "amplifier": {"gbw": "3 MHz", "swing": "13 V", "slew": "10 V/us"},
         "filter": [{"name": "spread", "response": "lowpass", "stage": [stage]}],
     }
     d = build_design(parse_design(spec, "<test>"))
@@ -174,7 +174,7 @@ def test_a_stage_made_sensitive_by_its_part_spread_is_warned_about():
 def test_synthesis_with_the_amplifier_model_picks_parts_that_stay_on_target_as_built():
     spec = {
         "parts": {"resistors": "E24", "capacitors": "E6"},
-        "amplifier": {"preset": "general-purpose JFET input"},
+        "amplifier": {"gbw": "3 MHz", "swing": "13 V", "slew": "10 V/us"},
         "filter": [
             {"name": "lp", "response": "lowpass", "alignment": "chebyshev", "ripple_db": 1.0,
              "order": 3, "corner": "6 kHz"}

@@ -5,7 +5,13 @@ import importlib
 
 import pytest
 
-MODULES = ["filtertwin.sallenkey", "filtertwin.design", "filtertwin.units", "filtertwin.eseries"]
+MODULES = [
+    "filtertwin.sallenkey",
+    "filtertwin.design",
+    "filtertwin.units",
+    "filtertwin.eseries",
+    "filtertwin.noise",
+]
 
 
 @pytest.mark.parametrize("name", MODULES)

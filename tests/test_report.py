@@ -200,3 +200,10 @@ def test_render_report_lists_every_file_and_figure(tmp_path):
     assert data["input"]["frames"] == 9600 and data["caution"] == CAUTION
     page = (out / "report.html").read_text()
     assert page.count("data:image/png;base64,") == 2 and "PASS" in page
+    # the circuit's noise over the twin's band (20 Hz to 20 kHz at 48 kHz), as design computes it
+    from filtertwin.noise import design_noise
+
+    noise = design_noise(design, (20.0, 20000.0))
+    assert data["noise"]["filters"]["woofer"]["rms_v"] == pytest.approx(noise.filters[0].rms_v)
+    assert data["noise"]["sum"]["snr_db"] == pytest.approx(noise.sum.snr_db)
+    assert "Circuit noise" in page

@@ -41,6 +41,18 @@ def test_values_accept_letter_code_and_si_prefixes(tmp_path):
     assert spec.parts.resistor_range_ohm == (2200.0, 47000.0)
 
 
+def test_output_resistance_is_read_in_ohm_and_defaults_to_the_preset(tmp_path):
+    amp = '[amplifier]\npreset = "low-noise bipolar"\n'
+    spec = load_design(write(tmp_path, GOOD + amp + 'output_resistance = "4R7"\n'))
+    assert spec.amplifier.output_resistance_ohm == pytest.approx(4.7)  # IEC 60062 letter code
+    spec = load_design(write(tmp_path, GOOD + amp + "output_resistance = 0\n"))
+    assert spec.amplifier.output_resistance_ohm == 0.0
+    preset = load_design(write(tmp_path, GOOD + amp)).amplifier
+    assert preset.output_resistance_ohm == 50.0  # the preset's own class figure
+    custom = '[amplifier]\ngbw = "1 MHz"\nswing = "13 V"\nslew = "1 V/us"\n'
+    assert load_design(write(tmp_path, GOOD + custom)).amplifier.output_resistance_ohm > 0
+
+
 BAD = [
     (
         "missing response",
@@ -101,6 +113,16 @@ BAD = [
         "unknown preset",
         GOOD + '[amplifier]\npreset = "fast one"\n',
         r"unknown amplifier preset 'fast one'",
+    ),
+    (
+        "negative output resistance",
+        GOOD + '[amplifier]\npreset = "low-noise bipolar"\noutput_resistance = "-5 ohm"\n',
+        r"amplifier.output_resistance",
+    ),
+    (
+        "output resistance in farad",
+        GOOD + '[amplifier]\npreset = "low-noise bipolar"\noutput_resistance = "50 nF"\n',
+        r"amplifier.output_resistance",
     ),
     (
         "capacitor as resistor",

@@ -94,7 +94,7 @@ def test_corner_at_or_above_nyquist_is_a_clear_error():
     with pytest.raises(
         UserInputError,
         match=r"stage 1 f0 \d+ Hz is at or above the Nyquist frequency 24000 Hz of the "
-        r"48000 Hz twin; raise --rate",
+        r"48000 Hz twin; --oversample auto runs the twin at a multiple of the rate",
     ):
         build_twin(d, 48000.0)
 
@@ -142,3 +142,26 @@ def test_clip_levels_are_the_swing_in_full_scale_units_at_each_stage_output():
     # two stages, each a 2nd-order section plus the amplifier pole section
     assert ft.stage_of_section == (1, 1, 2, 2)
     assert list(ft.clip_fs) == [math.inf, 6.5, math.inf, 6.5]  # 13 V / 2 V
+
+
+def test_the_twin_follows_the_output_resistance_floor_when_oversampled_enough():
+    # the amplifier's output resistance gives each stage zeros (a numerator of the same degree
+    # as its denominator); the twin's sections must still multiply to the analog model, so
+    # that well below Nyquist (bilinear warping small, Oppenheim & Schafer 7.1.2) its stopband
+    # reaches the same floor
+    spec = {
+        "amplifier": {"preset": "general-purpose bipolar"},
+        "filter": [{"name": "lp", "response": "lowpass", "alignment": "butterworth",
+                    "order": 4, "corner": "1 kHz"}],
+    }  # fmt: skip
+    d = build_design(parse_design(spec, "<test>"))
+    floor = d.filters[0].stopband_floor()
+    twin = build_twin(d, 48000, oversampling=64)  # 3.072 MHz: the floor far below Nyquist
+    sos = twin.filters[0].sos
+    f = np.geomspace(2e3, 4 * floor.at_hz, 400)
+    _, h_twin = signal.sosfreqz(sos, worN=f, fs=twin.rate_hz)  # scipy.signal reference
+    h_analog = d.filters[0].frequency_response(f)
+    err_db = np.abs(20 * np.log10(np.abs(h_twin) / np.abs(h_analog)))
+    assert np.max(err_db) < 1.0
+    twin_floor_db = 20 * np.log10(np.min(np.abs(h_twin)) / abs(d.filters[0].passband_gain))
+    assert twin_floor_db == pytest.approx(floor.level_db, abs=1.0)

@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any, NoReturn
 
 from filtertwin import __version__
-from filtertwin.commands.options import frequency_hz, oversampling
+from filtertwin.commands.options import add_resampling, frequency_hz, oversampling
 from filtertwin.errors import UserInputError
 
 SAFETY_NOTE = (
@@ -26,12 +26,18 @@ SAFETY_NOTE = (
 
 def cmd_design(args: argparse.Namespace) -> int:
     from filtertwin.design import load
+    from filtertwin.noise import design_noise
     from filtertwin.outputs import atomic_path
     from filtertwin.report.design_text import BOM_COLUMNS, bom_rows, design_dict, design_table
     from filtertwin.twin import build_twin
 
     design = load(args.design)
-    twin = build_twin(design, args.rate, oversampling=args.oversample) if args.rate else None
+    twin = (
+        build_twin(design, args.rate, oversampling=args.oversample, resampling=args.resampling)
+        if args.rate
+        else None
+    )
+    noise = design_noise(design, noise_band(args.noise_band, args.rate))
     if args.bom:
         with atomic_path(args.bom, protect=[design.spec.source]) as tmp:
             with open(tmp, "w", encoding="utf-8", newline="") as fh:
@@ -39,12 +45,30 @@ def cmd_design(args: argparse.Namespace) -> int:
                 writer.writeheader()
                 writer.writerows(bom_rows(design))
     if args.json:
-        print(json.dumps(design_dict(design, twin), indent=2))
+        print(json.dumps(design_dict(design, twin, noise), indent=2))
     else:
-        print(design_table(design, twin))
+        print(design_table(design, twin, noise))
         if args.bom:
             print(f"\nparts list written to {args.bom}")
     return 0
+
+
+def noise_band(given: list[float] | None, rate_hz: float | None) -> tuple[float, float] | None:
+    """The band of the noise figures: as given, the twin's band at a sensor rate, or None
+    (the audio band)."""
+    from filtertwin.errors import UserInputError
+    from filtertwin.twin import default_band_hz
+
+    if given:
+        lo, hi = given
+        if lo >= hi:
+            raise UserInputError(
+                f"--noise-band {lo:g} {hi:g}: the low end is not below the high end; swap them"
+            )
+        return lo, hi
+    if rate_hz and rate_hz < 32000:
+        return default_band_hz(rate_hz)
+    return None
 
 
 def cmd_examples(args: argparse.Namespace) -> int:
@@ -90,6 +114,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--oversample", type=oversampling, default=1, help="twin oversampling: 1, 2, 4, 8 or auto"
     )
+    p.add_argument(
+        "--noise-band", nargs=2, type=frequency_hz, metavar=("LO", "HI"),
+        help="band of the noise figures (default 20 Hz to 20 kHz, also A-weighted; with a "
+        "--rate below 32 kHz, the twin's band)",
+    )  # fmt: skip
+    add_resampling(p)
     p.set_defaults(func=cmd_design)
 
     p = sub.add_parser("examples", help="list the packaged example designs")

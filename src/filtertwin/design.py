@@ -72,6 +72,27 @@ class Stage:
 
 
 @dataclass(frozen=True)
+class StopbandFloor:
+    """The bottom of a low-pass's as-built stopband.
+
+    Attributes
+    ----------
+    level_db : float
+        Lowest gain of the as-built response, dB relative to the passband gain.
+    at_hz : float
+        Frequency of that lowest gain, where the response stops falling.
+    rises_to_db : float
+        Highest gain (dB re passband) above ``at_hz``, up to 100 x the amplifier poles: a
+        low-pass rises towards the level where the capacitors short and the amplifiers no
+        longer act, (Ro || R2) / (R1 + Ro || R2) per unity-gain stage.
+    """
+
+    level_db: float
+    at_hz: float
+    rises_to_db: float
+
+
+@dataclass(frozen=True)
 class Filter:
     name: str
     response: str
@@ -125,6 +146,50 @@ class Filter:
             )
         return total
 
+    def stopband_floor(self) -> StopbandFloor | None:
+        """Where the upper stopband of a low-pass (or band-pass) stops falling.
+
+        With the amplifier's open-loop output resistance in the model, the input reaches the
+        output around each amplifier as its loop gain falls, so the as-built response falls
+        to a lowest level, then turns back up towards a constant. None for a high-pass, or
+        when the response keeps falling up to 100 x the amplifier's gain-bandwidth (an ideal
+        amplifier, or no output resistance). The model leaves out stray capacitance and
+        coupling through supplies and ground, which a real board adds.
+        """
+        if self.response == "highpass" or not self.stages:
+            return None
+        top = max(s.built.f0_hz for s in self.stages)
+        poles = [s.built.extra_pole_hz or 0.0 for s in self.stages]
+        f_end = max(1e3 * top, 100 * max(poles))
+        grid = np.geomspace(top, f_end, 3000)
+        sections = self.analog_sections(True)
+        ref = abs(self.passband_gain)
+        db = 20 * np.log10(np.maximum(np.abs(sallenkey.response(sections, grid)) / ref, 1e-300))
+        # the first lowest point once the skirt is 20 dB down (a band-pass's high-pass
+        # stages roll the response off again above their own amplifier poles)
+        down = np.nonzero(db < -20.0)[0]
+        rising = np.nonzero(np.diff(db) > 0)[0]
+        rising = rising[rising > down[0]] if len(down) else rising[:0]
+        if not len(rising) or rising[0] >= len(grid) - 2:
+            return None
+        i = int(rising[0])
+        # refine the minimum between the neighbouring grid points (golden-section search)
+        lo, hi = math.log(grid[max(i - 1, 0)]), math.log(grid[i + 1])
+
+        def level(log_f: float) -> float:
+            h = sallenkey.response(sections, np.array([math.exp(log_f)]))[0]
+            return 20 * math.log10(max(abs(h) / ref, 1e-300))
+
+        g = (math.sqrt(5) - 1) / 2
+        for _ in range(60):
+            a, b = hi - g * (hi - lo), lo + g * (hi - lo)
+            if level(a) < level(b):
+                hi = b
+            else:
+                lo = a
+        at = math.exp((lo + hi) / 2)
+        return StopbandFloor(level(math.log(at)), at, float(np.max(db[i:])))
+
     def characteristic_hz(self) -> tuple[float, float]:
         """Lowest and highest stage frequency, for choosing plot and check bands."""
         f = [s.built.f0_hz for s in self.stages]
@@ -172,6 +237,7 @@ def amplifier_model(spec: AmplifierSpec | None) -> Amplifier | None:
         spec.noise_v_per_rthz,
         spec.noise_a_per_rthz,
         spec.open_loop_gain,
+        spec.output_resistance_ohm,
     )
 
 

@@ -26,6 +26,7 @@ import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import soundfile
@@ -34,9 +35,13 @@ from filtertwin import outputs, recordings
 from filtertwin.engine import CascadeRunner
 from filtertwin.errors import UserInputError
 from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.resample import StreamResampler
+from filtertwin.resample import Downsampler, Upsampler
+from filtertwin.resample import delay_frames as resample_delay_frames
 from filtertwin.spectra import Spectrum, WelchAccumulator, segment_frames
 from filtertwin.twin import Twin
+
+if TYPE_CHECKING:
+    from filtertwin.noise import CircuitNoiseSource
 
 __all__ = [
     "PlannedOutput",
@@ -98,13 +103,16 @@ class TwinStream:
         self._runner = CascadeRunner(
             twin.chains(), channels, max_frames * factor, clip_levels=levels
         )
-        self._up: StreamResampler | None = None
-        self._down: list[StreamResampler] = []
+        self._up: Upsampler | None = None
+        self._down: Downsampler | None = None
         self.delay_frames = 0
         if factor > 1:
-            self._up = StreamResampler(factor, 1, channels)
-            self._down = [StreamResampler(1, factor, channels) for _ in twin.filters]
-            self.delay_frames = round(self._up.lag_frames + self._down[0].lag_frames / factor)
+            phase = twin.resampling
+            self._up = Upsampler(factor, channels, max_frames, phase)
+            self._down = Downsampler(
+                factor, len(twin.filters), channels, max_frames * factor, phase
+            )
+            self.delay_frames = resample_delay_frames(factor, phase)
         self._skip = self.delay_frames
 
     @property
@@ -117,10 +125,10 @@ class TwinStream:
 
         Without oversampling the result is a view that the next call overwrites.
         """
-        if self._up is None:
+        if self._up is None or self._down is None:
             return self._runner.process(block)
         high = self._runner.process(self._up.process(block))  # (n, frames * L, channels)
-        low = np.stack([down.process(way) for down, way in zip(self._down, high, strict=True)])
+        low = self._down.process(high)
         skip = min(self._skip, low.shape[1])
         self._skip -= skip
         return low[:, skip:]
@@ -128,7 +136,7 @@ class TwinStream:
     def flush(self) -> np.ndarray:
         """The held-back last frames, ``(n_filters, frames, channels)``; none at 1x."""
         n = len(self.twin.filters)
-        if self._up is None:
+        if self._up is None or not self.delay_frames:
             return np.zeros((n, 0, self.channels))
         pieces = []
         remaining = self.delay_frames
@@ -453,6 +461,7 @@ def render(
     subtype: str | None,
     settings: RenderSettings = RenderSettings(),  # noqa: B008 (frozen)
     progress: Progress | None = None,
+    noise: CircuitNoiseSource | None = None,
 ) -> RenderResult:
     """Stream a recording through the twin and write every planned output.
 
@@ -470,6 +479,8 @@ def render(
         Block size, amplifier swing model, spectra.
     progress : callable, optional
         Called as ``progress(frames_done, frames_total)`` after every block.
+    noise : CircuitNoiseSource, optional
+        The circuit's own noise, added to every filter output (and so to the sum).
 
     Returns
     -------
@@ -490,7 +501,7 @@ def render(
         for planned in plan:
             outputs.append(_Output(planned, info, subtype))
         spectra = _accumulators(plan, info, settings.spectra)
-        _stream(stream, info, outputs, spectra, settings.block_frames, progress)
+        _stream(stream, info, outputs, spectra, settings.block_frames, progress, noise)
         for out in outputs:
             out.finish()
         for out in outputs:
@@ -526,6 +537,7 @@ def _stream(
     spectra: list[WelchAccumulator],
     block_frames: int,
     progress: Progress | None,
+    noise: CircuitNoiseSource | None = None,
 ) -> None:
     n = len(stream.twin.filters)
 
@@ -535,6 +547,8 @@ def _stream(
             spectra[index].update(block)
 
     def emit_filtered(filtered: np.ndarray) -> None:
+        if noise is not None:
+            filtered = filtered + noise.next(filtered.shape[1])
         for i in range(n):
             emit(1 + i, filtered[i])
         if n > 1:

@@ -1,25 +1,37 @@
-"""A stateful polyphase resampler for streaming blocks (rate times ``up / down``).
+"""Resampling in blocks: oversampling a twin by powers of two, and rational rate changes.
 
-It uses the same low-pass FIR as :func:`scipy.signal.resample_poly` with its defaults (a
-Kaiser-windowed sinc, beta 5, ``10 * max(up, down)`` taps each side of the centre, cut-off
-at the lower of the two Nyquist frequencies) and computes the same samples as
-:func:`scipy.signal.upfirdn` with that filter, one block at a time: the last input samples
-are kept between blocks, so block edges leave no trace and any block sizes give the same
-output. Unlike ``resample_poly`` it is causal: the output lags by half the filter, ``10 *
-max(up, down) / up`` input samples.
+Oversampling (:class:`Upsampler`, :class:`Downsampler`) runs a cascade of 2x stages, each a
+Kaiser-windowed half-band FIR (:func:`stage_taps`) designed so that the band from 0 to 20 kHz
+at 44.1 kHz (:data:`PASS_FRACTION` of the input rate at any rate) stays flat and every image
+or alias that would land in it is rejected by :data:`REJECTION_DB`. The stages run as
+polyphase filters in compiled loops over arrays made at construction, so ``process``
+allocates nothing and can run in an audio callback; the same objects serve render, the
+anti-alias check and the live stream. ``phase="linear"`` (symmetric FIRs; their delay,
+:func:`delay_frames`, is a whole number of input frames and is taken out by the caller) or
+``"causal"`` (minimum-phase FIRs with the same magnitude: nothing comes out before an input,
+as in an analog circuit).
+
+:class:`StreamResampler` changes the rate by any ratio ``up / down`` (a recording at another
+rate than the stream) with the FIR of :func:`scipy.signal.resample_poly`, computed by
+:func:`scipy.signal.upfirdn` one block at a time: the last input samples are kept between
+blocks, so block edges leave no trace. It is causal: the output lags by half the filter.
 
 References
 ----------
-scipy.signal.resample_poly and scipy.signal.upfirdn (the filter and the arithmetic);
-R. E. Crochiere, L. R. Rabiner, *Multirate Digital Signal Processing*, 1983, ch. 3
-(polyphase structure).
+scipy.signal.resample_poly and scipy.signal.upfirdn (the rational filter and arithmetic);
+R. E. Crochiere, L. R. Rabiner, *Multirate Digital Signal Processing*, 1983, ch. 3 and 5
+(polyphase structure, multistage decimation and interpolation); P. P. Vaidyanathan,
+*Multirate Systems and Filter Banks*, 1993, 4.6 (half-band filters).
 """
 
 from __future__ import annotations
 
+import functools
 import math
 from fractions import Fraction
+from typing import Any
 
+import numba
 import numpy as np
 from scipy import signal
 
@@ -135,3 +147,420 @@ class StreamResampler:
         self._frames_in = total
         self._frames_out = end
         return out
+
+
+# --- oversampling by powers of two: a cascade of half-band stages ----------------------
+
+PHASES = ("linear", "causal")
+"""Resampling filter phase: ``"linear"`` (symmetric FIRs, their delay removed so outputs line
+up with the input) or ``"causal"`` (minimum-phase FIRs: nothing comes out before an input
+does, as in an analog circuit; the output lags by a few samples and is not shifted back)."""
+PASS_FRACTION = 20000.0 / 44100.0
+"""Top of the flat passband as a fraction of the input rate: 20 kHz at 44.1 kHz (0.4535)."""
+REJECTION_DB = 150.0
+"""Design stopband rejection of every stage (Kaiser); deeper than a 24-bit ADC's ideal
+dynamic range, 6.02 * 24 + 1.76 = 146.2 dB, the deepest the anti-alias check asks for."""
+TILE = 256
+"""Outputs computed together, tap by tap (they and their inputs stay in the L1 cache)."""
+
+
+@functools.lru_cache(maxsize=16)
+def stage_taps(stage: int, phase: str = "linear") -> np.ndarray:
+    """The FIR of one 2x stage, running at ``2**stage`` times the input rate.
+
+    Stage 1 (input rate to twice it) keeps 0 to :data:`PASS_FRACTION` of the input rate and
+    rejects from ``1 - PASS_FRACTION`` on, where the first image of that band begins; stage
+    ``s`` rejects from ``2**(s-1) - PASS_FRACTION``. Each is a Kaiser-windowed sinc cut at
+    a quarter of its own rate (a half-band filter: every second tap but the centre is zero),
+    its length and window from Kaiser's formulas for :data:`REJECTION_DB`. ``"causal"``
+    turns it into the minimum-phase filter of the same magnitude response.
+
+    Parameters
+    ----------
+    stage : int
+        1 for the stage next to the input rate.
+    phase : {"linear", "causal"}
+
+    Returns
+    -------
+    numpy.ndarray
+        Taps with unit gain at DC.
+
+    References
+    ----------
+    J. F. Kaiser, "Nonrecursive digital filter design using the I0-sinh window function",
+    Proc. IEEE ISCAS 1974 (``scipy.signal.kaiserord``, ``firwin``); P. P. Vaidyanathan,
+    *Multirate Systems and Filter Banks*, 1993, 4.6 (half-band filters);
+    ``scipy.signal.minimum_phase`` (homomorphic method, full magnitude with ``half=False``).
+    """
+    if phase not in PHASES:
+        raise ValueError(f"phase must be one of {PHASES}, got {phase!r}")
+    nyquist = 2.0**stage / 2  # in units of the input rate
+    stop = 2.0 ** (stage - 1) - PASS_FRACTION
+    numtaps, beta = signal.kaiserord(REJECTION_DB, (stop - PASS_FRACTION) / nyquist)
+    numtaps = 4 * (-(-(numtaps - 3) // 4)) + 3  # 4k + 3: a half-band's centre tap is odd
+    while True:  # Kaiser's length formula is an estimate: lengthen until the target is met
+        h = _half_band(numtaps, beta)
+        if rejection_db(h, stop / nyquist) >= REJECTION_DB:
+            break
+        numtaps += 4
+    if phase == "causal":
+        n_fft = 2 ** int(math.ceil(math.log2(64 * numtaps)))
+        h = signal.minimum_phase(h, method="homomorphic", n_fft=n_fft, half=False)
+        h /= h.sum()
+    h.flags.writeable = False
+    return h
+
+
+def _half_band(numtaps: int, beta: float) -> np.ndarray:
+    h = signal.firwin(numtaps, 0.5, window=("kaiser", beta))
+    centre = numtaps // 2
+    h[centre % 2 :: 2] = 0.0  # the sinc's zeros, exactly
+    h[centre] = 0.5
+    return h / h.sum()
+
+
+def rejection_db(taps: np.ndarray, stop: float) -> float:
+    """Smallest attenuation (dB, positive) of an FIR from ``stop`` (a fraction of its
+    Nyquist frequency) to Nyquist, on a dense grid (``scipy.signal.freqz``)."""
+    w, h = signal.freqz(taps, worN=1 << 15)
+    worst = np.max(np.abs(h[w >= stop * math.pi]))
+    return float(-20 * math.log10(max(worst, 1e-300)))
+
+
+def _stages(factor: int) -> int:
+    stages = int(round(math.log2(factor)))
+    if factor < 2 or 2**stages != factor:
+        raise ValueError(f"factor must be a power of two >= 2, got {factor}")
+    return stages
+
+
+def _polyphase(h: np.ndarray, gain: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Both phases of ``h`` (times ``gain``), zeros at either end trimmed, reversed for a
+    forward dot product: ``taps[k, :lengths[k]]`` and the delay ``offsets[k]`` (in samples
+    of the lower rate) of the phase's first non-zero tap."""
+    phases = [h[k::2] * gain for k in range(2)]
+    width = max(len(p) for p in phases)
+    taps = np.zeros((2, width))
+    lengths = np.zeros(2, np.int64)
+    offsets = np.zeros(2, np.int64)
+    for k, p in enumerate(phases):
+        nz = np.flatnonzero(p)
+        first, last = int(nz[0]), int(nz[-1])
+        lengths[k] = last - first + 1
+        offsets[k] = first
+        taps[k, : lengths[k]] = p[first : last + 1][::-1]
+    return taps, lengths, offsets
+
+
+@numba.njit(cache=True, fastmath=True)
+def _up_stage(buf, hist, n, taps, lengths, offsets, acc, out, out_start):  # pragma: no cover
+    """``buf[:, hist:hist+n]`` (lanes, low rate, history before it) -> ``out[:, out_start:
+    out_start+2n]``: ``y[2i+k] = sum_j g_k[j] x[i - j]``; then keep the history.
+
+    Tap by tap over all outputs of a phase (``acc``), so the inner loop runs over
+    contiguous samples with no dependency between iterations."""
+    lanes = buf.shape[0]
+    for lane in range(lanes):
+        row = buf[lane]
+        for k in range(2):
+            a = acc[k]
+            length = lengths[k]
+            base = hist - offsets[k] - length + 1
+            for lo in range(0, n, TILE):
+                hi = min(n, lo + TILE)
+                for i in range(lo, hi):
+                    a[i] = 0.0
+                span = hi - lo
+                part = a[lo:hi]
+                for t in range(length):
+                    g = taps[k, t]
+                    seg = row[base + t + lo : base + t + hi]
+                    for i in range(span):  # non-negative indices: the loop vectorizes
+                        part[i] += g * seg[i]
+        target = out[lane]
+        for i in range(n):
+            target[out_start + 2 * i] = acc[0, i]
+            target[out_start + 2 * i + 1] = acc[1, i]
+        for j in range(hist):
+            row[j] = row[n + j]
+
+
+@numba.njit(cache=True, fastmath=True)
+def _down_stage(buf, hist, n, taps, lengths, offsets, out, out_start):  # pragma: no cover
+    """``buf[:, 0]`` even and ``buf[:, 1]`` odd input samples (``hist`` of history, then
+    ``n`` new of each) -> ``y[i] = sum_j h[j] x[2i - j]`` into ``out[:, out_start:]``:
+    the even taps meet even samples at ``i - m``, the odd ones odd samples at ``i - m - 1``.
+    Tap by tap over all outputs, as in :func:`_up_stage`."""
+    lanes = buf.shape[0]
+    for lane in range(lanes):
+        y = out[lane]
+        for lo in range(out_start, out_start + n, TILE):
+            hi = min(out_start + n, lo + TILE)
+            span = hi - lo
+            part = y[lo:hi]
+            for i in range(span):
+                part[i] = 0.0
+            for k in range(2):
+                row = buf[lane, k]
+                length = lengths[k]
+                base = hist - offsets[k] - k - length + 1 - out_start
+                for t in range(length):
+                    g = taps[k, t]
+                    seg = row[base + t + lo : base + t + hi]
+                    for i in range(span):  # non-negative indices: the loop vectorizes
+                        part[i] += g * seg[i]
+        for k in range(2):
+            row = buf[lane, k]
+            for j in range(hist):
+                row[j] = row[n + j]
+
+
+@numba.njit(cache=True)
+def _frames_to_lanes(x, buf, start):  # pragma: no cover
+    """``x`` (frames, channels) -> ``buf[channel, start + frame]``."""
+    for f in range(x.shape[0]):
+        for c in range(x.shape[1]):
+            buf[c, start + f] = x[f, c]
+
+
+@numba.njit(cache=True)
+def _lanes_to_frames(buf, start, frames, out):  # pragma: no cover
+    """``buf[channel, start:start+frames]`` -> ``out`` (frames, channels)."""
+    for f in range(frames):
+        for c in range(out.shape[1]):
+            out[f, c] = buf[c, start + f]
+
+
+@numba.njit(cache=True)
+def _chains_to_pairs(x, frames, buf, start, skip):  # pragma: no cover
+    """``x`` (chains, frames, channels) -> ``buf[lane, even/odd, start + i]``, lane =
+    chain * channels + channel; with ``skip`` leading frames left out (a delay)."""
+    chains, _, channels = x.shape
+    for a in range(chains):
+        for c in range(channels):
+            lane = a * channels + c
+            for i in range((frames - skip) // 2):
+                buf[lane, 0, start + i] = x[a, skip + 2 * i, c]
+                buf[lane, 1, start + i] = x[a, skip + 2 * i + 1, c]
+
+
+@numba.njit(cache=True)
+def _lanes_to_pairs(y, n, buf, start):  # pragma: no cover
+    """``y[lane, :n]`` -> ``buf[lane, even/odd, start + i]`` for the next 2x stage."""
+    for lane in range(y.shape[0]):
+        for i in range(n // 2):
+            buf[lane, 0, start + i] = y[lane, 2 * i]
+            buf[lane, 1, start + i] = y[lane, 2 * i + 1]
+
+
+@numba.njit(cache=True)
+def _lanes_to_chains(y, start, frames, channels, out):  # pragma: no cover
+    """``y[chain * channels + channel, start + f]`` -> ``out[chain, f, channel]``."""
+    for a in range(out.shape[0]):
+        for c in range(channels):
+            for f in range(frames):
+                out[a, f, c] = y[a * channels + c, start + f]
+
+
+class _Cascade:
+    """The stage filters of one factor and phase, and their delays (shared by up and down)."""
+
+    def __init__(self, factor: int, phase: str) -> None:
+        self.factor = factor
+        self.phase = phase
+        self.stages = _stages(factor)
+        self.taps = [stage_taps(s, phase) for s in range(1, self.stages + 1)]
+
+    def delay_high(self) -> int:
+        """Delay of the up cascade (= of the down cascade) in samples of the high rate."""
+        if self.phase == "causal":
+            return 0
+        return sum((len(h) - 1) // 2 * 2 ** (self.stages - s) for s, h in enumerate(self.taps, 1))
+
+    def pad_high(self) -> int:
+        """Zero taps put in front of the highest-rate down stage so that the delay of up and
+        down together is a whole number of input frames."""
+        return -2 * self.delay_high() % self.factor
+
+    def delay_frames(self) -> int:
+        """Input frames by which the up- then down-sampled signal lags (0 when causal)."""
+        return (2 * self.delay_high() + self.pad_high()) // self.factor
+
+
+class Upsampler:
+    """Raise the rate of ``(frames, channels)`` blocks by a power of two, keeping state.
+
+    Every stage doubles the rate with its half-band FIR (:func:`stage_taps`) in polyphase
+    form, in compiled loops over arrays made here: :meth:`process` allocates nothing, so it
+    may run inside an audio callback. Any block sizes give the same output.
+
+    Parameters
+    ----------
+    factor : int
+        2, 4, 8 or 16.
+    channels : int
+        Channels of every block.
+    max_frames : int
+        Largest block (input frames).
+    phase : {"linear", "causal"}
+    dtype : numpy dtype
+        Of the output (the runner's): float64 or float32.
+
+    Examples
+    --------
+    >>> up = Upsampler(4, channels=1, max_frames=8)
+    >>> up.process(np.ones((8, 1))).shape
+    (32, 1)
+    """
+
+    def __init__(
+        self,
+        factor: int,
+        channels: int,
+        max_frames: int,
+        phase: str = "linear",
+        dtype: Any = np.float64,
+    ) -> None:
+        self.cascade = _Cascade(factor, phase)
+        self.factor = factor
+        self.channels = channels
+        self.max_frames = max_frames
+        self._plans = []
+        n = max_frames
+        for h in self.cascade.taps:
+            taps, lengths, offsets = _polyphase(h, 2.0)
+            hist = int(np.max(offsets + lengths - 1))
+            buf = np.zeros((channels, hist + n))
+            self._plans.append((buf, hist, taps, lengths, offsets))
+            n *= 2
+        self._acc = np.zeros((2, n // 2))
+        self._last = np.zeros((channels, n))
+        self._out = np.zeros((n, channels), dtype=dtype)
+
+    def process(self, block: np.ndarray) -> np.ndarray:
+        """``(frames, channels)`` -> ``(frames * factor, channels)``, a view of an array
+        that the next call overwrites."""
+        n = block.shape[0]
+        if n > self.max_frames:
+            raise ValueError(f"block of {n} frames is longer than max_frames {self.max_frames}")
+        first = self._plans[0]
+        _frames_to_lanes(block, first[0], first[1])
+        for s, (buf, hist, taps, lengths, offsets) in enumerate(self._plans):
+            last = s + 1 == len(self._plans)
+            target, start = (
+                (self._last, 0) if last else (self._plans[s + 1][0], self._plans[s + 1][1])
+            )
+            _up_stage(buf, hist, n, taps, lengths, offsets, self._acc, target, start)
+            n *= 2
+        _lanes_to_frames(self._last, 0, n, self._out)
+        return self._out[:n]
+
+    def reset(self) -> None:
+        """Forget the history (silence before the next block)."""
+        for buf, *_ in self._plans:
+            buf.fill(0.0)
+
+
+class Downsampler:
+    """Lower the rate of every chain's output by a power of two, keeping state.
+
+    Takes ``(chains, frames, channels)`` blocks (a runner's output) whose length is a
+    multiple of the factor and returns ``(chains, frames // factor, channels)``. Linear
+    phase: the up and down cascades' delay together (:attr:`delay_frames` input frames) is
+    taken out here: the output of the first call starts with that many frames of the
+    past; :class:`filtertwin.render.TwinStream` drops them. Allocates nothing in :meth:`process`.
+
+    Parameters
+    ----------
+    factor : int
+    chains, channels : int
+    max_frames : int
+        Largest block (high-rate frames).
+    phase : {"linear", "causal"}
+    dtype : numpy dtype
+        Of the output.
+    """
+
+    def __init__(
+        self,
+        factor: int,
+        chains: int,
+        channels: int,
+        max_frames: int,
+        phase: str = "linear",
+        dtype: Any = np.float64,
+    ) -> None:
+        self.cascade = _Cascade(factor, phase)
+        self.factor = factor
+        self.chains = chains
+        self.channels = channels
+        if max_frames % factor:
+            raise ValueError(f"max_frames {max_frames} must be a multiple of {factor}")
+        lanes = chains * channels
+        self._plans = []
+        n = max_frames
+        pad = np.zeros(self.cascade.pad_high())
+        # the highest-rate stage first
+        for s, h in enumerate(reversed(self.cascade.taps)):
+            taps, lengths, offsets = _polyphase(np.concatenate([pad, h]) if s == 0 else h, 1.0)
+            hist = int(np.max(offsets + np.arange(2) + lengths - 1))
+            buf = np.zeros((lanes, 2, hist + n // 2))
+            self._plans.append((buf, hist, taps, lengths, offsets))
+            n //= 2
+        self._y = [np.zeros((lanes, max_frames // 2 ** (s + 1))) for s in range(len(self._plans))]
+        self._out = np.zeros((chains, n, channels), dtype=dtype)
+
+    def process(self, block: np.ndarray) -> np.ndarray:
+        """``(chains, frames, channels)`` -> ``(chains, frames // factor, channels)``, a view
+        of an array that the next call overwrites."""
+        n = block.shape[1]
+        if n % self.factor:
+            raise ValueError(f"block of {n} frames is not a multiple of {self.factor}")
+        first = self._plans[0]
+        _chains_to_pairs(block, n, first[0], first[1], 0)
+        for s, (buf, hist, taps, lengths, offsets) in enumerate(self._plans):
+            n //= 2
+            _down_stage(buf, hist, n, taps, lengths, offsets, self._y[s], 0)
+            if s + 1 < len(self._plans):
+                nxt = self._plans[s + 1]
+                _lanes_to_pairs(self._y[s], n, nxt[0], nxt[1])
+        _lanes_to_chains(self._y[-1], 0, n, self.channels, self._out)
+        return self._out[:, :n]
+
+    def reset(self) -> None:
+        """Forget the history."""
+        for buf, *_ in self._plans:
+            buf.fill(0.0)
+
+
+def delay_frames(factor: int, phase: str = "linear") -> int:
+    """Input frames by which a signal up- then down-sampled by :class:`Upsampler` and
+    :class:`Downsampler` lags (0 for ``"causal"``, whose delay is not taken out)."""
+    return _Cascade(factor, phase).delay_frames()
+
+
+def dc_delay_s(factor: int, rate_hz: float, phase: str = "linear") -> float:
+    """Group delay at 0 Hz of up and down together, seconds, after the delay render takes
+    out (0 for linear phase; the latency of the causal filters)."""
+    if phase == "linear":
+        return 0.0
+    cascade = _Cascade(factor, phase)
+    total = 0.0
+    for s, taps in enumerate(cascade.taps, 1):
+        total += 2 * float(np.dot(np.arange(len(taps)), taps) / taps.sum()) / (rate_hz * 2**s)
+    return total
+
+
+def response(factor: int, f_hz: np.ndarray, rate_hz: float, phase: str = "linear") -> np.ndarray:
+    """Complex response of the up and the down cascade together at ``f_hz`` (Hz), with
+    ``rate_hz`` the input rate; linear phase: their delay taken out (as render does)."""
+    f = np.asarray(f_hz, float)
+    h = np.ones(f.shape, complex)
+    cascade = _Cascade(factor, phase)
+    for s, taps in enumerate(cascade.taps, 1):
+        z1 = np.exp(-2j * math.pi * np.multiply.outer(f, np.arange(len(taps))) / (rate_hz * 2**s))
+        hs = z1 @ taps
+        h *= hs * hs
+    delay_s = 2 * cascade.delay_high() / (rate_hz * factor)
+    return h * np.exp(2j * math.pi * f * delay_s)

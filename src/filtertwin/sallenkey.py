@@ -18,15 +18,24 @@ is ``K = 1 + RF / RG`` (``K = 1`` without RF and RG). A first-order stage is ``R
 low-pass or a CR high-pass) into the same amplifier.
 
 The analysis solves the network's node equations with admittances ``Y1`` (input element),
-``Y2`` (element into the amplifier), ``Y3`` (element to ground) and ``Y4`` (feedback element),
-and the amplifier as ``Vout = G(s) * V+``. With an ideal amplifier ``G = K``; with a single-pole
-amplifier (gain-bandwidth ``wt``, DC open-loop gain ``A0``) ``G(s) = wt / (s + wt/A0 + wt/K)``,
-which adds a pole to the stage and moves its f0 and Q. Solving the two node equations gives::
+``Y2`` (element into the amplifier), ``Y3`` (element to ground) and ``Y4`` (feedback element).
+With an ideal amplifier the output is ``K * V+``. The amplifier model is a single-pole
+amplifier (gain-bandwidth ``wt``, DC open-loop gain ``A0``), ``A(s) = wt / (s + wt/A0)``, as an
+internal source ``Vs = A(s) (V+ - V-)`` behind its open-loop output resistance ``Ro``; the
+output node is loaded by the feedback element ``Y4`` and by the gain leg ``RF + RG``
+(``Yf = 1 / (RF + RG)``, 0 at unity gain), and ``V- = Vout / K``. Writing ``A = An / Ad``,
+``D = Y2 + Y3`` and ``L = Y1 D + Y2 Y3 + Y4 D``, the node equations give::
 
-    H(s) = Y1 Y2 Gn / ((Y1 (Y2 + Y3) + Y2 Y3 + Y4 (Y2 + Y3)) Gd - Y4 Y2 Gn)
+    Gd = Ad (1 + Ro Yf) + An / K
+    H(s) = Y1 (An Y2 + Ro Y4 D Ad) / (Gd L + Ro Ad Y4 (Y1 D + Y2 Y3) - An Y4 Y2)
 
-with ``G = Gn / Gd``. Every admittance is a polynomial in s (``1/R`` or ``s C``), so the result
-is a ratio of polynomials with no approximation.
+With ``Ro = 0`` this is ``Y1 Y2 G / (L - Y4 Y2 G)`` with the closed-loop gain
+``G = An / Gd``. With ``Ro > 0`` the input reaches the output through ``Y1`` and ``Y4``
+around the amplifier: as the loop gain falls, a low-pass stops falling and turns back up to
+``Vout/Vin -> (Ro || R2 || (RF + RG)) / (R1 + Ro || R2 || (RF + RG))`` (the capacitors
+short, the amplifier's internal source goes to 0). Every admittance is a polynomial in s
+(``1/R`` or ``s C``), so the result is a ratio of polynomials with no approximation. The
+next stage's input (at least R1, kilohms, against tens of ohms of ``Ro``) is not modelled.
 
 References
 ----------
@@ -66,6 +75,8 @@ class Amplifier:
         Input current noise density in A/sqrt(Hz).
     open_loop_gain : float
         DC open-loop gain (linear).
+    output_resistance_ohm : float
+        Open-loop output resistance in ohm (0: an ideal output).
     """
 
     description: str
@@ -75,25 +86,29 @@ class Amplifier:
     noise_v_per_rthz: float
     noise_a_per_rthz: float
     open_loop_gain: float = 1e5
+    output_resistance_ohm: float = 0.0
 
 
-# Generic presets named by kind. The figures are typical of each kind of amplifier
-# (common practice, no single source); none describes a particular product.
+# Generic presets named by kind. Every figure is a round number typical of the CLASS of
+# amplifier (from memory / common practice: the span such amplifiers are sold in, rounded),
+# not any one product's datasheet: gain-bandwidth, slew rate, swing on +/-15 V (the CMOS one
+# on a single 5 V supply, rail to rail within 50 mV), input voltage and current noise
+# densities (white, above the 1/f corner), DC open-loop gain and open-loop output resistance.
 AMPLIFIER_PRESETS: dict[str, Amplifier] = {
     "general-purpose bipolar": Amplifier(
-        "general-purpose bipolar, 1 MHz", 1e6, 13.0, 0.5e6, 20e-9, 0.5e-12, 2e5
+        "general-purpose bipolar, 1 MHz", 1e6, 13.0, 0.5e6, 20e-9, 0.5e-12, 1e5, 75.0
     ),
     "general-purpose JFET input": Amplifier(
-        "general-purpose JFET input, 3 MHz", 3e6, 13.5, 13e6, 18e-9, 0.01e-12, 2e5
+        "general-purpose JFET input, 5 MHz", 5e6, 13.0, 10e6, 20e-9, 0.01e-12, 1e5, 100.0
     ),
     "low-noise bipolar": Amplifier(
-        "low-noise bipolar, 10 MHz", 10e6, 13.0, 7e6, 3.2e-9, 0.6e-12, 1e6
+        "low-noise bipolar, 10 MHz", 10e6, 13.0, 5e6, 3e-9, 1e-12, 1e6, 50.0
     ),
     "audio dual bipolar": Amplifier(
-        "low-distortion audio dual, bipolar, 20 MHz", 20e6, 13.5, 8e6, 4.5e-9, 1.6e-12, 3e5
+        "low-distortion audio dual, bipolar, 20 MHz", 20e6, 13.0, 10e6, 5e-9, 1e-12, 3e5, 50.0
     ),
     "rail-to-rail CMOS 5 V": Amplifier(
-        "rail-to-rail CMOS on a 5 V supply, 10 MHz", 10e6, 2.45, 7e6, 9e-9, 1e-15, 1e5
+        "rail-to-rail CMOS on a 5 V supply, 10 MHz", 10e6, 2.45, 5e6, 10e-9, 1e-15, 1e5, 150.0
     ),
 }
 
@@ -131,6 +146,13 @@ class StageCircuit:
         if self.rf is None or self.rg is None:
             return 1.0
         return 1.0 + self.rf / self.rg
+
+    @property
+    def gain_leg_ohm(self) -> float | None:
+        """RF + RG, the gain leg that loads the amplifier's output; None at unity gain."""
+        if self.rf is None or self.rg is None:
+            return None
+        return self.rf + self.rg
 
     def parts(self) -> dict[str, float]:
         """Part values by designator within the stage (only the parts that exist)."""
@@ -191,30 +213,43 @@ def _padd(p: Poly, q: Poly, sign: float = 1.0) -> Poly:
     return [a + sign * b for a, b in zip(p, q, strict=True)]
 
 
-def amplifier_polynomials(k: Any, amp: Amplifier | None) -> tuple[Poly, Poly]:
-    """Closed-loop non-inverting gain G(s) = Gn / Gd of an amplifier set to gain ``k``.
+def _gain_leg_admittance(gain_leg_ohm: Any) -> Any:
+    """1 / (RF + RG), or 0 at unity gain (no gain leg)."""
+    return 0.0 if gain_leg_ohm is None else 1.0 / gain_leg_ohm
 
-    Ideal: G = k. Single-pole model: A(s) = wt / (s + wt / A0), feedback fraction 1/k, so
-    G(s) = wt / (s + wt / A0 + wt / k).
+
+def amplifier_polynomials(
+    k: Any, amp: Amplifier | None, gain_leg_ohm: Any = None
+) -> tuple[Poly, Poly, Poly]:
+    """Closed-loop non-inverting gain G(s) = Gn / Gd of an amplifier set to gain ``k``, and
+    the open-loop denominator Ad.
+
+    Ideal: G = k. Single-pole model: A(s) = An / Ad = wt / (s + wt / A0), feedback fraction
+    1/k, output resistance Ro loaded by the gain leg RF + RG:
+    G(s) = An / (Ad (1 + Ro / (RF + RG)) + An / k).
     """
     one = np.ones_like(k, dtype=float)
     if amp is None:
-        return [k * one], [one]
+        return [k * one], [one], [one]
     wt = 2.0 * math.pi * amp.gbw_hz
-    return [wt * one], [one, wt / amp.open_loop_gain + wt / k]
+    ad = [one, wt / amp.open_loop_gain * one]
+    load = 1.0 + amp.output_resistance_ohm * _gain_leg_admittance(gain_leg_ohm)
+    return [wt * one], _padd(_pmul(ad, [load * one]), [wt / k]), ad
 
 
 def node_polynomials(
     response: str, order: int, r1: Any, c1: Any, r2: Any = None, c2: Any = None,
-    k: Any = 1.0, amp: Amplifier | None = None,
+    k: Any = 1.0, amp: Amplifier | None = None, gain_leg_ohm: Any = None,
 ) -> tuple[Poly, Poly]:  # fmt: skip
     """Numerator and denominator of a stage from the node equations (module docstring).
 
     Every part value may be a float or an array over builds (the coefficients then are
-    arrays too). Returns coefficient lists, highest power first, ``b`` padded with leading
-    zeros to the length of ``a``; not normalised.
+    arrays too); ``gain_leg_ohm`` is RF + RG (None at unity gain). Returns coefficient lists,
+    highest power first, ``b`` padded with leading zeros to the length of ``a``; not
+    normalised.
     """
-    gn, gd = amplifier_polynomials(k, amp)
+    gn, gd, ad = amplifier_polynomials(k, amp, gain_leg_ohm)
+    ro = 0.0 if amp is None else amp.output_resistance_ohm
     zero = np.zeros_like(r1 * c1)
     if order == 1:
         rc = r1 * c1
@@ -228,7 +263,12 @@ def node_polynomials(
         y23 = _padd(y2, y3)
         load = _padd(_padd(_pmul(y1, y23), _pmul(y2, y3)), _pmul(y4, y23))
         a = _padd(_pmul(load, gd), _pmul(_pmul(y4, y2), gn), -1.0)
-        b = _pmul(_pmul(y1, y2), gn)
+        b = _pmul(y1, _pmul(y2, gn))
+        if ro:
+            # the path around the amplifier: through Y4 into its output resistance
+            around = _pmul(_pmul([ro * (zero + 1.0)], ad), y4)
+            a = _padd(a, _pmul(around, _padd(_pmul(y1, y23), _pmul(y2, y3))))
+            b = _padd(b, _pmul(y1, _pmul(around, y23)))
     return [zero] * (len(a) - len(b)) + b, a
 
 
@@ -248,7 +288,7 @@ def transfer_function(c: StageCircuit, amp: Amplifier | None = None) -> tuple[np
         Polynomials in s (rad/s), highest power first, normalised so that ``a[0] == 1``.
     """
     b_list, a_list = node_polynomials(
-        c.response, c.order, c.r1, c.c1, c.r2, c.c2, c.gain, amp
+        c.response, c.order, c.r1, c.c1, c.r2, c.c2, c.gain, amp, c.gain_leg_ohm
     )  # fmt: skip
     a = np.trim_zeros(np.array(a_list, float), "f")
     b = np.trim_zeros(np.array(b_list, float), "f")
@@ -331,20 +371,61 @@ def ideal_f0_q(c: StageCircuit) -> tuple[float, float]:
     return float(f0), float(q)
 
 
+def _far_real_root(poly: np.ndarray, scale_w: float) -> float:
+    """The real root of largest magnitude of a polynomial in s (computed in s / scale_w)."""
+    n = len(poly) - 1
+    scaled = poly * scale_w ** np.arange(n, -1, -1.0)
+    roots = np.roots(scaled / scaled[0]) * scale_w
+    real = [float(r.real) for r in roots if abs(r.imag) <= 1e-7 * abs(r)]
+    if not real:
+        raise ValueError("a numerator of odd degree has no real root")  # cannot happen
+    return _polish(poly, max(real, key=abs))
+
+
+def _polish(poly: np.ndarray, z: float) -> float:
+    """A real root refined by Newton steps."""
+    slope = np.polyder(poly)
+    for _ in range(3):
+        step = np.polyval(poly, z) / np.polyval(slope, z)
+        if not math.isfinite(step):
+            break
+        z -= float(step)
+    return z
+
+
+def _deflate_far(poly: np.ndarray, z: float) -> np.ndarray:
+    """poly(s) / (s - z) for the root z of largest magnitude, dividing from the constant term
+    up (the numerically stable direction for a large root)."""
+    c = poly[::-1]  # ascending powers
+    d = np.empty(len(c) - 1)
+    d[0] = -c[0] / z
+    for i in range(1, len(d)):
+        d[i] = (d[i - 1] - c[i]) / z
+    return d[::-1]
+
+
 def split_sections(model: StageModel) -> list[tuple[np.ndarray, np.ndarray]]:
     """Factor a stage's transfer function into sections of order <= 2.
 
-    A stage with an amplifier pole becomes its own network part (carrying the numerator and
-    the stage's gain) followed by a first-order low-pass section with unity DC gain for the
-    amplifier pole. A stage without one is returned whole.
+    A stage with an amplifier pole becomes its own network part (carrying the stage's gain)
+    followed by a first-order section for the amplifier pole with unity gain at DC. When the
+    amplifier's output resistance gives the numerator one degree more than the network part's
+    denominator, the first-order section also takes the numerator's real zero of largest
+    magnitude, so that each section stays proper and their product is the stage exactly.
+    A stage without an amplifier pole is returned whole.
     """
     b, a = model.b, model.a
     if model.extra_pole_hz is None:
         return [(b, a)]
-    p = -2 * math.pi * model.extra_pole_hz
-    rest, _ = np.polydiv(a, np.array([1.0, -p]))
-    first = (np.array([-p]), np.array([1.0, -p]))
-    return [(b / -p, np.real(rest)), first]
+    p = _polish(a, -2 * math.pi * model.extra_pole_hz)
+    rest = _deflate_far(np.asarray(a, float), p)
+    num = np.trim_zeros(np.asarray(b, float), "f")
+    if len(num) < len(a):
+        return [(b / -p, rest), (np.array([-p]), np.array([1.0, -p]))]
+    z = _far_real_root(num, 2 * math.pi * model.f0_hz)
+    num_rest = _deflate_far(num, z)
+    # (s - z) / (s - p) scaled to 1 at DC: (p / z) (s - z) / (s - p)
+    return [(num_rest * z / p, rest), (np.array([p / z, -p]), np.array([1.0, -p]))]
 
 
 def response(sections: list[tuple[np.ndarray, np.ndarray]], f_hz: np.ndarray) -> np.ndarray:

@@ -35,6 +35,7 @@ class AmplifierSpec:
     noise_a_per_rthz: float
     open_loop_gain: float
     description: str
+    output_resistance_ohm: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -46,6 +47,7 @@ class PartsSpec:
     capacitor_tolerance: float = 0.05
     resistor_range_ohm: tuple[float, float] = (1e3, 100e3)
     capacitor_range_f: tuple[float, float] = (100e-12, 1e-6)
+    temperature_k: float = 298.15  # of the parts, for their thermal noise (25 degrees C)
 
 
 @dataclass(frozen=True)
@@ -196,6 +198,7 @@ def _parts(table: dict[str, Any], ctx: _Ctx) -> PartsSpec:
         "capacitor_tolerance",
         "resistor_range",
         "capacitor_range",
+        "temperature_c",
     )
     _check_keys(table, allowed, ctx)
     r_series = _series(table.get("resistors", "E96"), ctx.at("resistors"))
@@ -213,7 +216,17 @@ def _parts(table: dict[str, Any], ctx: _Ctx) -> PartsSpec:
         capacitor_tolerance=_percent(c_tol, ctx.at("capacitor_tolerance")),
         resistor_range_ohm=_range(r_range, "ohm", ctx.at("resistor_range"), '["1k", "100k"]'),
         capacitor_range_f=_range(c_range, "F", ctx.at("capacitor_range"), '["100p", "1u"]'),
+        temperature_k=_temperature_k(table.get("temperature_c", 25.0), ctx.at("temperature_c")),
     )
+
+
+def _temperature_k(value: Any, ctx: _Ctx) -> float:
+    """Degrees Celsius -> kelvin, within the range parts are rated for."""
+    if isinstance(value, bool) or not isinstance(value, int | float) or not -55 <= value <= 155:
+        raise ctx.fail(
+            f"must be a number of degrees C from -55 to 155, got {value!r}", "use e.g. 25"
+        )
+    return float(value) + 273.15
 
 
 def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:
@@ -227,6 +240,7 @@ def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:
         "noise_voltage",
         "noise_current",
         "open_loop_gain_db",
+        "output_resistance",
     )
     _check_keys(table, allowed, ctx)
     preset_name = table.get("preset")
@@ -275,9 +289,31 @@ def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:
         a0 = 10 ** (a0_db / 20)
     else:
         a0 = base.open_loop_gain if base else 1e5
+    if "output_resistance" in table:
+        ro = _output_resistance(table["output_resistance"], ctx.at("output_resistance"))
+    else:
+        ro = base.output_resistance_ohm if base else DEFAULT_OUTPUT_RESISTANCE_OHM
     changed = base is None or any(k in table for k in allowed if k != "preset")
     description = base.description if base and not changed else _describe(gbw, base)
-    return AmplifierSpec(preset_name, gbw, swing, slew, en, inoise, a0, description)
+    return AmplifierSpec(preset_name, gbw, swing, slew, en, inoise, a0, description, ro)
+
+
+# common practice (no single source): open-loop output resistance of a general op-amp
+# is tens of ohms to a few hundred; used when the figures are given without a preset
+DEFAULT_OUTPUT_RESISTANCE_OHM = 50.0
+
+
+def _output_resistance(value: Any, ctx: _Ctx) -> float:
+    """Open-loop output resistance in ohm, 0 allowed (an ideal output)."""
+    if not isinstance(value, bool) and isinstance(value, int | float) and value == 0:
+        return 0.0
+    ro = _quantity(value, "ohm", ctx, '"50 ohm"')
+    if ro > 10e3:
+        raise ctx.fail(
+            f"open-loop output resistance {value!r} is above 10 kOhm, beyond any op-amp",
+            'give the figure in ohm, e.g. "50 ohm"',
+        )
+    return ro
 
 
 _DENSITY_SUFFIXES = ("/rtHz", "/sqrt(Hz)", "/\u221aHz", "/rthz")

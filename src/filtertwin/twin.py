@@ -29,6 +29,10 @@ OVERSAMPLING_FACTORS = (1, 2, 4, 8)
 # the twin counts as faithful within these (magnitude dB, phase degrees) over the band
 FIDELITY_TOL_DB = 0.1
 FIDELITY_TOL_DEG = 1.0
+RESAMPLING_WORDS = {
+    "linear": "linear-phase resampling (delay removed)",
+    "causal": "causal minimum-phase resampling (no output before the input)",
+}
 
 
 @dataclass(frozen=True)
@@ -49,6 +53,12 @@ class Fidelity:
     stopband_error_db : float or None
         Largest |H_twin - H_analog| relative to the peak gain (dB) where the analog response
         is more than 60 dB below its peak; None when the band has no such part.
+    sections_db, sections_deg : float
+        The same largest differences for the digital sections alone, without the resampling
+        filters (equal to ``max_db``, ``max_deg`` without oversampling).
+    resampling_db : float
+        Largest magnitude deviation (dB) of the up and down resampling filters together over
+        the band (0 without oversampling).
     """
 
     max_db: float
@@ -57,6 +67,9 @@ class Fidelity:
     at_deg_hz: float
     band_hz: tuple[float, float]
     stopband_error_db: float | None
+    sections_db: float = 0.0
+    sections_deg: float = 0.0
+    resampling_db: float = 0.0
 
     def within(self, tol_db: float, tol_deg: float) -> bool:
         return self.max_db <= tol_db and self.max_deg <= tol_deg
@@ -90,9 +103,32 @@ class FilterTwin:
 
 @dataclass(frozen=True)
 class Twin:
+    """Every filter's twin, the oversampling they run at and the resampling filters' phase.
+
+    Attributes
+    ----------
+    input_rate_hz : float
+    oversampling : int
+    filters : tuple of FilterTwin
+    resampling : str
+        ``"linear"`` or ``"causal"`` (:data:`filtertwin.resample.PHASES`); what the up and
+        down resampling filters are when ``oversampling`` > 1.
+    """
+
     input_rate_hz: float
     oversampling: int
     filters: tuple[FilterTwin, ...]
+    resampling: str = "linear"
+
+    def resampling_words(self) -> str:
+        """How the twin is resampled, for terminal and report lines."""
+        if self.oversampling == 1:
+            return "no resampling"
+        words = RESAMPLING_WORDS[self.resampling]
+        lag = resample.dc_delay_s(self.oversampling, self.input_rate_hz, self.resampling)
+        if lag:
+            words += f", output lags {lag * 1e6:.0f} us"
+        return words
 
     @property
     def rate_hz(self) -> float:
@@ -106,9 +142,16 @@ class Twin:
 
 
 def characteristic_hz(b: np.ndarray, a: np.ndarray) -> float:
-    """f0 of a second-order section or the corner of a first-order one, in Hz (a[0] == 1)."""
+    """f0 of a second-order section or the corner of a first-order one, in Hz (a[0] == 1).
+
+    A first-order section with a zero away from the origin (an amplifier pole with the
+    zero its output resistance adds) is matched at the lower of its zero and its pole.
+    """
     a = np.asarray(a, float) / a[0]
     w = math.sqrt(a[2]) if len(a) == 3 else a[1]
+    b = np.trim_zeros(np.asarray(b, float), "f")
+    if len(a) == 2 and len(b) == 2 and b[1] != 0:
+        w = min(w, abs(b[1] / b[0]))
     return w / (2 * math.pi)
 
 
@@ -140,9 +183,11 @@ def bilinear_section(b: np.ndarray, a: np.ndarray, rate_hz: float, warp_hz: floa
 
 
 def default_band_hz(rate_hz: float) -> tuple[float, float]:
-    """20 Hz to min(20 kHz, 0.45 fs) at audio rates; otherwise 0 (1e-3 fs) to 0.45 fs."""
+    """20 Hz to min(20 kHz, 0.4535 fs) at audio rates (20 kHz at 44.1 kHz, where the
+    resampling filters' flat passband ends: :data:`filtertwin.resample.PASS_FRACTION`);
+    otherwise 0 (1e-3 fs) to 0.45 fs."""
     if rate_hz >= 32000:
-        return 20.0, min(20000.0, 0.45 * rate_hz)
+        return 20.0, min(20000.0, resample.PASS_FRACTION * rate_hz)
     return 1e-3 * rate_hz, 0.45 * rate_hz
 
 
@@ -154,7 +199,8 @@ def _filter_sos(f: Filter, rate_hz: float, amplifier: bool, band_top_hz: float, 
             raise UserInputError(
                 f"{source}: filter '{f.name}' stage {stage.index} f0 {stage.built.f0_hz:.5g} Hz "
                 f"is at or above the Nyquist frequency {nyquist:.5g} Hz of the {rate_hz:.5g} Hz "
-                "twin; raise --rate or lower the corner"
+                "twin; --oversample auto runs the twin at a multiple of the rate, or lower the "
+                "corner"
             )
     for number, (b, a) in f.stage_sections(amplifier):
         fc = characteristic_hz(b, a)
@@ -178,15 +224,24 @@ def _sos_response(sos: np.ndarray, f_hz: np.ndarray, rate_hz: float) -> np.ndarr
     return h
 
 
-def resampling_gain(factor: int, f_hz: np.ndarray, rate_hz: float) -> np.ndarray:
-    """Magnitude response of the up- and the down-sampling filter that an oversampled twin
-    runs between (:func:`filtertwin.resample.design_filter`, linear phase, their delay
-    removed); ``rate_hz`` is the oversampled rate. 1 without oversampling."""
+def resampling_response(
+    factor: int, f_hz: np.ndarray, rate_hz: float, phase: str = "linear"
+) -> np.ndarray:
+    """Complex response of the up and the down resampling filters an oversampled twin runs
+    between (:func:`filtertwin.resample.response`); ``rate_hz`` is the oversampled rate.
+    Linear phase: their delay removed, as render removes it; causal: their delay at 0 Hz
+    removed (a latency, stated separately), the rest of their phase kept. 1 at 1x."""
+    f = np.asarray(f_hz, float)
     if factor == 1:
-        return np.ones(np.shape(f_hz))
-    h = resample.design_filter(1, factor)
-    z1 = np.exp(-2j * math.pi * np.outer(np.asarray(f_hz, float), np.arange(len(h))) / rate_hz)
-    return np.abs(z1 @ h) ** 2
+        return np.ones(f.shape, complex)
+    input_hz = rate_hz / factor
+    lag_s = resample.dc_delay_s(factor, input_hz, phase)
+    return resample.response(factor, f, input_hz, phase) * np.exp(2j * math.pi * f * lag_s)
+
+
+def _deviation(hd: np.ndarray, ha: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    ratio = hd / ha
+    return np.abs(20 * np.log10(np.abs(ratio))), np.abs(np.degrees(np.angle(ratio)))
 
 
 def measure_fidelity(
@@ -196,22 +251,24 @@ def measure_fidelity(
     band_hz: tuple[float, float],
     amplifier: bool = True,
     oversampling: int = 1,
+    phase: str = "linear",
 ) -> Fidelity:
     """Compare the twin with the analog model over ``band_hz`` (see :class:`Fidelity`).
 
-    With ``oversampling`` > 1 the twin's response includes the resampling filters around it,
-    since that is what an oversampled render plays.
+    With ``oversampling`` > 1 the twin's response includes the resampling filters around it
+    (:func:`resampling_response`), since that is what an oversampled render plays.
     """
     lo, hi = band_hz
     grid = np.geomspace(max(lo, 1e-6 * rate_hz), hi, 4000)
     ha = f.frequency_response(grid, amplifier)
-    hd = _sos_response(sos, grid, rate_hz) * resampling_gain(oversampling, grid, rate_hz)
+    hs = _sos_response(sos, grid, rate_hz)
+    hr = resampling_response(oversampling, grid, rate_hz, phase)
+    hd = hs * hr
     mag_a = np.abs(ha)
     peak = float(np.max(mag_a))
     inside = mag_a >= peak * 10 ** (-FIDELITY_WINDOW_DB / 20)
-    ratio = hd[inside] / ha[inside]
-    db = np.abs(20 * np.log10(np.abs(ratio)))
-    deg = np.abs(np.degrees(np.angle(ratio)))
+    db, deg = _deviation(hd[inside], ha[inside])
+    sec_db, sec_deg = _deviation(hs[inside], ha[inside])
     i = int(np.argmax(db))
     j = int(np.argmax(deg))
     stop = None
@@ -219,7 +276,11 @@ def measure_fidelity(
         err = np.max(np.abs(hd[~inside] - ha[~inside])) / peak
         stop = float(20 * math.log10(max(err, 1e-300)))
     f_in = grid[inside]
-    return Fidelity(float(db[i]), float(deg[j]), float(f_in[i]), float(f_in[j]), (lo, hi), stop)
+    res_db = float(np.max(np.abs(20 * np.log10(np.abs(hr)))))
+    return Fidelity(
+        float(db[i]), float(deg[j]), float(f_in[i]), float(f_in[j]), (lo, hi), stop,
+        float(np.max(sec_db)), float(np.max(sec_deg)), res_db,
+    )  # fmt: skip
 
 
 def build_twin(
@@ -232,6 +293,7 @@ def build_twin(
     tol_db: float = FIDELITY_TOL_DB,
     tol_deg: float = FIDELITY_TOL_DEG,
     filters: list[str] | None = None,
+    resampling: str = "linear",
 ) -> Twin:
     """The digital twin of a design at ``rate_hz``.
 
@@ -242,40 +304,56 @@ def build_twin(
         Rate of the signal that will be filtered, Hz.
     oversampling : int or "auto"
         Run the twin at ``rate_hz * oversampling``. ``"auto"`` picks the smallest of 1, 2, 4,
-        8 whose fidelity over the band is within ``tol_db`` and ``tol_deg`` for every filter
-        (8 if none is).
+        8 whose fidelity over the band (resampling filters included) is within ``tol_db``
+        and ``tol_deg`` for every filter (8 if none is), skipping factors whose Nyquist
+        frequency a stage's f0 reaches (a corner above the recording's Nyquist frequency).
     band_hz : (float, float), optional
         Band of interest for the fidelity report (default: :func:`default_band_hz`).
     amplifier : bool
         Include the amplifier model (finite gain-bandwidth) when the design has one.
     filters : list of str, optional
         Names of the filters to include (default all).
+    resampling : {"linear", "causal"}
+        Phase of the up and down resampling filters of an oversampled twin
+        (:data:`filtertwin.resample.PHASES`).
 
     Raises
     ------
     UserInputError
-        A stage whose f0 is at or above the twin's Nyquist frequency.
+        A stage whose f0 is at or above the twin's Nyquist frequency (at every factor tried),
+        or an unknown ``resampling``.
     """
     if rate_hz <= 0 or not math.isfinite(rate_hz):
         raise UserInputError(f"sample rate {rate_hz!r} Hz is not positive; give a rate like 48000")
     chosen = [design.filter(n) for n in filters] if filters else list(design.filters)
     band = band_hz or default_band_hz(rate_hz)
     use_amp = amplifier and design.amplifier is not None
+    if resampling not in resample.PHASES:
+        raise UserInputError(
+            f"resampling {resampling!r} is not one of {', '.join(resample.PHASES)}; "
+            "give --resampling linear or causal"
+        )
     factors = OVERSAMPLING_FACTORS if oversampling == "auto" else (int(oversampling),)
     result: Twin | None = None
+    refused: UserInputError | None = None
     for factor in factors:
         twins = []
         run_rate = rate_hz * factor
-        for f in chosen:
-            sos, stage_of = _filter_sos(f, run_rate, use_amp, band[1], design.spec.source)
-            fid = measure_fidelity(f, sos, run_rate, band, use_amp, factor)
-            twins.append(
-                FilterTwin(f.name, run_rate, sos, _clip_levels(design, stage_of), stage_of, fid)
-            )
-        result = Twin(rate_hz, factor, tuple(twins))
+        try:
+            for f in chosen:
+                sos, stage_of = _filter_sos(f, run_rate, use_amp, band[1], design.spec.source)
+                fid = measure_fidelity(f, sos, run_rate, band, use_amp, factor, resampling)
+                levels = _clip_levels(design, stage_of)
+                twins.append(FilterTwin(f.name, run_rate, sos, levels, stage_of, fid))
+        except UserInputError as error:  # a corner above this rate's Nyquist: try a higher one
+            refused = error
+            continue
+        result = Twin(rate_hz, factor, tuple(twins), resampling)
         if all(t.fidelity.within(tol_db, tol_deg) for t in twins):
             break
-    assert result is not None
+    if result is None:
+        assert refused is not None
+        raise refused
     return result
 
 

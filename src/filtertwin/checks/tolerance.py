@@ -330,7 +330,8 @@ def stage_polynomials(
     the builds: admittances Y1 (input), Y2 (into the amplifier), Y3 (to ground), Y4
     (feedback) and the amplifier G = Gn / Gd give H = Y1 Y2 Gn / (L Gd - Y4 Y2 Gn),
     L = Y1 (Y2 + Y3) + Y2 Y3 + Y4 (Y2 + Y3). Ideal amplifier: G = K = 1 + RF/RG;
-    single-pole: G = wt / (s + wt/A0 + wt/K). First order: 1 / (R1 C1 s + 1) (low-pass) or
+    single-pole: G = wt / (s + wt/A0 + wt/K), plus the amplifier's output resistance terms
+    (see :mod:`filtertwin.sallenkey`). First order: 1 / (R1 C1 s + 1) (low-pass) or
     R1 C1 s / (R1 C1 s + 1) (high-pass), times G.
 
     Parameters
@@ -364,6 +365,7 @@ def stage_polynomials(
         np.asarray(parts["R2"], float) if second else None,
         np.asarray(parts["C2"], float) if second else None,
         k * np.ones_like(r1), amp,
+        np.asarray(parts["RF"], float) + np.asarray(parts["RG"], float) if "RF" in parts else None,
     )  # fmt: skip
     lead = a[0]
     return np.stack(b, axis=1) / lead[:, None], np.stack(a, axis=1) / lead[:, None]

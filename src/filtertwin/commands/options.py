@@ -39,6 +39,20 @@ def oversampling(text: str) -> int | str:
     raise argparse.ArgumentTypeError(f"must be 1, 2, 4, 8 or auto, got {text!r}")
 
 
+RESAMPLING_HELP = (
+    "phase of the resampling filters of an oversampled twin: linear (default; their delay is "
+    "removed, outputs line up with the input) or causal (minimum phase: nothing comes out "
+    "before the input does, for step and impulse studies; the output lags a little)"
+)
+
+
+def add_resampling(parser: Any) -> None:
+    """The ``--resampling linear|causal`` option (:data:`filtertwin.resample.PHASES`)."""
+    parser.add_argument(
+        "--resampling", choices=("linear", "causal"), default="linear", help=RESAMPLING_HELP
+    )
+
+
 def positive(kind: Callable[[str], Any], what: str) -> Callable[[str], Any]:
     """A positive number of the given kind (int or float)."""
 

@@ -13,7 +13,7 @@ import time
 from pathlib import Path
 from typing import Any, TextIO
 
-from filtertwin.commands.options import column, frequency_hz, oversampling
+from filtertwin.commands.options import add_resampling, column, frequency_hz, oversampling
 from filtertwin.errors import UserInputError
 
 SAFETY_LINE = (
@@ -51,8 +51,10 @@ def register(subparsers: Any) -> None:
     p.add_argument(
         "--oversample", type=oversampling, default="auto", metavar="1|2|4|8|auto",
         help="run the twin at 1, 2, 4 or 8 times the input rate; auto (default) picks the "
-        "smallest factor whose fidelity is within 0.1 dB and 1 degree",
+        "smallest factor whose fidelity (resampling filters included) is within 0.1 dB and "
+        "1 degree",
     )  # fmt: skip
+    add_resampling(p)
     p.add_argument(
         "--build", choices=("nominal", "worst"), default="nominal",
         help="render the nominal parts, or the worst build of a tolerance analysis",
@@ -63,7 +65,7 @@ def register(subparsers: Any) -> None:
     )  # fmt: skip
     p.add_argument(
         "--seed", type=_seed, default=1, metavar="S",
-        help="random seed of the tolerance builds (default 1)",
+        help="random seed of the tolerance builds and of --circuit-noise (default 1)",
     )  # fmt: skip
     p.add_argument(
         "--rate", type=frequency_hz, metavar="HZ",
@@ -72,6 +74,11 @@ def register(subparsers: Any) -> None:
     p.add_argument(
         "--column", metavar="NAME|INDEX",
         help="the one channel or CSV column to render (default all)",
+    )  # fmt: skip
+    p.add_argument(
+        "--circuit-noise", action="store_true",
+        help="add the circuit's own noise (resistors and amplifier) to every filter output, "
+        "shaped to its computed density at its true level against full scale",
     )  # fmt: skip
     p.add_argument(
         "--no-report", action="store_true",
@@ -134,7 +141,8 @@ class _ProgressBar:
 
 
 def cmd_render(args: argparse.Namespace) -> int:
-    """Run ``filtertwin render``; returns the exit status (0)."""
+    """Run ``filtertwin render``; returns the exit status (0, or 1 when a filter's twin is
+    outside the fidelity tolerance, resampling filters included)."""
     from filtertwin import recordings
 
     info = recordings.inspect(args.input, rate_hz=args.rate, column=column(args.column))
@@ -152,7 +160,9 @@ def cmd_render(args: argparse.Namespace) -> int:
 
         tolerance = run_tolerance(design, args.builds, seed=args.seed)
         design = worst_build_design(design, tolerance)
-    twin = build_twin(design, info.rate_hz, oversampling=args.oversample)
+    twin = build_twin(
+        design, info.rate_hz, oversampling=args.oversample, resampling=args.resampling
+    )
     settings = render.RenderSettings(
         block_frames=args.block, audio_format=args.format, subtype=args.subtype,
         spectra=not args.no_report,
@@ -175,14 +185,23 @@ def cmd_render(args: argparse.Namespace) -> int:
     extra: list[Path] = []  # figures of the checks, drawn here
     try:
         bar = _ProgressBar(sys.stderr, info.rate_hz)
+        noise = None
+        if args.circuit_noise:
+            from filtertwin.noise import CircuitNoiseSource
+
+            names = [f.name for f in twin.filters]
+            noise = CircuitNoiseSource(design, names, info.rate_hz, info.channels, seed=args.seed)
         try:
-            result = render.render(twin, info, plan, subtype, settings, progress=bar)
+            result = render.render(
+                twin, info, plan, subtype, settings, progress=bar, noise=noise
+            )  # fmt: skip
         finally:
             bar.close()
         audio = [f.path for f in result.files]
-        sections, extra_summary = [], {}
+        sections: list[Any] = []
+        extra_summary: dict[str, Any] = {"circuit_noise_added": noise is not None}
         if tolerance is not None:
-            extra_summary = {"tolerance": tolerance.to_dict()}
+            extra_summary["tolerance"] = tolerance.to_dict()
             if not args.no_report:
                 sections.append(_tolerance_section(tolerance, figure_dir, info.path, extra))
         crossover = _crossover(design)
@@ -198,7 +217,29 @@ def cmd_render(args: argparse.Namespace) -> int:
         _remove(audio + extra, made)
         raise
     _print_summary(result, twin, design, folder, extra + written)
-    return 0
+    if noise is not None:
+        print(
+            "circuit noise: added to every filter output at its computed level (see the "
+            "report's 'Circuit noise' table)"
+        )
+    return 0 if _print_fidelity(twin) else 1
+
+
+def _print_fidelity(twin: Any) -> bool:
+    """Print each filter's fidelity with its verdict; True when all are within tolerance."""
+    from filtertwin.report.design_text import fidelity_line
+    from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG
+
+    passed = True
+    for ft in twin.filters:
+        ok = ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG)
+        passed = passed and ok
+        verdict = (
+            "PASS" if ok else f"FAIL (tolerance {FIDELITY_TOL_DB:g} dB, {FIDELITY_TOL_DEG:g} deg)"
+        )
+        print(f"fidelity: filter '{ft.name}' {verdict}")
+        print(fidelity_line(ft, twin))
+    return passed
 
 
 def _remove(files: list[Path], folders: list[Path]) -> None:

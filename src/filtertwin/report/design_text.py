@@ -6,7 +6,8 @@ import math
 from typing import Any
 
 from filtertwin import units
-from filtertwin.design import Design, Filter, Stage
+from filtertwin.design import Design, Filter, Stage, StopbandFloor
+from filtertwin.noise import DesignNoise, NoiseFigures
 from filtertwin.twin import (
     FIDELITY_TOL_DB,
     FIDELITY_TOL_DEG,
@@ -62,12 +63,16 @@ def resemblance(f: Filter) -> str:
     return f"{name} at {units.format_si(corner, 'Hz', 4)} (distance {m.distance:.3f}, 0 = exact)"
 
 
-def design_table(design: Design, twin: Twin | None = None) -> str:
-    """The per-filter stage table an engineer reads before building."""
+def design_table(design: Design, twin: Twin | None = None, noise: DesignNoise | None = None) -> str:
+    """The per-filter stage table an engineer reads before building (with the circuit's
+    noise when ``noise`` is given)."""
     lines = [f"{design.title}"]
     amp = design.amplifier
     lines.append(
-        f"amplifier: {amp.description}, swing +/-{amp.swing_v:g} V" if amp else "amplifier: ideal"
+        f"amplifier: {amp.description}, swing +/-{amp.swing_v:g} V, open-loop output "
+        f"resistance {amp.output_resistance_ohm:g} ohm"
+        if amp
+        else "amplifier: ideal"
     )
     sp = design.spec.parts
     lines.append(
@@ -90,13 +95,82 @@ def design_table(design: Design, twin: Twin | None = None) -> str:
         )
         for s in f.stages:
             lines.append(_stage_line(s))
+        floor = f.stopband_floor()
+        if floor is not None:
+            lines.append(_floor_line(floor))
+        if noise is not None:
+            lines += noise_lines(next(n for n in noise.filters if n.name == f.name), noise)
         if twin is not None and f.name in twins:
-            lines.append(_fidelity_line(twins[f.name], twin))
+            lines.append(fidelity_line(twins[f.name], twin))
+    if noise is not None and noise.sum is not None:
+        lines.append("")
+        lines.append("sum of the filters (separate amplifiers: their noises add as powers):")
+        lines += noise_lines(noise.sum, noise)
     if design.warnings:
         lines.append("")
         lines.append("warnings:")
         lines += [f"  ! {w}" for w in design.warnings]
     return "\n".join(lines)
+
+
+def _volts(v: float) -> str:
+    return units.format_si(v, "V", 4)
+
+
+def _with_a(value: float | None, weighted: float | None, unit: str) -> str:
+    text = f"{value:.1f}{unit}" if value is not None else "-"
+    return text + (f" (A: {weighted:.1f}{unit})" if weighted is not None else "")
+
+
+def noise_lines(n: NoiseFigures, noise: DesignNoise) -> list[str]:
+    """The noise of one output in three lines of the design table."""
+    lo, hi = n.band_hz
+    temp_c = noise.temperature_k - 273.15
+    rms = f"{_volts(n.rms_v)} rms" + (
+        f", {_volts(n.rms_a_v)} A-weighted" if n.rms_a_v is not None else ""
+    )
+    dr = ""
+    if n.dynamic_range_db is not None:
+        dr = "; dynamic range to the clip level "
+        dr += _with_a(n.dynamic_range_db, n.dynamic_range_a_db, " dB")
+    return [
+        f"  noise {units.format_si(lo, 'Hz', 3)} to {units.format_si(hi, 'Hz', 3)} at "
+        f"{temp_c:g} C: {rms} ({units.format_si(n.spot_v_per_rthz, 'V', 3)}/rtHz at "
+        f"{units.format_si(n.spot_hz, 'Hz', 3)})",
+        f"    {_with_a(n.level_dbfs, n.level_a_dbfs, ' dBFS')}; SNR of a full-scale input "
+        f"{_with_a(n.snr_db, n.snr_a_db, ' dB')}{dr}",
+        f"    {n.stage_words()} gives {100 * n.dominant_stage_share:.0f} % of it; "
+        f"largest source: {n.source_words()}, {100 * n.dominant_source_share:.0f} %",
+    ]
+
+
+def noise_dict(n: NoiseFigures) -> dict[str, Any]:
+    """One output's noise figures, JSON-ready (V, V/sqrt(Hz), dB)."""
+    return {
+        "band_hz": list(n.band_hz),
+        "rms_v": n.rms_v,
+        "rms_a_weighted_v": n.rms_a_v,
+        "spot_hz": n.spot_hz,
+        "spot_v_per_rthz": n.spot_v_per_rthz,
+        "level_dbfs": n.level_dbfs,
+        "level_a_weighted_dbfs": n.level_a_dbfs,
+        "snr_db": n.snr_db,
+        "snr_a_weighted_db": n.snr_a_db,
+        "dynamic_range_db": n.dynamic_range_db,
+        "dynamic_range_a_weighted_db": n.dynamic_range_a_db,
+        "dominant_stage": n.dominant_stage,
+        "dominant_stage_share": n.dominant_stage_share,
+        "dominant_source": {"stage": n.dominant_source[0], "source": n.dominant_source[1]},
+        "dominant_source_share": n.dominant_source_share,
+    }
+
+
+def _floor_line(floor: StopbandFloor) -> str:
+    return (
+        f"  stopband floor {floor.level_db:.1f} dB re passband at "
+        f"{units.format_si(floor.at_hz, 'Hz', 4)} (the input reaches the output around the "
+        f"amplifiers through their output resistance), rising to {floor.rises_to_db:.1f} dB above"
+    )
 
 
 def _stage_line(s: Stage) -> str:
@@ -118,10 +192,16 @@ def _stage_line(s: Stage) -> str:
     )
 
 
-def _fidelity_line(ft: FilterTwin, twin: Twin) -> str:
+def fidelity_line(ft: FilterTwin, twin: Twin) -> str:
+    """One filter's fidelity, as the terminal and the design table show it (two spaces in),
+    with what to do when it is outside the tolerance on further lines."""
     fid = ft.fidelity
     lo, hi = fid.band_hz
-    over = f" (oversampled {twin.oversampling}x)" if twin.oversampling > 1 else ""
+    over = (
+        f" (oversampled {twin.oversampling}x, {twin.resampling_words()})"
+        if twin.oversampling > 1
+        else ""
+    )
     stop = (
         f"; stopband error {fid.stopband_error_db:.1f} dB re peak"
         if fid.stopband_error_db is not None
@@ -137,18 +217,32 @@ def _fidelity_line(ft: FilterTwin, twin: Twin) -> str:
 
 
 def _fidelity_hint(ft: FilterTwin, twin: Twin) -> str:
-    """What to do when the twin is further from the analog model than the tolerance."""
-    if ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG):
+    """What to do when the twin is further from the analog model than the tolerance: blame
+    the resampling filters when the sections alone are within it."""
+    fid = ft.fidelity
+    if fid.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG):
         return ""
+    over = f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg"
+    sections_ok = fid.sections_db <= FIDELITY_TOL_DB and fid.sections_deg <= FIDELITY_TOL_DEG
+    if twin.oversampling > 1 and sections_ok:
+        if twin.resampling == "causal":
+            return (
+                f"{over}: the sections alone are within it; the causal resampling filters "
+                "shift the phase near the top of the band; --resampling linear keeps it)"
+            )
+        return (
+            f"{over}: the sections alone are within it; the loss is the resampling filters, "
+            f"{fid.resampling_db:.3f} dB in the band)"
+        )
     if twin.oversampling < OVERSAMPLING_FACTORS[-1]:
         return (
-            f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg: the bilinear "
-            "transform compresses frequencies near Nyquist; --oversample auto runs the twin at "
-            "a higher rate)"
+            f"{over}: the bilinear transform compresses frequencies near Nyquist; "
+            "--oversample auto runs the twin at a higher rate)"
         )
     return (
-        f"\n    (over {FIDELITY_TOL_DB:g} dB / {FIDELITY_TOL_DEG:g} deg even at "
-        f"{twin.oversampling}x, on a steep skirt at {units.format_si(ft.fidelity.at_hz, 'Hz', 4)})"
+        f"{over} even at {twin.oversampling}x, the sections alone "
+        f"{fid.sections_db:.3f} dB / {fid.sections_deg:.2f} deg, largest at "
+        f"{units.format_si(fid.at_hz, 'Hz', 4)}: a skirt steeper than the twin follows there)"
     )
 
 
@@ -161,7 +255,9 @@ def _model_dict(m, gain: float) -> dict[str, Any]:
     }
 
 
-def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
+def design_dict(
+    design: Design, twin: Twin | None = None, noise: DesignNoise | None = None
+) -> dict[str, Any]:
     """The design in SI units for scripts (see the README for the schema)."""
     amp = design.amplifier
     twins = {t.name: t for t in twin.filters} if twin else {}
@@ -179,6 +275,7 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
             "noise_v_per_rthz": amp.noise_v_per_rthz,
             "noise_a_per_rthz": amp.noise_a_per_rthz,
             "open_loop_gain": amp.open_loop_gain,
+            "output_resistance_ohm": amp.output_resistance_ohm,
         },
         "filters": [],
         "warnings": [
@@ -201,7 +298,10 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                 "distance": f.resembles.distance,
             },
             "stages": [_stage_dict(s) for s in f.stages],
+            "stopband_floor": _floor_dict(f.stopband_floor()),
         }
+        if noise is not None:
+            entry["noise"] = noise_dict(next(n for n in noise.filters if n.name == f.name))
         if f.name in twins and twin is not None:
             ft = twins[f.name]
             fid = ft.fidelity
@@ -209,6 +309,7 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                 "rate_hz": ft.rate_hz,
                 "input_rate_hz": twin.input_rate_hz,
                 "oversampling": twin.oversampling,
+                "resampling": twin.resampling if twin.oversampling > 1 else None,
                 "sos": ft.sos.tolist(),
                 "stage_of_section": list(ft.stage_of_section),
                 "fidelity": {
@@ -218,10 +319,26 @@ def design_dict(design: Design, twin: Twin | None = None) -> dict[str, Any]:
                     "at_deg_hz": fid.at_deg_hz,
                     "band_hz": list(fid.band_hz),
                     "stopband_error_db": fid.stopband_error_db,
+                    "sections_db": fid.sections_db,
+                    "sections_deg": fid.sections_deg,
+                    "resampling_db": fid.resampling_db,
                 },
             }
         out["filters"].append(entry)
+    if noise is not None:
+        out["noise"] = {
+            "temperature_k": noise.temperature_k,
+            "band_hz": list(noise.band_hz),
+            "a_weighted": noise.weighted,
+            "sum": None if noise.sum is None else noise_dict(noise.sum),
+        }
     return out
+
+
+def _floor_dict(floor: StopbandFloor | None) -> dict[str, float] | None:
+    if floor is None:
+        return None
+    return {"level_db": floor.level_db, "at_hz": floor.at_hz, "rises_to_db": floor.rises_to_db}
 
 
 def _stage_dict(s: Stage) -> dict[str, Any]:

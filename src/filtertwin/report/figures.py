@@ -21,7 +21,7 @@ from matplotlib.figure import Figure
 from filtertwin.design import Design
 from filtertwin.outputs import atomic_path
 from filtertwin.spectra import Spectrum
-from filtertwin.twin import FIDELITY_WINDOW_DB, FilterTwin, Twin
+from filtertwin.twin import FIDELITY_WINDOW_DB, FilterTwin, Twin, resampling_response
 
 __all__ = ["response_figure", "save_png", "spectra_figure", "twin_response"]
 
@@ -202,6 +202,8 @@ def response_figure(path: str | os.PathLike[str], design: Design, twin: Twin, ti
         f = design.filter(ft.name)
         ha = f.frequency_response(f_hz)
         hd, gd_d = twin_response(ft, f_hz)
+        # what a render plays: the resampling filters around an oversampled twin included
+        hd = hd * resampling_response(twin.oversampling, f_hz, ft.rate_hz, twin.resampling)
         total_a, total_d = total_a + ha, total_d + hd
         c = _colour(i)
         db_a = 20 * np.log10(np.maximum(np.abs(ha), 1e-300))
@@ -234,11 +236,15 @@ def response_figure(path: str | os.PathLike[str], design: Design, twin: Twin, ti
     _limit_delay_axis(delay)
     _log_axis(error, lo, hi, "twin − analog (dB)")
     error.set_title(
-        f"twin error (within {FIDELITY_WINDOW_DB:g} dB of the peak; twin at"
-        f" {twin.rate_hz:g} Hz, {twin.oversampling}x)",
+        f"twin error within {FIDELITY_WINDOW_DB:g} dB of the peak ({twin.rate_hz / 1000:g} kHz, "
+        f"{twin.oversampling}x"
+        + (f", {twin.resampling} resampling included)" if twin.oversampling > 1 else ")"),
         fontsize="medium",
     )
     _symmetric(error, minimum=0.2)
+    top = twin.filters[0].fidelity.band_hz[1]
+    error.axvline(top, color="grey", ls=":", lw=1.0, label="top of the fidelity band")
+    error.legend(loc="lower left", fontsize="small")
     return save_png(fig, path)
 
 

@@ -16,11 +16,12 @@ from typing import TYPE_CHECKING, Any
 
 from filtertwin import __version__, units
 from filtertwin.design import Design
+from filtertwin.noise import DesignNoise, design_noise
 from filtertwin.outputs import atomic_path
 from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.render import RenderResult, WrittenFile
 from filtertwin.report import figures
-from filtertwin.report.design_text import design_dict
+from filtertwin.report.design_text import design_dict, noise_dict
 from filtertwin.report.html import CAUTION, ReportSection, write_html
 from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG, Twin
 
@@ -116,6 +117,8 @@ def summary_dict(
             "max_deg": ft.fidelity.max_deg,
             "at_hz": ft.fidelity.at_hz,
             "band_hz": list(ft.fidelity.band_hz),
+            "sections_db": ft.fidelity.sections_db,
+            "resampling_db": ft.fidelity.resampling_db,
             "within_tolerance": ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG),
         }
         for ft in twin.filters
@@ -137,6 +140,7 @@ def summary_dict(
         "twin": {
             "rate_hz": twin.rate_hz,
             "oversampling": twin.oversampling,
+            "resampling": twin.resampling if twin.oversampling > 1 else None,
             "fidelity": fidelity,
         },
         "render": {
@@ -256,8 +260,8 @@ def render_sections(
             f"{info.path.name}: {info.kind}, {info.channels} channel(s), "
             f"{units.format_si(info.rate_hz, 'Hz')}, {info.frames} frames "
             f"({info.duration_s:.3f} s). Rendered with the {what}, twin at "
-            f"{units.format_si(twin.rate_hz, 'Hz')} ({twin.oversampling}x oversampling), "
-            f"in {result.elapsed_s:.2f} s.",
+            f"{units.format_si(twin.rate_hz, 'Hz')} ({twin.oversampling}x oversampling, "
+            f"{twin.resampling_words()}), in {result.elapsed_s:.2f} s.",
         ],
     )
     level = "dBFS" if info.kind == "audio" else "dB re 1 unit"
@@ -297,7 +301,8 @@ def render_sections(
             ReportSection(
                 "Analog model and digital twin",
                 ["Exact analog response of the parts with the amplifier model against the"
-                 " digital twin's sections, up to the input's Nyquist frequency."],
+                 " digital twin as a render plays it (its sections and, when oversampled, the"
+                 " resampling filters around them), up to the input's Nyquist frequency."],
                 figures=[figure_paths["response"]],
                 captions=["Analog model solid, twin dashed; bottom right: twin error in dB."],
             )
@@ -384,6 +389,50 @@ def tolerance_section(result: ToleranceResult, figure: Path | None = None) -> Re
     )
 
 
+def noise_section(noise: DesignNoise) -> ReportSection:
+    """The circuit's noise at every output, as a table (see :mod:`filtertwin.noise`)."""
+    lo, hi = noise.band_hz
+    weighting = ", A-weighted figures per IEC 61672-1" if noise.weighted else ""
+    text = (
+        f"Output noise of the circuit from {units.format_si(lo, 'Hz', 3)} to "
+        f"{units.format_si(hi, 'Hz', 3)}{weighting}: every resistor's thermal noise 4kTR at "
+        f"{noise.temperature_k - 273.15:g} C and the amplifier's voltage and current noise, "
+        "through each stage's node equations and the stages after it. dBFS: a full-scale sine "
+        "is 0 dBFS. SNR: a full-scale input sine in the passband over the noise. Dynamic "
+        "range: the largest output no stage clips at over the noise."
+    )
+    rows = []
+    for n in (*noise.filters, *(() if noise.sum is None else (noise.sum,))):
+        rows.append((
+            n.name, units.format_si(n.rms_v, "V", 4),
+            "-" if n.rms_a_v is None else units.format_si(n.rms_a_v, "V", 4),
+            _with_weighted(n.level_dbfs, n.level_a_dbfs), _with_weighted(n.snr_db, n.snr_a_db),
+            "-" if n.dynamic_range_db is None else f"{n.dynamic_range_db:.1f}",
+            f"{n.stage_words()} ({100 * n.dominant_stage_share:.0f} %)",
+            f"{n.source_words()} ({100 * n.dominant_source_share:.0f} %)",
+        ))  # fmt: skip
+    header = (
+        "output", "noise rms", "A-weighted", "dBFS", "SNR dB", "dynamic range dB",
+        "largest stage", "largest source",
+    )  # fmt: skip
+    return ReportSection("Circuit noise", [text], tables=[(header, rows)])
+
+
+def _with_weighted(value: float, weighted: float | None) -> str:
+    return f"{value:.1f}" + ("" if weighted is None else f" (A {weighted:.1f})")
+
+
+def noise_summary(noise: DesignNoise) -> dict[str, Any]:
+    """The noise figures for ``summary.json`` (see ``design --json``)."""
+    return {
+        "temperature_k": noise.temperature_k,
+        "band_hz": list(noise.band_hz),
+        "a_weighted": noise.weighted,
+        "filters": {n.name: noise_dict(n) for n in noise.filters},
+        "sum": None if noise.sum is None else noise_dict(noise.sum),
+    }
+
+
 def write_render_report(
     folder: Path,
     result: RenderResult,
@@ -421,6 +470,9 @@ def write_render_report(
     list of Path
         Every file written, ``summary.json`` last. On an error, those written are removed.
     """
+    noise = design_noise(design, twin.filters[0].fidelity.band_hz if twin.filters else None)
+    extra_sections = [*extra_sections, noise_section(noise)]
+    extra_summary = {**(extra_summary or {}), "noise": noise_summary(noise)}
     written: list[Path] = []
     figure_folder = folder / FIGURES_FOLDER
     made_folder = with_report and not figure_folder.exists()
