@@ -136,7 +136,7 @@ def test_an_edited_candidate_is_saved_to_a_new_file_that_loads_to_the_same_parts
     session.handle(cmd("part", "woofer", "2", "R1", "10k"), 1.0)
     target = tmp_path / "bookshelf-edited.toml"
     saved = session.save_as(target)
-    assert saved == target and said[-1] == f"saved A with its edits to {target}"
+    assert saved == target and said[-1] == f"saved A as {target}"
     reloaded = build_design(load_design(target))
     now = session.candidates[0].design
     for f_now, f_new in zip(now.filters, reloaded.filters, strict=True):
@@ -146,8 +146,8 @@ def test_an_edited_candidate_is_saved_to_a_new_file_that_loads_to_the_same_parts
     assert data["filter"][0]["stage"][1]["R1"] == "10k"  # IEC 60062 letter code
     assert data["filter"][1]["alignment"] == "linkwitz-riley"  # the other way is untouched
     assert "(edited while listening)" in data["title"]
-    with pytest.raises(UserInputError, match="exists already; save the edited design under"):
+    with pytest.raises(UserInputError, match="exists; choose a new name"):
         session.save_as(target)
     source = session.candidates[0].design.spec.source
-    with pytest.raises(UserInputError, match="exists already"):
+    with pytest.raises(UserInputError, match="exists; choose a new name"):
         session.save_as(source)  # the original is never overwritten

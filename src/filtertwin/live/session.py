@@ -30,7 +30,7 @@ import numpy as np
 
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
-from filtertwin.live import capture, designfile, edits, keys, matching, routing
+from filtertwin.live import capture, edits, keys, matching, routing
 from filtertwin.live.blind import BlindSession, buttons, describe_score
 from filtertwin.live.chains import BlendedSwap, ChainHost, ChainSwapper
 from filtertwin.live.mixer import SUM, Selection
@@ -39,6 +39,9 @@ from filtertwin.live.stream import StreamCore
 from filtertwin.twin import Twin, build_twin
 
 CONFIRM_WINDOW_S = 3.0
+POLL_EVERY_S = 0.005
+POLL_GIVE_UP_S = 10.0
+"""The edit thread stops after this (a stalled stream); the control loop polls on."""
 
 
 class ListenSession:
@@ -113,6 +116,7 @@ class ListenSession:
         )
         self.lock = threading.RLock()
         """Held by every command: the console and a preview window may both call in."""
+        self._poller: threading.Thread | None = None
 
     @property
     def safety(self) -> OutputSafety:
@@ -570,21 +574,18 @@ class ListenSession:
         return lines
 
     def save_as(self, path: str | Path) -> Path:
-        """Save the heard candidate, with its edits, as a new design file (the session API)."""
+        """Save the heard candidate, as edited, as a new design file (the session API).
+
+        The file is written by :func:`filtertwin.live.window.savefile.save_design`: never
+        over an existing file, read back before it is kept.
+        """
+        from filtertwin.live.window import savefile
+
         with self.lock:
             index = self._edited_candidate()
-            edited = self.edited_filters(index)
-            if not edited:
-                raise UserInputError(
-                    f"candidate {self.candidates[index].label} has no edits to save"
-                )
             candidate = self.candidates[index]
-            note = "\n".join(
-                [f"Saved by filtertwin listen from {candidate.design.spec.source} after these "
-                 "live edits:", *(r.line for r in self.history if r.index == index)]
-            )  # fmt: skip
-            saved = designfile.save_design(candidate.design, edited, Path(path), note)
-            self.say(f"saved {candidate.label} with its edits to {saved}")
+            saved = savefile.save_design(candidate.design, Path(path))
+            self.say(f"saved {candidate.label} as {saved}")
             return saved
 
     def _do_part(self, command: keys.Command, now_s: float) -> None:
@@ -622,6 +623,7 @@ class ListenSession:
                 old_sos = old.filters[chain - first].sos
                 self.queued.append((chain, sos, levels, old_sos))
             self.poll()
+            self._keep_polling()
         else:  # another section count: a new runner (taken up whole at the next block)
             self.finish_edits()
             all_sos, all_levels = cands.chains(
@@ -648,6 +650,21 @@ class ListenSession:
                     self.swapper.host, chain, sos, levels, old_sos, self.processing_rate_hz,
                     self.fade_frames,
                 )  # fmt: skip
+
+    def _keep_polling(self) -> None:
+        """Move the crossfades on from a thread of their own as well, so that an edit
+        completes whoever drives the session (console loop, preview window, a test)."""
+        if self._poller is not None and self._poller.is_alive():
+            return
+
+        def run() -> None:
+            deadline = time.monotonic() + POLL_GIVE_UP_S
+            while self.edits_pending and time.monotonic() < deadline:
+                self.poll()
+                time.sleep(POLL_EVERY_S)
+
+        self._poller = threading.Thread(target=run, name="filtertwin-edit-fades", daemon=True)
+        self._poller.start()
 
     @property
     def edits_pending(self) -> bool:
