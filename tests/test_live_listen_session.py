@@ -201,3 +201,35 @@ def test_arrow_keys_are_dropped_whole_and_escape_still_cancels_a_line():
     editor.open()
     editor.key("p")
     assert editor.key("\x1b") is None and not editor.active
+
+
+def test_way_state_carries_across_candidates_and_never_plays_silence_unannounced():
+    core, session, _, said = setup(["studio-3way", "bookshelf-2way"])
+    session.handle(cmd("mute", "mid"), 1.0)
+    session.handle(cmd("select", "B"), 2.0)  # a 2-way candidate after a mute of mid: fine
+    assert said[-1].startswith("now: B (bookshelf-2way), ways woofer+tweeter")
+    session.handle(cmd("select", "A"), 2.5)
+    session.handle(cmd("solo", "mid"), 3.0)
+    session.handle(cmd("select", "B"), 4.0)  # no mid way: all of B is heard, and said
+    assert "(B has no mid way: all its ways are heard)" in said[-1]
+    session.handle(cmd("solo", "low"), 5.0)
+    session.handle(cmd("mute", "low"), 6.0)  # ends the solo: everything but low
+    assert said[-1].startswith("now: B (bookshelf-2way), ways tweeter")
+    session.handle(cmd("mute", "high"), 6.5)  # would leave nothing: refused
+    assert "would leave nothing to hear" in said[-1]
+    session.handle(cmd("solo", "sum"), 7.0)
+    settle(core)
+    reader = StatusReader(session)
+    assert reader.facts().ways == "all ways" == session.ways_heard()
+    # A's three chains silent, B's two at their level, the dry input off (chain order)
+    np.testing.assert_array_equal(core.mixers[0].gains, [0, 0, 0, 1, 1, 0])
+
+
+def test_a_single_filter_way_goes_by_the_designs_name():
+    core, session, _, said = setup(["candidate-butterworth", "bookshelf-2way"])
+    reader = StatusReader(session)
+    assert [w for w, _ in reader.facts().way_peaks] == ["topcut"]
+    session.handle(cmd("solo", "topcut"), 1.0)
+    assert said[-1].startswith("now: A (candidate-butterworth), ways topcut")
+    session.handle(cmd("solo", "high"), 2.0)
+    assert "candidate A has no 'high' way; its ways are topcut (low)" in said[-1]

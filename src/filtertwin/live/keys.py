@@ -141,17 +141,17 @@ def command_for_key(key: str) -> Command | None:
 
 
 TYPED_HELP: tuple[tuple[str, str], ...] = (
-    ("select N|LABEL", "hear a candidate (select 2, select B)"),
-    ("solo WAY, mute WAY", "a way alone / left out; WAY: low, mid, high, sum or a filter name"),
-    ("level DB", "output level, -60 to +12 dB (the ceiling stays)"),
-    ("part [WAY] [STAGE] PART CHANGE", "change a part: part low 2 C1 +1, part 1 R1 10k"),
-    ("corner [WAY] HZ [HZ]", "move a corner, parts chosen again: corner low 2.5k"),
-    ("undo, redo, edits", "take back / make again an edit; list the edits in force"),
-    ("save FILE", "save the candidate heard, with its edits, as a new design file"),
-    ("capture on|off", "with --adc-rate: hear what the ADC captures"),
-    ("confirm", "confirm a bypass that needs it (ways out)"),
-    ("listen A|B|X|1|2, answer A|B|1|2", "blind trials (--abx, --prefer)"),
-    ("bypass, louder, quieter, help, quit", "as the keys 0, +, -, ?, q"),
+    ("select N|LABEL", "hear a candidate: select 2, select B"),
+    ("solo WAY / mute WAY", "a way alone / out of the sum (again: in)"),
+    ("level DB", "output level -60 to +12 dB (ceiling stays)"),
+    ("part [WAY] [STAGE] PART CHANGE", "part low 2 C1 +1, part 1 R1 10k"),
+    ("corner [WAY] HZ [HZ]", "move a corner, new parts: corner low 2.5k"),
+    ("undo / redo / edits", "take an edit back, make it again, list them"),
+    ("save FILE", "the heard candidate as a new design file"),
+    ("capture on|off", "with --adc-rate: hear the ADC capture"),
+    ("confirm", "confirm a bypass that asks for it"),
+    ("listen A|B|X|1|2, answer A|B|1|2", "blind trials (--abx N, --prefer N)"),
+    ("bypass, louder, quieter, quit", "as the keys 0, +, -, q"),
 )
 """Commands typed after the key ``e`` (or written in a script), with a line of help."""
 
@@ -163,8 +163,9 @@ def help_text() -> str:
         if binding.help:
             name = "Enter" if binding.key == "\n" else binding.key
             lines.append(f"  {name:<6} {binding.help}")
-    lines.append("typed after e (Enter runs, Esc cancels), or in a script as 'TIME_S COMMAND':")
-    lines += [f"  {usage:<36} {text}" for usage, text in TYPED_HELP]
+    lines.append("commands, typed after e (Enter runs, Esc cancels) or in a script:")
+    lines += [f"  {usage:<32} {text}" for usage, text in TYPED_HELP]
+    lines.append("  WAY: low, mid, high, sum, or the design's name of a filter (topcut, woofer)")
     return "\n".join(lines)
 
 

@@ -215,7 +215,7 @@ class ListenSession:
     def _way_listing(self, index: int) -> str:
         c = self.candidates[index]
         return ", ".join(
-            w if n == w else f"{w} ({n})" for w, n in zip(c.ways, c.filter_names, strict=True)
+            w if n == w else f"{n} ({w})" for w, n in zip(c.ways, c.filter_names, strict=True)
         )
 
     def _resolve_way(self, word: str) -> str:
