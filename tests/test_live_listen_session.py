@@ -233,3 +233,28 @@ def test_a_single_filter_way_goes_by_the_designs_name():
     assert said[-1].startswith("now: A (candidate-butterworth), ways topcut")
     session.handle(cmd("solo", "high"), 2.0)
     assert "candidate A has no 'high' way; its ways are topcut (low)" in said[-1]
+
+
+def test_the_status_line_fits_the_terminal_and_warns_of_an_input_over_full_scale():
+    core, session, _, _ = setup(["bookshelf-2way"])
+    session.handle(cmd("part", "woofer", "2", "C1", "+1"), 0.5)
+    now = [10.0]
+    reader = StatusReader(session, clock=lambda: now[0])
+    t = np.arange(8 * BLOCK) / RATE_HZ
+    x = np.repeat(1.5 * np.sin(2 * np.pi * 440.0 * t)[:, None], 2, axis=1)  # +3.5 dBFS
+    play(core, x)
+    facts = reader.facts()
+    full = status_line(facts)
+    assert full.startswith("A bookshelf-2way (edited) | INPUT OVER 0 dBFS | all ways | ")
+    assert "woofer " in full and "tweeter " in full and "cb " in full
+    for width in (60, 80, 100, 120):
+        line = status_line(facts, width)
+        assert len(line) <= width - 1  # never wraps
+        assert line.startswith("A bookshelf-2way (edited) | INPUT OVER 0 dBFS")
+    assert "woofer " not in status_line(facts, 80)  # the meters go before the name
+    play(core, np.zeros((1400 * BLOCK, 2), np.float32))  # 7.5 s of silence
+    now[0] += 7.5
+    quiet = reader.facts()
+    assert not quiet.input_over
+    # after 7.5 s at 20 dB/s (our fall rate) the held peaks are below -120 dBFS: "-inf"
+    assert "woofer ........  -inf" in status_line(quiet) and "out  -inf dBFS" in status_line(quiet)

@@ -139,8 +139,10 @@ def _fields(facts: StatusFacts) -> list[tuple[int, str]]:
         meters = " ".join(f"{w} {meter_bar(p)} {dbfs(p)}" for w, p in facts.way_peaks)
         fields.append((4, meters or "-"))
         out = f"out {dbfs(facts.output_peak)} dBFS"
-        if facts.limiting or facts.limiter_db < -0.05:
+        if facts.limiter_db < -0.05:
             out += f" limit {facts.limiter_db:.1f} dB"
+        elif facts.limiting:
+            out += " limited"
         fields.append((1, out))
         fields.append((3, "clip " + (",".join(facts.clipping) if facts.clipping else "-")))
     xruns = f"xruns {facts.xruns}" + (
