@@ -31,10 +31,22 @@ def test_demo_runs_from_any_folder_and_exits_0(demo):
 def test_demo_prints_the_verdicts_with_their_figures(demo):
     out = demo[0].stdout
     assert "verdict: PASS (flat within 1 dB)" in out  # crossover sum, Linkwitz 1976
-    assert "verdict: FAIL, margin -" in out  # 6th order vs 98.09 dB of a 16-bit ADC
+    assert "verdict: FAIL; the stopband gives" in out  # 6th order vs 98.09 dB of a 16-bit ADC
+    assert ", margin -" in out
     assert "98.09 dB" in out  # 6.02 x 16 + 1.76 (Bennett 1948; Kester 2005)
     assert "yield (every filter inside its mask)" in out
     assert "open   filtertwin-demo/crossover/report.html" in out
+
+
+def test_demo_cautions_about_hearing_tweeters_and_mains_where_it_says_what_to_play(demo):
+    out = demo[0].stdout
+    tail = out[out.index("what to open and what to listen to") :]
+    listen = tail.index("listen ")
+    # common practice (REFERENCES.md, facts of the trade): loud playback harms hearing;
+    # full-range signal destroys tweeters; mains wiring follows local codes
+    for word in ("caution, hearing:", "caution, tweeters:", "caution, mains:"):
+        assert word in tail and tail.index(word) > listen, word
+    assert "never straight into a tweeter" in tail and "start playback quiet" in tail
 
 
 def test_demo_outputs_exist_and_parse(demo):

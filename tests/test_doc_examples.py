@@ -11,6 +11,9 @@ MODULES = [
     "filtertwin.units",
     "filtertwin.eseries",
     "filtertwin.noise",
+    "filtertwin.checks.alias",
+    "filtertwin.checks.foldpower",
+    "filtertwin.prototypes",
 ]
 
 

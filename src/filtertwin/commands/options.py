@@ -14,8 +14,6 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-from filtertwin.errors import UserInputError
-
 
 def frequency_hz(text: str) -> float:
     """A positive frequency or rate: "48000", "8k", "2.2 kHz"."""
@@ -68,6 +66,21 @@ def positive(kind: Callable[[str], Any], what: str) -> Callable[[str], Any]:
     return parse
 
 
+DEFAULT_MAX_JITTER_PCT = 1.0
+"""Largest deviation of a CSV time step from the typical one (same as
+``filtertwin.recordings.inspect``'s default 0.01)."""
+
+
+def add_max_jitter(parser: argparse.ArgumentParser) -> None:
+    """The ``--max-jitter PCT`` option of the commands that read CSV sensor tables."""
+    parser.add_argument(
+        "--max-jitter", type=positive(float, "--max-jitter"), metavar="PCT",
+        default=DEFAULT_MAX_JITTER_PCT,
+        help="largest deviation of a CSV time step from the typical one, in percent "
+        f"(default {DEFAULT_MAX_JITTER_PCT:g}); a logger with an uneven clock needs more",
+    )  # fmt: skip
+
+
 def column(text: str | None) -> str | int | None:
     """A CSV column or channel: a 0-based index or a name."""
     return int(text) if text is not None and text.isdigit() else text
@@ -81,11 +94,10 @@ def out_folder(text: str) -> Path:
     UserInputError
         ``text`` names a file.
     """
-    out = Path(text)
-    if out.exists() and not out.is_dir():
-        raise UserInputError(f"--out {text}: is a file, not a folder; give a folder name")
-    out.mkdir(parents=True, exist_ok=True)
-    return out
+    from filtertwin.outputs import prepare_folder
+
+    prepare_folder(text, "--out")
+    return Path(text)
 
 
 def hz(value_hz: float) -> str:

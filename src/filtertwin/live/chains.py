@@ -16,7 +16,7 @@ thread never calls the runner's ``process``; it either
 from __future__ import annotations
 
 import time
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any, Protocol
 
 import numba
@@ -52,11 +52,16 @@ class ChainSwapper:
     def __init__(self, host: ChainHost) -> None:
         self.host = host
         self.clip_base = np.zeros_like(host.runner.clip_counts)
+        self.slew_base = np.zeros_like(host.runner.slew_counts)
         self._last_swap_block: int | None = None
 
     def clip_counts(self) -> np.ndarray:
         """Clamped samples per chain and section since the start, over every runner used."""
         return self.clip_base + self.host.runner.clip_counts
+
+    def slew_counts(self) -> np.ndarray:
+        """Slew-limited samples per chain and section since the start, over every runner."""
+        return self.slew_base + self.host.runner.slew_counts
 
     def _settle(self) -> None:
         if self._last_swap_block is None:
@@ -70,33 +75,40 @@ class ChainSwapper:
 
     def swap(
         self,
-        changes: dict[int, tuple[np.ndarray, np.ndarray]],
+        changes: Mapping[int, tuple[np.ndarray, ...]],
         all_sos: Sequence[np.ndarray],
         all_levels: Sequence[np.ndarray],
+        all_steps: Sequence[np.ndarray] | None = None,
     ) -> None:
         """Put new chains in place.
 
         Parameters
         ----------
         changes : dict
-            Chain index -> (sos, clip levels) of the chains that changed.
-        all_sos, all_levels : sequence of numpy.ndarray
+            Chain index -> (sos, clip levels) or (sos, clip levels, slew steps) of the chains
+            that changed.
+        all_sos, all_levels, all_steps : sequence of numpy.ndarray
             Every chain after the change (used when a new runner is needed).
         """
         runner = self.host.runner
-        same_shape = all(runner.n_sections[i] == len(sos) for i, (sos, _) in changes.items())
+        same_shape = all(runner.n_sections[i] == len(c[0]) for i, c in changes.items())
         if same_shape:
-            for index, (sos, levels) in changes.items():
+            for index, (sos, levels, *steps) in changes.items():
                 self._settle()
-                runner.set_chain(index, sos, levels)
+                runner.set_chain(index, sos, levels, *steps)
                 self._last_swap_block = self.host.blocks_done()
             return
         new = CascadeRunner(
-            list(all_sos), runner.channels, runner.max_frames, list(all_levels), runner.dtype
+            list(all_sos),
+            runner.channels,
+            runner.max_frames,
+            list(all_levels),
+            runner.dtype,
+            None if all_steps is None else list(all_steps),
         )
         new.process(np.zeros((runner.max_frames, runner.channels), dtype=runner.dtype))
         new.reset()
-        counts = runner.clip_counts
+        counts, slews = runner.clip_counts, runner.slew_counts
         for chain in range(runner.n_chains):
             if chain not in changes:
                 n = runner.n_sections[chain]
@@ -106,6 +118,9 @@ class ChainSwapper:
         width = min(base.shape[1], counts.shape[1])
         base[:, :width] = self.clip_base[:, :width] + counts[:, :width]
         self.clip_base = base
+        slew_base = np.zeros_like(new.slew_counts)
+        slew_base[:, :width] = self.slew_base[:, :width] + slews[:, :width]
+        self.slew_base = slew_base
 
 
 # --- crossfaded edits ----------------------------------------------------------------------
@@ -161,8 +176,8 @@ class ChainBlend:
         The host's runner (channels, dtype, block size and the chain's present state).
     chain : int
         The chain to take over.
-    sos, levels : numpy.ndarray
-        The chain's new sections and clip levels.
+    sos, levels, steps : numpy.ndarray
+        The chain's new sections, clip levels and slew steps.
     fade_frames : int
         Length of the crossfade.
     """
@@ -173,13 +188,15 @@ class ChainBlend:
         chain: int,
         sos: np.ndarray,
         levels: np.ndarray,
+        steps: np.ndarray,
         fade_frames: int,
     ) -> None:
         self.chain = chain
         self.sos = sos
         self.levels = levels
+        self.steps = steps
         self.spare = CascadeRunner(
-            [sos], runner.channels, runner.max_frames, [levels], runner.dtype
+            [sos], runner.channels, runner.max_frames, [levels], runner.dtype, [steps]
         )
         self.spare.process(np.zeros((runner.max_frames, runner.channels), dtype=runner.dtype))
         n = min(len(sos), runner.n_sections[chain])
@@ -224,8 +241,8 @@ class BlendedSwap:
         Owner of the runner; it must have a ``blend`` attribute (None when idle).
     chain : int
         The chain to change.
-    sos, levels : numpy.ndarray
-        Its new sections and clip levels.
+    sos, levels, steps : numpy.ndarray
+        Its new sections, clip levels and slew steps.
     old_sos : numpy.ndarray
         Its present sections (their slowest pole sets the second warm-up too).
     rate_hz : float
@@ -240,12 +257,13 @@ class BlendedSwap:
         chain: int,
         sos: np.ndarray,
         levels: np.ndarray,
+        steps: np.ndarray,
         old_sos: np.ndarray,
         rate_hz: float,
         fade_frames: int,
     ) -> None:
         self.host = host
-        self.blend = ChainBlend(host.runner, chain, sos, levels, fade_frames)
+        self.blend = ChainBlend(host.runner, chain, sos, levels, steps, fade_frames)
         self.warm = max(warm_frames(sos, rate_hz), warm_frames(old_sos, rate_hz))
         self.step = 1
         self._mark = 0
@@ -263,7 +281,7 @@ class BlendedSwap:
             blend.fade_to(True)
             self.step = 2
         if self.step == 2 and blend.settled:
-            self.host.runner.set_chain(blend.chain, blend.sos, blend.levels)
+            self.host.runner.set_chain(blend.chain, blend.sos, blend.levels, blend.steps)
             self._mark = blend.frames_run
             self.step = 3
         if self.step == 3 and blend.frames_run >= self._mark + self.warm:

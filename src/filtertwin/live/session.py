@@ -109,7 +109,7 @@ class ListenSession:
         self.original_designs = [c.design for c in self.candidates]
         self.history: list[EditRecord] = []
         self.undone: list[EditRecord] = []
-        self.queued: deque[tuple[int, np.ndarray, np.ndarray, np.ndarray]] = deque()
+        self.queued: deque[tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = deque()
         self.swapping: BlendedSwap | None = None
         self.fade_frames = max(
             1, round(core.mixers[0].fade_frames / core.rate_hz * processing_rate_hz)
@@ -612,24 +612,29 @@ class ListenSession:
         twin = build_twin(design, self.processing_rate_hz)
         first = cands.chain_index(self.candidates, index, 0)
         old = self.twins[index]
+        steps = twin.slew_steps()
+        old_steps = old.slew_steps()
         changes = {
-            first + k: (f.sos, f.clip_fs)
+            first + k: (f.sos, f.clip_fs, steps[k])
             for k, (f, o) in enumerate(zip(twin.filters, old.filters, strict=True))
-            if not (np.array_equal(f.sos, o.sos) and np.array_equal(f.clip_fs, o.clip_fs))
+            if not (
+                np.array_equal(f.sos, o.sos)
+                and np.array_equal(f.clip_fs, o.clip_fs)
+                and np.array_equal(steps[k], old_steps[k])
+            )
         }
         runner = self.swapper.host.runner
-        if all(runner.n_sections[i] == len(sos) for i, (sos, _) in changes.items()):
-            for chain, (sos, levels) in changes.items():
+        if all(runner.n_sections[i] == len(c[0]) for i, c in changes.items()):
+            for chain, (sos, levels, chain_steps) in changes.items():
                 old_sos = old.filters[chain - first].sos
-                self.queued.append((chain, sos, levels, old_sos))
+                self.queued.append((chain, sos, levels, chain_steps, old_sos))
             self.poll()
             self._keep_polling()
         else:  # another section count: a new runner (taken up whole at the next block)
             self.finish_edits()
-            all_sos, all_levels = cands.chains(
-                [*self.twins[:index], twin, *self.twins[index + 1 :]]
-            )
-            self.swapper.swap(changes, all_sos, all_levels)
+            twins = [*self.twins[:index], twin, *self.twins[index + 1 :]]
+            all_sos, all_levels = cands.chains(twins)
+            self.swapper.swap(changes, all_sos, all_levels, cands.slew_steps(twins))
         self.twins[index] = twin
         self.candidates[index] = replace(self.candidates[index], design=design)  # same ways
         self.edits_made += 1
@@ -645,10 +650,10 @@ class ListenSession:
                     self.swapping = None
                 if not self.queued:
                     return
-                chain, sos, levels, old_sos = self.queued.popleft()
+                chain, sos, levels, steps, old_sos = self.queued.popleft()
                 self.swapping = BlendedSwap(
-                    self.swapper.host, chain, sos, levels, old_sos, self.processing_rate_hz,
-                    self.fade_frames,
+                    self.swapper.host, chain, sos, levels, steps, old_sos,
+                    self.processing_rate_hz, self.fade_frames,
                 )  # fmt: skip
 
     def _keep_polling(self) -> None:

@@ -57,6 +57,8 @@ class StatusFacts:
         The input went over full scale (a peak above 1.0) within the last second.
     clipping : tuple of str
         Stages that reached their amplifier's swing within the last second ("woofer s2").
+    slewing : tuple of str
+        Stages limited to their amplifier's slew rate within the last second.
     xruns, starved_frames : int
         Blocks with stream status flags; frames the read-ahead did not deliver in time.
     cpu_load : float or None
@@ -88,6 +90,7 @@ class StatusFacts:
     level_db: float
     ramp_gain: float
     elapsed_s: float
+    slewing: tuple[str, ...] = ()
     design: str = ""
     edited: bool = False
     ways: str = ""
@@ -144,7 +147,10 @@ def _fields(facts: StatusFacts) -> list[tuple[int, str]]:
         elif facts.limiting:
             out += " limited"
         fields.append((1, out))
-        fields.append((3, "clip " + (",".join(facts.clipping) if facts.clipping else "-")))
+        clip = "clip " + (",".join(facts.clipping) if facts.clipping else "-")
+        if facts.slewing:
+            clip += " slew " + ",".join(facts.slewing)
+        fields.append((3, clip))
     xruns = f"xruns {facts.xruns}" + (
         f" starved {facts.starved_frames}" if facts.starved_frames else ""
     )
@@ -199,8 +205,11 @@ class StatusReader:
         self.clock = clock
         self.started_s = clock()
         self._limited = 0
-        self._clip_counts = session.swapper.clip_counts().copy()
-        self._clip_seen_s: dict[tuple[int, int], float] = {}
+        self._counts = {
+            "clip": session.swapper.clip_counts().copy(),
+            "slew": session.swapper.slew_counts().copy(),
+        }
+        self._seen_s: dict[str, dict[tuple[int, int], float]] = {"clip": {}, "slew": {}}
         self._input_over_s = -math.inf
 
     def _recent_callback_s(self) -> tuple[float, float]:
@@ -212,14 +221,17 @@ class StatusReader:
         times = self.core.cpu_s[index]
         return float(np.median(times)), float(np.max(times))
 
-    def _clipping(self, now_s: float) -> tuple[str, ...]:
-        counts = self.session.swapper.clip_counts()
-        if counts.shape != self._clip_counts.shape:
-            self._clip_counts = np.zeros_like(counts)
-        grown = np.argwhere(counts > self._clip_counts)
-        self._clip_counts = counts.copy()
+    def _clipping(self, now_s: float, kind: str = "clip") -> tuple[str, ...]:
+        """Stages whose clip (or, with ``kind="slew"``, slew) count grew within a second."""
+        swapper = self.session.swapper
+        counts = swapper.clip_counts() if kind == "clip" else swapper.slew_counts()
+        if counts.shape != self._counts[kind].shape:
+            self._counts[kind] = np.zeros_like(counts)
+        grown = np.argwhere(counts > self._counts[kind])
+        self._counts[kind] = counts.copy()
+        seen_s = self._seen_s[kind]
         for chain, section in grown:
-            self._clip_seen_s[(int(chain), int(section))] = now_s
+            seen_s[(int(chain), int(section))] = now_s
         index = self.session.selection.candidate
         if index is None:
             return ()
@@ -229,7 +241,7 @@ class StatusReader:
         for k, way in enumerate(self.session.candidates[index].filter_names):
             stages = twin.filters[k].stage_of_section
             for section, stage in enumerate(stages):
-                seen = self._clip_seen_s.get((first + k, section))
+                seen = seen_s.get((first + k, section))
                 label = f"{way} s{stage}"
                 if seen is not None and now_s - seen <= CLIP_HOLD_S and label not in flags:
                     flags.append(label)
@@ -262,10 +274,11 @@ class StatusReader:
         if float(core.meters[core.dry_meter]) > 1.0:
             self._input_over_s = now_s
         clipping: tuple[str, ...] = ()
+        slewing: tuple[str, ...] = ()
         if blind:  # nothing that differs between the designs is even read
             peaks, limiting, limiter_db = [], False, 0.0
         else:
-            clipping = self._clipping(now_s)
+            clipping, slewing = self._clipping(now_s), self._clipping(now_s, "slew")
             limiter_db = 20 * math.log10(max(core.safety.limiter_gain, 1e-12))
         return StatusFacts(
             design="" if blind or index is None else session.candidates[index].name,
@@ -280,6 +293,7 @@ class StatusReader:
             output_peak=0.0 if blind else float(core.meters[core.dry_meter + 1]),
             limiting=limiting,
             clipping=clipping,
+            slewing=slewing,
             xruns=int(core.counters[XRUNS]),
             starved_frames=int(core.counters[STARVED_FRAMES]),
             cpu_load=self.cpu_load(),
@@ -316,14 +330,16 @@ def summary_lines(session: ListenSession, played_s: float) -> list[str]:
         f"{safety.nonfinite_samples} non-finite samples silenced"
     )
     lines.append("stage clipping at the amplifier swing: " + _clip_summary(session))
+    slews = _clip_summary(session, session.swapper.slew_counts())
+    lines.append("stage slewing at the amplifier slew rate: " + slews)
     if session.edits_made:
         lines.append(f"live edits: {session.edits_made} made, {len(session.history)} in force")
         lines += [f"  {line}" for line in session.edit_lines()]
     return lines
 
 
-def _clip_summary(session: ListenSession) -> str:
-    counts = session.swapper.clip_counts()
+def _clip_summary(session: ListenSession, counts: np.ndarray | None = None) -> str:
+    counts = session.swapper.clip_counts() if counts is None else counts
     found = []
     chain = 0
     for candidate, twin in zip(session.candidates, session.twins, strict=True):
