@@ -602,3 +602,23 @@ def test_slew_limited_process_allocates_nothing_after_the_first_call() -> None:
     # project rule: no buffer allocated on the real-time path (ARCHITECTURE.md, engine)
     assert peak_bytes_allocated(lambda: runner.process(x), 200) < x.nbytes
     assert runner.slew_counts.any()
+
+
+@pytest.mark.parametrize("frames", [300, 301], ids=["whole steps", "odd"])
+def test_a_new_runner_given_state_and_last_outputs_continues_a_slewing_stream_exactly(
+    frames: int,
+) -> None:
+    x = noise(frames + 400, channels=2, seed=39) * 3.0
+    steps = [np.full(3, 0.03)]
+    for first_steps in (steps, None):  # the first runner slewing, or not limited at all yet
+        old = CascadeRunner([SLEW_SOS], 2, 700, slew_steps=first_steps)
+        reference = CascadeRunner([SLEW_SOS], 2, 700, slew_steps=first_steps)
+        old.process(x[:frames])
+        reference.process(x[:frames])
+        reference.set_chain(0, SLEW_SOS, slew_steps=steps[0])
+        new = CascadeRunner([SLEW_SOS], 2, 700, slew_steps=steps)
+        new.state[...] = old.state
+        new.set_last_outputs(old.last_outputs)
+        # the same model from the same state and previous outputs: identical afterwards
+        np.testing.assert_array_equal(new.process(x[frames:]), reference.process(x[frames:]))
+        assert new.slew_counts.sum() > 0

@@ -1061,6 +1061,50 @@ class CascadeRunner:
         self._sec, self._spare = self._spare, self._sec
         self._sec4, self._spare4 = self._spare4, self._sec4
 
+    def _output_rows(self) -> tuple[np.ndarray, int]:
+        """The work rows as (groups, sections + 1, rows, lanes), and the row holding each
+        section's previous output (``_PREV``, or the next slot's input row the marker names;
+        -1: zero)."""
+        n_sec = max(self.n_sections)
+        _, start, _ = _memory_layout(self.n_chains, n_sec, self.channels)
+        n_groups = self._sec4.shape[0]
+        rows = self._mem[start : start + n_groups * (n_sec + 1) * _MEM_BLOCK]
+        marker = int(self._mem[self._recall])
+        row = (
+            _PREV // _WIDTH if marker == 0 else -1 if marker < 0 else _INPUT // _WIDTH + marker - 1
+        )
+        return rows.reshape(n_groups, n_sec + 1, _MEM_BLOCK // _WIDTH, _WIDTH), row
+
+    @property
+    def last_outputs(self) -> np.ndarray:
+        """float64 ``(n_chains, max_sections, channels)``: every section's last output, which
+        a slew limit moves from (a copy). With :attr:`state`, what a new runner needs to
+        continue a chain; write it with :meth:`set_last_outputs`."""
+        rows, row = self._output_rows()
+        n_sec = max(self.n_sections)
+        out = np.zeros((self.n_chains, n_sec, self.channels))
+        if row < 0:
+            return out
+        slot = 1 if row != _PREV // _WIDTH else 0  # outputs sit in the next slot's input rows
+        for chain in range(self.n_chains):
+            g, w = self._group[chain], self._lane[chain]
+            out[chain] = rows[g[None, :], np.arange(n_sec)[:, None] + slot, row, w[None, :]]
+        return out
+
+    def set_last_outputs(self, values: np.ndarray) -> None:
+        """Set every section's last output (as :attr:`last_outputs` gives it), before the
+        runner is in use by another thread."""
+        current = self.last_outputs
+        current[...] = values
+        rows, _ = self._output_rows()
+        n_sec = max(self.n_sections)
+        for chain in range(self.n_chains):
+            g, w = self._group[chain], self._lane[chain]
+            rows[g[None, :], np.arange(n_sec)[:, None], _PREV // _WIDTH, w[None, :]] = current[
+                chain
+            ]
+        self._mem[self._recall] = 0.0
+
     def reset(self) -> None:
         """Set every section's state and previous output to zero (the counts are kept)."""
         self._state[...] = 0.0

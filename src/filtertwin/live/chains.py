@@ -109,10 +109,13 @@ class ChainSwapper:
         new.process(np.zeros((runner.max_frames, runner.channels), dtype=runner.dtype))
         new.reset()
         counts, slews = runner.clip_counts, runner.slew_counts
+        last, new_last = runner.last_outputs, new.last_outputs
         for chain in range(runner.n_chains):
             if chain not in changes:
                 n = runner.n_sections[chain]
                 new.state[chain, :n] = runner.state[chain, :n]
+                new_last[chain, :n] = last[chain, :n]  # where a slew limit moves on from
+        new.set_last_outputs(new_last)
         self.host.runner = new  # one reference store: the next block uses the new runner
         base = np.zeros_like(new.clip_counts)
         width = min(base.shape[1], counts.shape[1])
