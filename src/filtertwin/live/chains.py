@@ -205,6 +205,10 @@ class ChainBlend:
         n = min(len(sos), runner.n_sections[chain])
         self.spare.state[0] = 0.0
         self.spare.state[0, :n] = runner.state[chain, :n]  # a start near the present state
+        last = self.spare.last_outputs
+        last[0] = 0.0
+        last[0, :n] = runner.last_outputs[chain, :n]  # where a slew limit moves on from
+        self.spare.set_last_outputs(last)
         self.control = np.array([0, 0, max(1, fade_frames), 0], dtype=np.int64)
 
     def process(self, block: np.ndarray, chains: np.ndarray) -> None:
