@@ -36,6 +36,7 @@ import numba
 import numpy as np
 
 from filtertwin.engine import CascadeRunner
+from filtertwin.live.chains import ChainBlend
 from filtertwin.live.looping import LoopReader
 from filtertwin.live.mixer import SelectionMixer
 from filtertwin.live.ring import BlockRing
@@ -140,10 +141,15 @@ class Oversampling:
         self._line = np.zeros((self.delay_frames, self.channels), dtype=self.dtype)
         self._position = 0
 
-    def process(self, runner: CascadeRunner, dry: np.ndarray) -> np.ndarray:
+    def process(self, runner: CascadeRunner, dry: np.ndarray, blend: Any = None) -> np.ndarray:
         """Every chain's output for ``dry`` ``(frames, channels)``, which is delayed in place
-        to line up with it; allocates nothing."""
-        chains = self.down.process(runner.process(self.up.process(dry)))
+        to line up with it; a part edit's :class:`~filtertwin.live.chains.ChainBlend` runs
+        at the runner's rate, between up and down. Allocates nothing."""
+        high_in = self.up.process(dry)
+        high = runner.process(high_in)
+        if blend is not None:
+            blend.process(high_in, high)
+        chains = self.down.process(high)
         self._position = _delay_kernel(dry, self._line, self._position)
         return chains
 
@@ -223,6 +229,8 @@ class StreamCore:
         self._fall = 10.0 ** (-METER_FALL_DB_PER_S * block_frames / rate_hz / 20.0)
         self.counters = np.zeros(4, dtype=np.int64)
         self.cpu_s = np.zeros(CPU_HISTORY)
+        self.blend: ChainBlend | None = None
+        """A chain being crossfaded to new sections (see ``chains.BlendedSwap``)."""
         self._clock = time.perf_counter
         self.tap: SignalTap | None = None
         """Where the preview window's spectrum copies from (set before the stream starts)."""
@@ -283,8 +291,10 @@ class StreamCore:
             chains = self._ring_chains
         elif self.oversampling is None:
             chains = runner.process(self.dry)
+            if self.blend is not None:
+                self.blend.process(self.dry, chains)
         else:
-            chains = self.oversampling.process(runner, self.dry)
+            chains = self.oversampling.process(runner, self.dry, self.blend)
         for mixer, column in self._mixer_columns:
             mixer.process(chains, self.dry, outdata, column, 2)
         self.safety.process(outdata)
@@ -346,6 +356,7 @@ class PreFilter:
         self.capture = capture
         self.oversampling = oversampling
         self.blocks = 0
+        self.blend: ChainBlend | None = None
 
     def blocks_done(self) -> int:
         """Blocks filtered so far."""
@@ -358,9 +369,11 @@ class PreFilter:
         frames, channels = block.shape
         if self.oversampling is None:
             chains = self.runner.process(block)
+            if self.blend is not None:
+                self.blend.process(block, chains)
         else:
             block = block.copy()  # delayed in place to line up with the chains
-            chains = self.oversampling.process(self.runner, block)
+            chains = self.oversampling.process(self.runner, block, self.blend)
         joined = np.concatenate([chains, block[np.newaxis]])
         flat = joined.transpose(1, 0, 2).reshape(frames, -1)
         out = flat if self.resampler is None else self.resampler.process(flat)
