@@ -66,7 +66,8 @@ def test_a_part_edit_on_the_stream_is_click_free_and_causes_no_xrun(tmp_path, ja
         new = player.session.twins[0].filters[0].sos
         y = captured[signal_start(captured) :, 0].astype(np.float64)
         y = y[int(0.3 * RATE_HZ) : int(2.0 * RATE_HZ)]  # after the ramp; the edit inside
-        amps = [amplitude * abs(signal.sosfreqz(s, [f_hz], fs=RATE_HZ)[1][0]) for s in (old, new)]
+        twin_hz = player.session.twins[0].rate_hz  # the rate the (oversampled) twin runs at
+        amps = [amplitude * abs(signal.sosfreqz(s, [f_hz], fs=twin_hz)[1][0]) for s in (old, new)]
         fade = round(0.030 * RATE_HZ)  # the default crossfade, 30 ms
         # the bound of the candidate-switching test (test_live_listen_stream): hand
         # derivation |y[n+1]-y[n]| <= 2 pi f/fs max(A) + (A_old + A_new)/N, 1 % margin
