@@ -211,7 +211,7 @@ BAD_INPUTS = [
     (("mono", "--adc-rate", "fast"), r"argument --adc-rate: cannot read 'fast'"),
     (("mono", "--adc-rate", "8k", "--bits", "40"), r"outside 1\.\.32"),
     (("mono", "--adc-rate", "8k", "--out", "aa.toml"), r"--out aa.toml: is a file"),
-    (("stereo", "--adc-rate", "8k"), r"has 2 channels .* choose one with --column"),
+    (("stereo", "--adc-rate", "8k", "--segment", "5:2"), r"--segment: must be START:END"),
 ]
 
 

@@ -10,6 +10,7 @@ import json
 from pathlib import Path
 from typing import Any
 
+from filtertwin.commands import alias_archive
 from filtertwin.commands.options import column, frequency_hz, hz, out_folder
 from filtertwin.errors import UserInputError
 
@@ -31,7 +32,11 @@ def register(subparsers: Any) -> None:
         ),
     )
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
-    p.add_argument("recording", help="WAV/FLAC, CSV (time column or --rate) or NPY (--rate)")
+    p.add_argument(
+        "recording", nargs="+",
+        help="WAV/FLAC, CSV (time column or --rate) or NPY (--rate); several files, folders or "
+        "patterns check a whole archive",
+    )  # fmt: skip
     p.add_argument(
         "--adc-rate", required=True, type=frequency_hz, metavar="HZ", help="the ADC's sample rate"
     )
@@ -56,6 +61,7 @@ def register(subparsers: Any) -> None:
         help="sample rate of a CSV without time column or NPY",
     )  # fmt: skip
     p.add_argument("--column", metavar="NAME", help="CSV column or audio/NPY channel to read")
+    alias_archive.add_options(p)
     p.set_defaults(func=run)
 
 
@@ -65,9 +71,11 @@ def run(args: argparse.Namespace) -> int:
     from filtertwin.design import load
     from filtertwin.report.check_figures import alias_figure
 
+    if alias_archive.wants_archive(args):
+        return alias_archive.run(args)
     design = load(args.design)
     adc_rate, band = args.adc_rate, args.band
-    info = recordings.inspect(args.recording, rate_hz=args.rate, column=column(args.column))
+    info = recordings.inspect(args.recording[0], rate_hz=args.rate, column=column(args.column))
     if info.channels != 1:
         names = ", ".join(info.channel_names)
         raise UserInputError(
