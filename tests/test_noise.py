@@ -202,3 +202,34 @@ def test_temperature_comes_from_the_design_file():
     cold = design_noise(build_design(parse_design({**spec, "parts": {}}, "<t>"))).filters[0].rms_v
     # 4kTR: noise power proportional to absolute temperature (Johnson 1928)
     assert (hot / cold) ** 2 == pytest.approx(358.15 / 298.15, rel=1e-9)
+
+
+def test_rendered_circuit_noise_has_the_computed_density(tmp_path):
+    import subprocess
+    import sys
+
+    import soundfile as sf
+    from scipy import signal
+
+    from filtertwin.design import load
+
+    rate = 48000
+    source = tmp_path / "silence.wav"
+    sf.write(source, np.zeros((60 * rate, 1)), rate, "FLOAT")
+    out = tmp_path / "out"
+    r = subprocess.run(
+        [sys.executable, "-m", "filtertwin", "render", "bookshelf-2way", str(source),
+         "--out", str(out), "--circuit-noise", "--oversample", "1", "--no-report"],
+        capture_output=True, text=True,
+    )  # fmt: skip
+    assert "circuit noise: added" in r.stdout, r.stderr
+    d = load("bookshelf-2way")
+    for name in ("woofer", "tweeter", "sum"):
+        x, _ = sf.read(out / f"{name}.wav")
+        f, psd = signal.welch(x, rate, nperseg=4096)  # Welch 1967, via scipy.signal
+        band = (f >= 20) & (f <= 20000)
+        ways = ("woofer", "tweeter") if name == "sum" else (name,)
+        expect = sum(filter_noise(d.filter(w), d.amplifier, f[band], T_K).psd_v2_per_hz
+                     for w in ways)  # fmt: skip
+        expect /= d.spec.full_scale_v**2  # the twin's units: 1.0 = full scale
+        assert np.max(np.abs(10 * np.log10(psd[band] / expect))) < 1.0, name

@@ -477,3 +477,91 @@ def design_noise(
             max_output_peak_v=None if None in peaks else min(p for p in peaks if p is not None),
         )  # fmt: skip
     return DesignNoise(temperature, band, weighted, tuple(figs), total, spectra)
+
+
+# --- the noise as a signal -------------------------------------------------------------------
+
+
+def shaping_fir(psd_fs2_per_hz: np.ndarray, rate_hz: float) -> np.ndarray:
+    """A linear-phase FIR that turns unit-variance white noise into noise of the given
+    one-sided density (full-scale units squared per Hz) at ``rate_hz``.
+
+    ``psd_fs2_per_hz`` holds the density at k rate / taps, k = 0 .. taps / 2. White noise of
+    variance 1 has the one-sided density 2 / rate, so the FIR's magnitude is
+    sqrt(density rate / 2). Designed by frequency sampling and a 4-term Blackman-Harris
+    window (sidelobes near -92 dB).
+    """
+    taps = 2 * (len(psd_fs2_per_hz) - 1)
+    magnitude = np.sqrt(np.asarray(psd_fs2_per_hz, float) * rate_hz / 2)
+    h = np.roll(np.fft.irfft(magnitude, taps), taps // 2)
+    n = np.arange(taps)
+    w = 2 * np.pi * n / taps
+    window = 0.35875 - 0.48829 * np.cos(w) + 0.14128 * np.cos(2 * w) - 0.01168 * np.cos(3 * w)
+    return h * window
+
+
+class CircuitNoiseSource:
+    """Each filter's computed output noise as a signal, block by block, in full-scale units.
+
+    Gaussian white noise (seeded) through a shaping FIR per filter (:func:`shaping_fir`) whose
+    density is :func:`filter_noise` divided by the full-scale voltage squared: the noise a
+    board adds, at its true level against full scale (1.0 = ``full_scale_v``). The filters'
+    noises are independent (separate amplifiers). The FIR runs by FFT convolution with its
+    tail carried between blocks, and is run in for one FIR length before the first block, so
+    the noise is stationary from the first sample.
+
+    Parameters
+    ----------
+    design : Design
+    names : sequence of str
+        The filters, in the order of the twin's outputs.
+    rate_hz : float
+        Output sample rate.
+    channels : int
+    seed : int
+    resolution_hz : float
+        Frequency spacing of the FIR design (the FIR is about rate / resolution long).
+    """
+
+    def __init__(
+        self,
+        design: Design,
+        names: list[str],
+        rate_hz: float,
+        channels: int,
+        *,
+        seed: int = 0,
+        resolution_hz: float = 2.0,
+    ) -> None:
+        from scipy import signal
+
+        self._convolve = signal.oaconvolve
+        taps = int(2 ** math.ceil(math.log2(max(rate_hz / resolution_hz, 64))))
+        f = np.arange(taps // 2 + 1) * rate_hz / taps
+        f_eval = f.copy()
+        f_eval[0] = f[1] / 4  # the density just above DC stands for DC
+        scale = design.spec.full_scale_v**2
+        self.firs = np.array([
+            shaping_fir(
+                filter_noise(
+                    design.filter(n), design.amplifier, f_eval, design.spec.parts.temperature_k
+                ).psd_v2_per_hz / scale,
+                rate_hz,
+            )
+            for n in names
+        ])  # fmt: skip
+        self.channels = channels
+        self.rng = np.random.default_rng(seed)
+        self.tail = np.zeros((len(names), taps - 1, channels))
+        self.next(taps)  # run in
+
+    def next(self, frames: int) -> np.ndarray:
+        """The next ``frames`` samples, ``(filters, frames, channels)``."""
+        n, taps = self.firs.shape
+        if frames == 0:
+            return np.zeros((n, 0, self.channels))
+        x = self.rng.standard_normal((n, frames, self.channels))
+        y = self._convolve(x, self.firs[:, :, None], mode="full", axes=1)
+        y[:, : taps - 1] += self.tail
+        self.tail = y[:, frames:].copy()
+        return y[:, :frames]

@@ -26,6 +26,7 @@ import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import soundfile
@@ -38,6 +39,9 @@ from filtertwin.resample import Downsampler, Upsampler
 from filtertwin.resample import delay_frames as resample_delay_frames
 from filtertwin.spectra import Spectrum, WelchAccumulator, segment_frames
 from filtertwin.twin import Twin
+
+if TYPE_CHECKING:
+    from filtertwin.noise import CircuitNoiseSource
 
 __all__ = [
     "PlannedOutput",
@@ -457,6 +461,7 @@ def render(
     subtype: str | None,
     settings: RenderSettings = RenderSettings(),  # noqa: B008 (frozen)
     progress: Progress | None = None,
+    noise: CircuitNoiseSource | None = None,
 ) -> RenderResult:
     """Stream a recording through the twin and write every planned output.
 
@@ -474,6 +479,8 @@ def render(
         Block size, amplifier swing model, spectra.
     progress : callable, optional
         Called as ``progress(frames_done, frames_total)`` after every block.
+    noise : CircuitNoiseSource, optional
+        The circuit's own noise, added to every filter output (and so to the sum).
 
     Returns
     -------
@@ -494,7 +501,7 @@ def render(
         for planned in plan:
             outputs.append(_Output(planned, info, subtype))
         spectra = _accumulators(plan, info, settings.spectra)
-        _stream(stream, info, outputs, spectra, settings.block_frames, progress)
+        _stream(stream, info, outputs, spectra, settings.block_frames, progress, noise)
         for out in outputs:
             out.finish()
         for out in outputs:
@@ -530,6 +537,7 @@ def _stream(
     spectra: list[WelchAccumulator],
     block_frames: int,
     progress: Progress | None,
+    noise: CircuitNoiseSource | None = None,
 ) -> None:
     n = len(stream.twin.filters)
 
@@ -539,6 +547,8 @@ def _stream(
             spectra[index].update(block)
 
     def emit_filtered(filtered: np.ndarray) -> None:
+        if noise is not None:
+            filtered = filtered + noise.next(filtered.shape[1])
         for i in range(n):
             emit(1 + i, filtered[i])
         if n > 1:

@@ -65,7 +65,7 @@ def register(subparsers: Any) -> None:
     )  # fmt: skip
     p.add_argument(
         "--seed", type=_seed, default=1, metavar="S",
-        help="random seed of the tolerance builds (default 1)",
+        help="random seed of the tolerance builds and of --circuit-noise (default 1)",
     )  # fmt: skip
     p.add_argument(
         "--rate", type=frequency_hz, metavar="HZ",
@@ -74,6 +74,11 @@ def register(subparsers: Any) -> None:
     p.add_argument(
         "--column", metavar="NAME|INDEX",
         help="the one channel or CSV column to render (default all)",
+    )  # fmt: skip
+    p.add_argument(
+        "--circuit-noise", action="store_true",
+        help="add the circuit's own noise (resistors and amplifier) to every filter output, "
+        "shaped to its computed density at its true level against full scale",
     )  # fmt: skip
     p.add_argument(
         "--no-report", action="store_true",
@@ -180,14 +185,23 @@ def cmd_render(args: argparse.Namespace) -> int:
     extra: list[Path] = []  # figures of the checks, drawn here
     try:
         bar = _ProgressBar(sys.stderr, info.rate_hz)
+        noise = None
+        if args.circuit_noise:
+            from filtertwin.noise import CircuitNoiseSource
+
+            names = [f.name for f in twin.filters]
+            noise = CircuitNoiseSource(design, names, info.rate_hz, info.channels, seed=args.seed)
         try:
-            result = render.render(twin, info, plan, subtype, settings, progress=bar)
+            result = render.render(
+                twin, info, plan, subtype, settings, progress=bar, noise=noise
+            )  # fmt: skip
         finally:
             bar.close()
         audio = [f.path for f in result.files]
-        sections, extra_summary = [], {}
+        sections: list[Any] = []
+        extra_summary: dict[str, Any] = {"circuit_noise_added": noise is not None}
         if tolerance is not None:
-            extra_summary = {"tolerance": tolerance.to_dict()}
+            extra_summary["tolerance"] = tolerance.to_dict()
             if not args.no_report:
                 sections.append(_tolerance_section(tolerance, figure_dir, info.path, extra))
         crossover = _crossover(design)
@@ -203,6 +217,11 @@ def cmd_render(args: argparse.Namespace) -> int:
         _remove(audio + extra, made)
         raise
     _print_summary(result, twin, design, folder, extra + written)
+    if noise is not None:
+        print(
+            "circuit noise: added to every filter output at its computed level (see the "
+            "report's 'Circuit noise' table)"
+        )
     return 0 if _print_fidelity(twin) else 1
 
 
