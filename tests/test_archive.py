@@ -207,3 +207,47 @@ def test_raw_counts_are_recognised_and_the_user_told_how_to_calibrate(tmp_path, 
     worst = result.channels[0].events[UNFILTERED][0]
     # 40 counts of 32768: 20 log10(40 / 32768) dBFS
     assert worst.dbfs == pytest.approx(20 * math.log10(40 / 32768), abs=0.3)
+
+
+def test_progress_bar_counts_files_and_bytes(tmp_path):
+    import io
+
+    from filtertwin.archive.scan import FileResult
+    from filtertwin.commands.alias_archive import _Progress
+
+    class Terminal(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    paths = []
+    for i, size in enumerate((1000, 3000)):
+        paths.append(tmp_path / f"f{i}.wav")
+        paths[-1].write_bytes(b"x" * size)
+    screen = Terminal()
+    bar = _Progress(screen, paths)
+    bar.update(FileResult(str(paths[1]), 3000))
+    assert "1/2 files, 0.0 MB of 0.0 MB" in screen.getvalue()
+    assert "[######################........]" in screen.getvalue()  # 3000 of 4000 bytes: 22/30
+    bar.update(FileResult(str(paths[0]), 1000, error="broken"))
+    bar.close()
+    assert "2/2 files" in screen.getvalue() and "1 unreadable" in screen.getvalue()
+
+
+def test_render_of_several_files_writes_each_into_its_own_folder(archive, tmp_path, capsys):
+    from filtertwin import cli
+
+    broken = tmp_path / "broken.wav"
+    broken.write_text("not audio")
+    design = tmp_path / "gentle.toml"
+    design.write_text('[[filter]]\nname = "aa"\nresponse = "lowpass"\nalignment = '
+                      '"butterworth"\norder = 2\ncorner = "3 kHz"\n')  # fmt: skip
+    out = tmp_path / "out"
+    status = cli.main(["render", str(design), str(archive / "*.wav"), str(broken), "--out",
+                       str(out), "--no-report", "--oversample", "1"])  # fmt: skip
+    err = capsys.readouterr().err
+    assert status == 1 and "1 of 3 files could not be rendered" in err
+    for name in ("a", "b"):
+        before, _ = sf.read(out / name / "before.wav")
+        # the input as heard is the recording itself (soundfile reads both)
+        np.testing.assert_allclose(before, sf.read(archive / f"{name}.wav")[0], atol=1e-7)
+        assert (out / name / "aa.wav").is_file()

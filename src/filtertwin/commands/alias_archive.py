@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import sys
 import time
 from pathlib import Path
@@ -21,7 +20,7 @@ from typing import Any, TextIO
 from filtertwin.commands.options import hz, positive
 from filtertwin.errors import UserInputError
 
-__all__ = ["add_options", "wants_archive", "run"]
+__all__ = ["add_options", "render_each", "run", "wants_archive"]
 
 
 def add_options(p: Any) -> None:
@@ -210,7 +209,7 @@ class _Progress:
         self.files = len(paths)
         self.bytes = sum(p.stat().st_size for p in paths)
         self.done_files = self.done_bytes = self.unreadable = 0
-        self.active = stream.isatty() or os.environ.get("FILTERTWIN_PROGRESS") == "1"
+        self.active = stream.isatty()
         self.started = time.monotonic()
         self.shown = False
 
@@ -277,3 +276,36 @@ def _text(results: Any, summary: Any, spec: Any, written: dict[str, Path]) -> st
     lines.append("")
     lines += [f"wrote {p}" for p in written.values()]
     return "\n".join(lines)
+
+
+def render_each(args: argparse.Namespace, render_one: Any) -> int:
+    """``render`` of several files, folders or patterns: each file into ``--out/STEM/``.
+
+    A file that fails is reported in one line and the others go on. Returns the worst exit
+    status of the renders, or 1 when a file failed (the count is printed).
+    """
+    import copy
+
+    from filtertwin.archive.discover import find_recordings
+
+    paths = find_recordings(args.input)
+    stems: set[str] = set()
+    status, failed = 0, 0
+    for path in paths:
+        stem = path.stem
+        while stem in stems:
+            stem += "_"
+        stems.add(stem)
+        one = copy.copy(args)
+        one.input, one.out = str(path), str(Path(args.out) / stem)
+        print(f"== {path} -> {one.out}")
+        try:
+            status = max(status, render_one(one))
+        except UserInputError as exc:
+            print(f"error: {exc}", file=sys.stderr)
+            failed += 1
+    if failed:
+        print(f"{failed} of {len(paths)} files could not be rendered (see above)",
+              file=sys.stderr)  # fmt: skip
+        return max(status, 1)
+    return status
