@@ -228,7 +228,7 @@ def _check_steps(
         fail(
             f"{path} line {lines[at]}: sample interval {steps[at]:.6g} s is {off[at]:.1%} off"
             f" the typical {typical:.6g} s (limit {limit:.1%}); resample the capture evenly"
-            " or raise the jitter limit"
+            " or raise the limit (--max-jitter PCT of alias and render)"
         )
     return typical
 
@@ -369,8 +369,8 @@ def _split(line: str, delimiter: str | None) -> list[str]:
     return [field.strip().strip('"').strip() for field in line.split(delimiter)]
 
 
-_DECIMAL_COMMA = re.compile(r"^[-+]?\d+,\d+(?:[eE][-+]?\d+)?$")
-"""A number written with a decimal comma: ``0,25``, ``-1,5e-3``."""
+_DECIMAL_COMMA = re.compile(r"^[-+]?\d*,\d+(?:[eE][-+]?\d+)?$")
+"""A number written with a decimal comma: ``0,25``, ``,5``, ``-1,5e-3``."""
 
 
 def _is_number(text: str, decimal_comma: bool = False) -> bool:

@@ -87,6 +87,8 @@ class ScanSpec:
         What the numbers are (None: recognise raw counts, else fractions of full scale).
     full_scale_v : float or None
     sensitivity : Sensitivity or None
+    jitter_limit : float
+        Largest deviation of a CSV time step from the typical one, as a fraction.
     events : int
         Worst events kept per channel and stream.
     block_frames : int
@@ -106,6 +108,7 @@ class ScanSpec:
     recorded_as: str | None = None
     full_scale_v: float | None = None
     sensitivity: Sensitivity | None = None
+    jitter_limit: float = 0.01
     events: int = 5
     block_frames: int = 65536
     check_frames: int = CHECK_FRAMES
@@ -277,7 +280,9 @@ def _segment(info: RecordingInfo, spec: ScanSpec) -> tuple[int, int]:
 
 
 def _scan(path: Path, size: int, spec: ScanSpec) -> FileResult:
-    info = recordings.inspect(path, rate_hz=spec.rate_hz, column=spec.column)
+    info = recordings.inspect(
+        path, rate_hz=spec.rate_hz, column=spec.column, jitter_limit=spec.jitter_limit
+    )
     if spec.adc_rate_hz > info.rate_hz * (1 + 1e-9):
         raise UserInputError(
             f"{path} is sampled at {info.rate_hz:g} Hz, below the ADC rate "

@@ -103,7 +103,9 @@ def wants_archive(args: argparse.Namespace) -> bool:
     path = args.recording[0]
     if Path(path).is_dir() or (is_pattern(path) and not Path(path).exists()):
         return True
-    info = recordings.inspect(path, rate_hz=args.rate, column=column(args.column))
+    info = recordings.inspect(
+        path, rate_hz=args.rate, column=column(args.column), jitter_limit=args.max_jitter / 100
+    )
     return info.channels != 1 or info.frames > MAX_FRAMES
 
 
@@ -119,6 +121,10 @@ def run(args: argparse.Namespace) -> int:
     from filtertwin.commands.options import out_folder
     from filtertwin.report.archive import write_archive_report
 
+    if getattr(args, "suggest", False) or getattr(args, "save_suggestion", None):
+        raise UserInputError(
+            "--suggest searches designs for one recording; run it on one file and one channel"
+        )
     spec = _spec(args)
     paths = find_recordings(args.recording)
     out = out_folder(args.out)
@@ -175,7 +181,8 @@ def _spec(args: argparse.Namespace) -> Any:
     return ScanSpec(
         tuple(candidates), adc, float(band), bits, args.reject_db, options, args.rate,
         column(args.column), start, end, args.recorded_as, full_scale,
-        parse_sensitivity(args.sensitivity) if args.sensitivity else None, args.events,
+        parse_sensitivity(args.sensitivity) if args.sensitivity else None,
+        args.max_jitter / 100, args.events,
     )  # fmt: skip
 
 
