@@ -13,6 +13,9 @@ MODULES = [
     "filtertwin.noise",
     "filtertwin.checks.alias",
     "filtertwin.checks.foldpower",
+    "filtertwin.archive.calibration",
+    "filtertwin.archive.windows",
+    "filtertwin.timestamps",
 ]
 
 
