@@ -134,7 +134,9 @@ def test_requirement_is_attenuation_at_adc_rate_minus_band():
     design = lowpass()
     x = tones(48000.0, 0.5, [(500.0, 0.5), (9000.0, 0.1)])
     check, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=3500.0, bits=8)
-    assert check.attenuation_at_hz == 4500.0
+    # Oppenheim & Schafer 3rd ed. 4.2: a tone at f aliases to fs - f, so the first one to
+    # fold into the band [0, 3500] comes from 8000 - 3500 = 4500 Hz (ADC rate minus band)
+    assert check.attenuation_at_hz == 4500.0  # Oppenheim & Schafer 4.2
     # scipy.signal.butter analog prototype; the as-built E96/E12 parts are within 0.5 dB
     b, a = scipy.signal.butter(4, 2 * np.pi * 2000.0, analog=True)
     _, h = scipy.signal.freqs(b, a, worN=[2 * np.pi * 4500.0])
@@ -289,10 +291,14 @@ def test_csv_input_gives_csv_captures_at_the_adc_rate(tmp_path, capsys, monkeypa
 def test_command_defaults_agree_with_the_check():
     import inspect
 
+    from filtertwin.checks import suggest
     from filtertwin.commands import alias as command
 
     defaults = inspect.signature(check_alias).parameters
     assert command.DEFAULT_BITS == defaults["bits"].default
+    assert command.DEFAULT_MAX_DROOP_DB == defaults["max_droop_db"].default
+    assert command.DEFAULT_BUILDS == suggest.DEFAULT_BUILDS
+    assert command.DEFAULT_MIN_YIELD_PCT == 100 * suggest.DEFAULT_MIN_YIELD
 
 
 def test_command_suggests_designs_writes_the_first_and_records_the_column(

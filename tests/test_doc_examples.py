@@ -13,6 +13,7 @@ MODULES = [
     "filtertwin.noise",
     "filtertwin.checks.alias",
     "filtertwin.checks.foldpower",
+    "filtertwin.prototypes",
     "filtertwin.archive.calibration",
     "filtertwin.archive.windows",
     "filtertwin.timestamps",

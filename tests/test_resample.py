@@ -159,7 +159,9 @@ def test_a_twin_outside_its_tolerance_is_printed_and_render_exits_1(tmp_path, ca
     printed = capsys.readouterr().out
     # README's exit-status table: "1 a check failed"
     assert status == 1
-    assert "fidelity: filter 'woofer' FAIL (tolerance 0.1 dB, 1 deg)" in printed
+    (line,) = [s for s in printed.splitlines() if s.startswith("twin fidelity: filter 'woofer'")]
+    assert " FAIL (" in line and line.endswith("; tolerance 0.1 dB, 1 deg)")
+    assert printed.splitlines()[-1].startswith("verdict: FAIL")
 
 
 def test_auto_runs_a_corner_above_the_recordings_nyquist_frequency():

@@ -51,15 +51,7 @@ SWITCH_EVERY = 16  # blocks; the 30 ms crossfade is longer, so a fade is always 
 
 
 def machine() -> str:
-    model = platform.processor() or "unknown CPU"
-    try:
-        with open("/proc/cpuinfo", encoding="utf-8") as f:
-            for line in f:
-                if line.startswith("model name"):
-                    model = line.split(":", 1)[1].strip()
-                    break
-    except OSError:
-        pass
+    model = f"{platform.machine()} machine"  # generic: no processor maker or model
     return (
         f"{model}, {os.cpu_count()} logical cores; Python {platform.python_version()}, "
         f"numpy {np.__version__}, numba {numba.__version__}, scipy {scipy.__version__}"

@@ -146,7 +146,7 @@ def main() -> int:
     import numba
 
     print(f"date: {datetime.datetime.now().isoformat(timespec='seconds')}")
-    print(f"machine: {platform.node()} {platform.machine()}, {os.cpu_count()} CPUs, "
+    print(f"machine: {platform.machine()}, {os.cpu_count()} CPUs, "
           f"{platform.platform()}")  # fmt: skip
     versions = (
         f"python {platform.python_version()}, numpy {np.__version__}, scipy {scipy.__version__}"

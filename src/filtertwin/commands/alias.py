@@ -16,7 +16,6 @@ from filtertwin.commands.options import (
     column,
     frequency_hz,
     hz,
-    out_folder,
     positive,
 )
 from filtertwin.errors import UserInputError
@@ -134,23 +133,26 @@ def run(args: argparse.Namespace) -> int:
         max_droop_db=args.max_droop,
     )  # fmt: skip
 
-    out = out_folder(args.out)
     protect = [info.path, Path(design.spec.source)]
     stem = info.path.stem
     files = {}
-    for label, data in (("without_filter", captures.without_filter),
-                        ("with_filter", captures.with_filter)):  # fmt: skip
-        name = f"{stem}-adc-{label.replace('_', '-')}"
-        if info.kind == "csv":
-            path = out / f"{name}.csv"
-            outputs.write_csv(path, data, captures.rate_hz, info.channel_names, protect=protect)
-        else:
-            path = out / f"{name}.wav"
-            with outputs.SafeWriter(path, captures.rate_hz, 1, subtype="FLOAT",
-                                    protect=protect) as writer:  # fmt: skip
-                writer.write(data)
-        files[label] = str(path)
-    files["figure"] = str(alias_figure(check, out / f"{stem}-alias.png", protect=protect))
+    with outputs.OutputRun(args.out) as written:  # a failure or Ctrl-C leaves nothing behind
+        out = written.folder
+        for label, data in (("without_filter", captures.without_filter),
+                            ("with_filter", captures.with_filter)):  # fmt: skip
+            name = f"{stem}-adc-{label.replace('_', '-')}"
+            if info.kind == "csv":
+                path = out / f"{name}.csv"
+                outputs.write_csv(path, data, captures.rate_hz, info.channel_names,
+                                  protect=protect)  # fmt: skip
+            else:
+                path = out / f"{name}.wav"
+                with outputs.SafeWriter(path, captures.rate_hz, 1, subtype="FLOAT",
+                                        protect=protect) as writer:  # fmt: skip
+                    writer.write(data)
+            files[label] = str(written.add(path))  # noted once written: never an input
+        figure = alias_figure(check, out / f"{stem}-alias.png", protect=protect)
+        files["figure"] = str(written.add(figure))
 
     suggestions = _suggest(args, design, check, protect) if args.suggest else None
     if args.json:

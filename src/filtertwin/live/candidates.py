@@ -128,6 +128,11 @@ def chains(twins: Sequence[Twin]) -> tuple[list[np.ndarray], list[np.ndarray]]:
     return sos, levels
 
 
+def slew_steps(twins: Sequence[Twin]) -> list[np.ndarray]:
+    """Slew steps of every chain, in the order of :func:`chains`."""
+    return [step for twin in twins for step in twin.slew_steps()]
+
+
 def chain_index(candidates: Sequence[ListenCandidate], candidate: int, way: int) -> int:
     """Runner chain number of way number ``way`` of candidate number ``candidate``."""
     return sum(len(c.ways) for c in candidates[:candidate]) + way

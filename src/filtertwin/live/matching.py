@@ -89,7 +89,7 @@ def match_by_gain(designs: Sequence[Design]) -> LevelMatch:
 
 
 def twin_output(program: np.ndarray, twin: Twin) -> np.ndarray:
-    """The program through a twin, its ways summed, clipping at the amplifier swing included.
+    """The program through a twin, its ways summed, the amplifier swing and slew included.
 
     Parameters
     ----------
@@ -105,7 +105,11 @@ def twin_output(program: np.ndarray, twin: Twin) -> np.ndarray:
     """
     frames, channels = program.shape
     runner = CascadeRunner(
-        twin.chains(), channels, min(BLOCK_FRAMES, max(frames, 1)), twin.clip_levels()
+        twin.chains(),
+        channels,
+        min(BLOCK_FRAMES, max(frames, 1)),
+        twin.clip_levels(),
+        slew_steps=twin.slew_steps(),
     )
     out = np.zeros_like(program)
     for start in range(0, frames, BLOCK_FRAMES):

@@ -350,6 +350,7 @@ def _prefilter(
     rate_hz: float,
     chains: tuple[list[np.ndarray], list[np.ndarray]],
     say: Callable[[str], None],
+    steps: list[np.ndarray] | None = None,
 ) -> tuple[stream.PreFilter, capture_mod.CapturePlan | None]:
     """The twins (and the ADC capture) at the recording's rate, for the read-ahead thread."""
     sos, levels = chains
@@ -360,7 +361,7 @@ def _prefilter(
     if options.adc_rate_hz is not None:
         plan = capture_mod.plan_capture(options.adc_rate_hz, info.rate_hz, rate_hz, str(info.path))
         adc = capture_mod.AdcCapture(plan, width, capture_mod.lag_s(resampler, info.rate_hz))
-    runner = engine.CascadeRunner(sos, info.channels, CHUNK_FRAMES, levels)
+    runner = engine.CascadeRunner(sos, info.channels, CHUNK_FRAMES, levels, slew_steps=steps)
     if resampler is not None:
         say(
             f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
@@ -413,6 +414,7 @@ def prepare(
     processing_rate_hz = rate_hz if in_callback else info.rate_hz  # type: ignore[union-attr]
     twins = cands.build_twins(candidates, processing_rate_hz)
     sos, levels = cands.chains(twins)
+    steps = cands.slew_steps(twins)
     program = None
     if info is not None and options.match in (None, "loudness"):
         program = _read_excerpt(info, options.match_seconds, in_channels)
@@ -423,12 +425,14 @@ def prepare(
     runner = prefilter = plan = feeder = None
     captures = 0
     if in_callback:
-        runner = engine.CascadeRunner(sos, in_channels, block, levels, dtype=np.float32)
+        runner = engine.CascadeRunner(
+            sos, in_channels, block, levels, dtype=np.float32, slew_steps=steps
+        )
         if info is not None:
             feeder = _feeder(options, info, rate_hz, 1)
     else:
         assert info is not None
-        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say)
+        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say, steps)
         if plan is not None:
             for c in candidates:
                 for note in capture_mod.stopband_notes(c.label, c.design, info.rate_hz,

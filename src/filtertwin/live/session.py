@@ -366,9 +366,11 @@ class ListenSession:
         """Make the twin of an edited candidate and swap its chains into the runner."""
         twin = build_twin(design, self.processing_rate_hz)
         first = cands.chain_index(self.candidates, index, 0)
-        changes = {first + k: (f.sos, f.clip_fs) for k, f in enumerate(twin.filters)}
-        all_sos, all_levels = cands.chains([*self.twins[:index], twin, *self.twins[index + 1 :]])
-        self.swapper.swap(changes, all_sos, all_levels)
+        steps = twin.slew_steps()
+        changes = {first + k: (f.sos, f.clip_fs, steps[k]) for k, f in enumerate(twin.filters)}
+        twins = [*self.twins[:index], twin, *self.twins[index + 1 :]]
+        all_sos, all_levels = cands.chains(twins)
+        self.swapper.swap(changes, all_sos, all_levels, cands.slew_steps(twins))
         self.twins[index] = twin
         self.candidates[index] = replace(self.candidates[index], design=design)  # same ways
         self.edits_made += 1

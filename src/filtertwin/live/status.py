@@ -41,6 +41,8 @@ class StatusFacts:
         The ceiling reduced the level since the last redraw.
     clipping : tuple of str
         Stages that reached their amplifier's swing within the last second ("low s2").
+    slewing : tuple of str
+        Stages limited to their amplifier's slew rate within the last second.
     xruns, starved_frames : int
         Blocks with stream status flags; frames the read-ahead did not deliver in time.
     cpu_load : float or None
@@ -72,6 +74,7 @@ class StatusFacts:
     level_db: float
     ramp_gain: float
     elapsed_s: float
+    slewing: tuple[str, ...] = ()
 
 
 def dbfs(value: float) -> str:
@@ -103,7 +106,9 @@ def status_line(facts: StatusFacts) -> str:
         *([facts.capture] if facts.capture else []),
         ways or "-",
         f"out {dbfs(facts.output_peak)} dBFS" + (" LIMIT" if facts.limiting else ""),
-        "clip " + (",".join(facts.clipping) if facts.clipping else "-"),
+        "clip "
+        + (",".join(facts.clipping) if facts.clipping else "-")
+        + (" slew " + ",".join(facts.slewing) if facts.slewing else ""),
         f"xruns {facts.xruns}"
         + (f" starved {facts.starved_frames}" if facts.starved_frames else ""),
         cpu,
@@ -138,8 +143,11 @@ class StatusReader:
         self.clock = clock
         self.started_s = clock()
         self._limited = 0
-        self._clip_counts = session.swapper.clip_counts().copy()
-        self._clip_seen_s: dict[tuple[int, int], float] = {}
+        self._counts = {
+            "clip": session.swapper.clip_counts().copy(),
+            "slew": session.swapper.slew_counts().copy(),
+        }
+        self._seen_s: dict[str, dict[tuple[int, int], float]] = {"clip": {}, "slew": {}}
 
     def _recent_callback_s(self) -> tuple[float, float]:
         done = int(self.core.counters[BLOCKS])
@@ -150,14 +158,17 @@ class StatusReader:
         times = self.core.cpu_s[index]
         return float(np.median(times)), float(np.max(times))
 
-    def _clipping(self, now_s: float) -> tuple[str, ...]:
-        counts = self.session.swapper.clip_counts()
-        if counts.shape != self._clip_counts.shape:
-            self._clip_counts = np.zeros_like(counts)
-        grown = np.argwhere(counts > self._clip_counts)
-        self._clip_counts = counts.copy()
+    def _clipping(self, now_s: float, kind: str = "clip") -> tuple[str, ...]:
+        """Stages whose clip (or, with ``kind="slew"``, slew) count grew within a second."""
+        swapper = self.session.swapper
+        counts = swapper.clip_counts() if kind == "clip" else swapper.slew_counts()
+        if counts.shape != self._counts[kind].shape:
+            self._counts[kind] = np.zeros_like(counts)
+        grown = np.argwhere(counts > self._counts[kind])
+        self._counts[kind] = counts.copy()
+        seen_s = self._seen_s[kind]
         for chain, section in grown:
-            self._clip_seen_s[(int(chain), int(section))] = now_s
+            seen_s[(int(chain), int(section))] = now_s
         index = self.session.selection.candidate
         if index is None:
             return ()
@@ -167,7 +178,7 @@ class StatusReader:
         for k, way in enumerate(self.session.candidates[index].ways):
             stages = twin.filters[k].stage_of_section
             for section, stage in enumerate(stages):
-                seen = self._clip_seen_s.get((first + k, section))
+                seen = seen_s.get((first + k, section))
                 label = f"{way} s{stage}"
                 if seen is not None and now_s - seen <= CLIP_HOLD_S and label not in flags:
                     flags.append(label)
@@ -203,6 +214,7 @@ class StatusReader:
             output_peak=float(core.meters[core.dry_meter + 1]),
             limiting=limiting,
             clipping=self._clipping(now_s),
+            slewing=self._clipping(now_s, "slew"),
             xruns=int(core.counters[XRUNS]),
             starved_frames=int(core.counters[STARVED_FRAMES]),
             cpu_load=self.cpu_load(),
@@ -239,13 +251,15 @@ def summary_lines(session: ListenSession, played_s: float) -> list[str]:
         f"{safety.nonfinite_samples} non-finite samples silenced"
     )
     lines.append("stage clipping at the amplifier swing: " + _clip_summary(session))
+    slews = _clip_summary(session, session.swapper.slew_counts())
+    lines.append("stage slewing at the amplifier slew rate: " + slews)
     if session.edits_made:
         lines.append(f"live edits: {session.edits_made}")
     return lines
 
 
-def _clip_summary(session: ListenSession) -> str:
-    counts = session.swapper.clip_counts()
+def _clip_summary(session: ListenSession, counts: np.ndarray | None = None) -> str:
+    counts = session.swapper.clip_counts() if counts is None else counts
     found = []
     chain = 0
     for candidate, twin in zip(session.candidates, session.twins, strict=True):
