@@ -247,7 +247,9 @@ def test_the_status_line_says_when_the_adc_capture_is_heard():
     reader = StatusReader(session)
     assert "| ADC off |" in status_line(reader.facts())
     session.handle(parse_command("capture on"), 1.0)
-    assert re.match(r"A \| ADC 8 kHz \| low ", status_line(reader.facts()))
+    assert re.match(
+        r"A vibration-antialias \| ADC 8 kHz \| antialias ", status_line(reader.facts())
+    )
     session.handle(parse_command("capture"), 2.0)  # no word: switch
     assert not session.capture_on
 

@@ -50,6 +50,11 @@ class ListenCandidate:
     design: Design
     ways: tuple[str, ...]
 
+    @property
+    def filter_names(self) -> tuple[str, ...]:
+        """The design's name of each way's filter (what the status line shows)."""
+        return tuple(f.name for f in self.design.filters)
+
     def filter_of(self, way: str) -> str:
         """Name of the design's filter that is ``way`` (a way name or a filter name).
 

@@ -36,6 +36,7 @@ from filtertwin.design import Design
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture as capture_mod
+from filtertwin.live import chains as chain_swaps
 from filtertwin.live import devices, matching, mixer, ring, routing, safety, stream
 from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
@@ -125,6 +126,7 @@ def warm_up() -> None:
     mixer.warm_up()
     ring.warm_up()
     stream.warm_up()
+    chain_swaps.warm_up()
 
 
 def _read_excerpt(info: RecordingInfo, seconds: float, channels: int) -> np.ndarray:

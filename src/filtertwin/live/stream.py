@@ -35,6 +35,7 @@ import numba
 import numpy as np
 
 from filtertwin.engine import CascadeRunner
+from filtertwin.live.chains import ChainBlend
 from filtertwin.live.looping import LoopReader
 from filtertwin.live.mixer import SelectionMixer
 from filtertwin.live.ring import BlockRing
@@ -153,6 +154,8 @@ class StreamCore:
         self._fall = 10.0 ** (-METER_FALL_DB_PER_S * block_frames / rate_hz / 20.0)
         self.counters = np.zeros(4, dtype=np.int64)
         self.cpu_s = np.zeros(CPU_HISTORY)
+        self.blend: ChainBlend | None = None
+        """A chain being crossfaded to new sections (see ``chains.BlendedSwap``)."""
         self._clock = time.perf_counter
         self.tap: SignalTap | None = None
         """Where the preview window's spectrum copies from (set before the stream starts)."""
@@ -210,6 +213,9 @@ class StreamCore:
             np.copyto(self.dry, indata)
         runner = self.runner
         chains = self._ring_chains if runner is None else runner.process(self.dry)
+        blend = self.blend
+        if blend is not None:
+            blend.process(self.dry, chains)
         for mixer, column in self._mixer_columns:
             mixer.process(chains, self.dry, outdata, column, 2)
         self.safety.process(outdata)
@@ -267,6 +273,7 @@ class PreFilter:
         self.resampler = resampler
         self.capture = capture
         self.blocks = 0
+        self.blend: ChainBlend | None = None
 
     def blocks_done(self) -> int:
         """Blocks filtered so far."""
@@ -278,6 +285,9 @@ class PreFilter:
         chain and of the dry input, and the dry input last."""
         frames, channels = block.shape
         chains = self.runner.process(block)
+        blend = self.blend
+        if blend is not None:
+            blend.process(block, chains)
         joined = np.concatenate([chains, block[np.newaxis]])
         flat = joined.transpose(1, 0, 2).reshape(frames, -1)
         out = flat if self.resampler is None else self.resampler.process(flat)
