@@ -15,6 +15,9 @@ MODULES = [
     "filtertwin.checks.alias",
     "filtertwin.checks.foldpower",
     "filtertwin.prototypes",
+    "filtertwin.archive.calibration",
+    "filtertwin.archive.windows",
+    "filtertwin.timestamps",
 ]
 
 

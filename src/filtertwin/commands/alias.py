@@ -10,6 +10,7 @@ import json
 from pathlib import Path
 from typing import Any
 
+from filtertwin.commands import alias_archive
 from filtertwin.commands.options import (
     add_max_jitter,
     column,
@@ -42,7 +43,11 @@ def register(subparsers: Any) -> None:
         ),
     )
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
-    p.add_argument("recording", help="WAV/FLAC, CSV (time column or --rate) or NPY (--rate)")
+    p.add_argument(
+        "recording", nargs="+",
+        help="WAV/FLAC, CSV (time column or --rate) or NPY (--rate); several files, folders or "
+        "patterns check a whole archive",
+    )  # fmt: skip
     p.add_argument(
         "--adc-rate", required=True, type=frequency_hz, metavar="HZ", help="the ADC's sample rate"
     )
@@ -98,6 +103,7 @@ def register(subparsers: Any) -> None:
         "--save-suggestion", metavar="FILE",
         help="write the first suggested design to FILE (a new design file, never overwritten)",
     )  # fmt: skip
+    alias_archive.add_options(p)
     p.set_defaults(func=run)
 
 
@@ -107,10 +113,12 @@ def run(args: argparse.Namespace) -> int:
     from filtertwin.design import load
     from filtertwin.report.check_figures import alias_figure
 
+    if alias_archive.wants_archive(args):
+        return alias_archive.run(args)
     design = load(args.design)
     adc_rate, band = args.adc_rate, args.band
     info = recordings.inspect(
-        args.recording, rate_hz=args.rate, column=column(args.column),
+        args.recording[0], rate_hz=args.rate, column=column(args.column),
         jitter_limit=args.max_jitter / 100,
     )  # fmt: skip
     if info.channels != 1:

@@ -44,7 +44,11 @@ def register(subparsers: Any) -> None:
         ),
     )
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
-    p.add_argument("input", help="recording: WAV/FLAC audio, or a CSV/NPY sensor capture")
+    p.add_argument(
+        "input", nargs="+",
+        help="recording: WAV/FLAC audio, or a CSV/NPY sensor capture; several files, folders "
+        "or patterns render each into its own sub-folder of --out",
+    )  # fmt: skip
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (created if missing)")
     p.add_argument("--format", choices=("wav", "flac"), default="wav", help="audio output format")
     p.add_argument(
@@ -152,6 +156,12 @@ def cmd_render(args: argparse.Namespace) -> int:
     :func:`filtertwin.verdicts.render_verdicts` fails: fidelity, amplifier swing, PCM clip)."""
     from filtertwin import recordings
 
+    if isinstance(args.input, list):
+        if len(args.input) > 1 or not Path(args.input[0]).is_file():
+            from filtertwin.commands.alias_archive import render_each
+
+            return render_each(args, cmd_render)
+        args.input = args.input[0]
     info = recordings.inspect(
         args.input, rate_hz=args.rate, column=column(args.column),
         jitter_limit=args.max_jitter / 100,
