@@ -253,7 +253,7 @@ def _polyphase(h: np.ndarray, gain: float) -> tuple[np.ndarray, np.ndarray, np.n
     return taps, lengths, offsets
 
 
-@numba.njit(cache=True, fastmath=True)
+@numba.njit(cache=True, fastmath=True, nogil=True)
 def _taps_into(part, row, start, taps, length):  # pragma: no cover
     """``part[i] += sum_t taps[t] row[start + t + i]``, four taps per pass over ``part``
     (fewer loads and stores per multiply-add); slices keep every index non-negative, so
@@ -277,7 +277,7 @@ def _taps_into(part, row, start, taps, length):  # pragma: no cover
         t += 1
 
 
-@numba.njit(cache=True, fastmath=True)
+@numba.njit(cache=True, fastmath=True, nogil=True)
 def _up_stage(buf, hist, n, taps, lengths, offsets, acc, out, out_start):  # pragma: no cover
     """``buf[:, hist:hist+n]`` (lanes, low rate, history before it) -> ``out[:, out_start:
     out_start+2n]``: ``y[2i+k] = sum_j g_k[j] x[i - j]``; then keep the history.
@@ -304,7 +304,7 @@ def _up_stage(buf, hist, n, taps, lengths, offsets, acc, out, out_start):  # pra
             row[j] = row[n + j]
 
 
-@numba.njit(cache=True, fastmath=True)
+@numba.njit(cache=True, fastmath=True, nogil=True)
 def _down_stage(buf, hist, n, taps, lengths, offsets, out, out_start):  # pragma: no cover
     """``buf[:, 0]`` even and ``buf[:, 1]`` odd input samples (``hist`` of history, then
     ``n`` new of each) -> ``y[i] = sum_j h[j] x[2i - j]`` into ``out[:, out_start:]``:
@@ -329,7 +329,7 @@ def _down_stage(buf, hist, n, taps, lengths, offsets, out, out_start):  # pragma
                 row[j] = row[n + j]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _frames_to_lanes(x, buf, start):  # pragma: no cover
     """``x`` (frames, channels) -> ``buf[channel, start + frame]``."""
     for f in range(x.shape[0]):
@@ -337,7 +337,7 @@ def _frames_to_lanes(x, buf, start):  # pragma: no cover
             buf[c, start + f] = x[f, c]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _lanes_to_frames(buf, start, frames, out):  # pragma: no cover
     """``buf[channel, start:start+frames]`` -> ``out`` (frames, channels)."""
     for f in range(frames):
@@ -345,7 +345,7 @@ def _lanes_to_frames(buf, start, frames, out):  # pragma: no cover
             out[f, c] = buf[c, start + f]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _chains_to_pairs(x, frames, buf, start, skip):  # pragma: no cover
     """``x`` (chains, frames, channels) -> ``buf[lane, even/odd, start + i]``, lane =
     chain * channels + channel; with ``skip`` leading frames left out (a delay)."""
@@ -358,7 +358,7 @@ def _chains_to_pairs(x, frames, buf, start, skip):  # pragma: no cover
                 buf[lane, 1, start + i] = x[a, skip + 2 * i + 1, c]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _lanes_to_pairs(y, n, buf, start):  # pragma: no cover
     """``y[lane, :n]`` -> ``buf[lane, even/odd, start + i]`` for the next 2x stage."""
     for lane in range(y.shape[0]):
@@ -367,7 +367,7 @@ def _lanes_to_pairs(y, n, buf, start):  # pragma: no cover
             buf[lane, 1, start + i] = y[lane, 2 * i + 1]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _lanes_to_chains(y, start, frames, channels, out):  # pragma: no cover
     """``y[chain * channels + channel, start + f]`` -> ``out[chain, f, channel]``."""
     for a in range(out.shape[0]):
