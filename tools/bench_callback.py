@@ -1,6 +1,6 @@
 """Cost of the live audio callback per block, without a stream.
 
-    python tools/bench_callback.py [--blocks N] [--frames 64 256]
+    python tools/bench_callback.py [--blocks N] [--frames 64 256] [--noise]
 
 Builds the callback of `filtertwin listen` as a run on a recording builds it: two
 candidates of 8 second-order sections each, stereo, float32, the read-ahead ring, one
@@ -11,7 +11,9 @@ share of the block period at 48 kHz (target: median below 5 % at 64 frames).
 
 For scale, the same run measures ``scipy.signal.sosfilt`` with ``zi`` on one chain's block
 (8 sections, stereo) and prints the ratio; machines are shared and noisy, so compare the
-ratio between runs rather than the microseconds.
+ratio between runs rather than the microseconds. With ``--noise`` the same callback is also
+timed with the circuit noise on (every chain's noise added from its own ring before the
+mixer, :mod:`filtertwin.live.hiss`), and the ratio to the callback without it is printed.
 """
 
 from __future__ import annotations
@@ -28,6 +30,7 @@ import scipy
 from scipy import signal
 
 from filtertwin.engine import CascadeRunner
+from filtertwin.live.hiss import NoiseAdder, noise_ring
 from filtertwin.live.player import warm_up
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
@@ -54,23 +57,27 @@ def machine() -> str:
     )
 
 
-def make_core(frames: int) -> StreamCore:
+def make_core(frames: int, noise: bool = False) -> StreamCore:
     a = signal.butter(2 * SECTIONS, 3000, fs=RATE_HZ, output="sos")
     b = signal.bessel(2 * SECTIONS, 3000, fs=RATE_HZ, output="sos", norm="mag")
     runner = CascadeRunner([a, b], 2, frames, dtype=np.float32)
     ring = BlockRing(1, 64 * frames, 2)
+    adder = NoiseAdder(noise_ring(2, 2), 2, frames, RATE_HZ, 0.03) if noise else None
     core = StreamCore(
         n_chains=2, channels=2, block_frames=frames, rate_hz=RATE_HZ, runner=runner,
-        ring=ring, safety=OutputSafety(RATE_HZ, ramp_s=0.01),
+        ring=ring, safety=OutputSafety(RATE_HZ, ramp_s=0.01), noise=adder,
     )  # fmt: skip
     core.prime()
+    if adder is not None:
+        adder.switch(True)
     return core
 
 
-def time_callback(frames: int, blocks: int) -> np.ndarray:
-    core = make_core(frames)
+def time_callback(frames: int, blocks: int, noise: bool = False) -> np.ndarray:
+    core = make_core(frames, noise)
     rng = np.random.default_rng(1)
     source = (0.1 * rng.standard_normal((1, 32 * frames, 2))).astype(np.float32)
+    hiss = (1e-4 * rng.standard_normal((2, 32 * frames, 2))).astype(np.float32)
     out = np.zeros((frames, 2), dtype=np.float32)
     gains = [np.array([1.0, 0.0, 0.0]), np.array([0.0, 0.9, 0.0])]
     times = np.empty(blocks)
@@ -78,6 +85,8 @@ def time_callback(frames: int, blocks: int) -> np.ndarray:
     for n in range(blocks):
         if core.ring.room_frames >= source.shape[1]:
             core.ring.write(source)
+        if core.noise is not None and core.noise.ring.room_frames >= hiss.shape[1]:
+            core.noise.ring.write(hiss)
         if n % SWITCH_EVERY == 0:
             core.request([gains[(n // SWITCH_EVERY) % 2]])
         started = clock()
@@ -103,6 +112,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--blocks", type=int, default=20000, help="callbacks timed per size")
     parser.add_argument("--frames", type=int, nargs="+", default=[64, 256])
+    parser.add_argument("--noise", action="store_true", help="also time it with noise on")
     args = parser.parse_args()
     print(f"date: {datetime.datetime.now().astimezone().isoformat(timespec='seconds')}")
     print(f"machine: {machine()}")
@@ -121,6 +131,12 @@ def main() -> None:
             f"({100 * p99 / period_us:4.2f} %); scipy sosfilt with zi, one chain: "
             f"{ref_med:6.1f} us; callback / sosfilt = {med / ref_med:.2f}"
         )
+        if args.noise:
+            noisy = np.median(time_callback(frames, args.blocks, noise=True)[100:])
+            print(
+                f"         with the circuit noise on: median {noisy:6.1f} us "
+                f"({100 * noisy / period_us:4.2f} %); noise on / off = {noisy / med:.2f}"
+            )
     verdict = "met" if np.median(time_callback(64, 5000)) < 0.05 * 1e6 * 64 / RATE_HZ else "MISSED"
     print(f"target (median < 5 % of the 64-frame period): {verdict}")
 

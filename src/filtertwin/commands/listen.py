@@ -22,8 +22,8 @@ again within 3 s (a script writes 'confirm'). Never connect a tweeter without it
 protection while you try things out.
 
 Keys: 1-9 candidate, 0 bypass, s/l/m/h solo sum/low/mid/high, L/M/H mute a way, + and -
-level, c ADC capture on/off (--adc-rate), e type a command (part low 2 C1 +1, corner low
-2.5k), ? all keys, q quit.
+level, c ADC capture on/off (--adc-rate), n circuit noise on/off, e type a command (part
+low 2 C1 +1, corner low 2.5k), ? all keys, q quit.
 Blind trials: a/b/x listen, A/B answer (ABX); 1/2 listen, Enter answers (preference).
 A script has lines 'TIME_S COMMAND [ARGS]', e.g. '2.5 select 2', '5 part low 2 C1 +1'."""
 
@@ -93,6 +93,9 @@ def register(subparsers: Any) -> None:
     add("--adc-rate", type=frequency_hz, metavar="HZ",
         help="with a recording sampled faster: key c hears what an ideal ADC at this rate "
         "captures of it (aliases included), with and without each candidate")  # fmt: skip
+    add("--circuit-noise", action="store_true",
+        help="start with each way's circuit noise (resistors and amplifier, at its computed "
+        "density and true level against full scale) added; key n switches it")  # fmt: skip
     trials = p.add_argument_group("blind trials (two designs)")
     kind = trials.add_mutually_exclusive_group()
     kind.add_argument("--abx", type=positive(int, "--abx"), metavar="N",
@@ -138,6 +141,7 @@ def _options(args: argparse.Namespace) -> Any:
         seed=args.seed,
         log_path=Path(args.log) if args.log else None,
         adc_rate_hz=args.adc_rate,
+        circuit_noise=args.circuit_noise,
     )
     check_options(options, len(args.designs))
     return options

@@ -36,7 +36,7 @@ LEVEL_STEP_DB = 1.0
 WAYS = ("low", "mid", "high", "sum")
 LISTEN_CHOICES = ("A", "B", "X", "1", "2")
 CAPTURE_CHOICES = ("on", "off")
-LOWER_CASE_ARGS = ("solo", "mute", "capture")
+LOWER_CASE_ARGS = ("solo", "mute", "capture", "noise")
 ANSWER_CHOICES = ("A", "B", "1", "2")
 
 
@@ -83,6 +83,7 @@ RULES: dict[str, CommandRule] = {
     "part": CommandRule("part [WAY] [STAGE] PART CHANGE", (2, 3, 4)),
     "corner": CommandRule("corner [WAY] HZ [HZ]", (1, 2, 3)),
     "capture": CommandRule("capture [on|off]", (0, 1), CAPTURE_CHOICES),
+    "noise": CommandRule("noise [on|off]", (0, 1), CAPTURE_CHOICES),
     "confirm": CommandRule("confirm", (0,)),
     "edit": CommandRule("edit", (0,)),
     "help": CommandRule("help", (0,)),
@@ -112,6 +113,7 @@ KEY_BINDINGS: tuple[KeyBinding, ...] = (
     KeyBinding("+", Command("louder"), f"output level up {LEVEL_STEP_DB:g} dB"),
     KeyBinding("-", Command("quieter"), f"output level down {LEVEL_STEP_DB:g} dB"),
     KeyBinding("c", Command("capture"), "with --adc-rate: ADC capture on or off (aliases)"),
+    KeyBinding("n", Command("noise"), "the circuit's own noise on or off (its true level)"),
     KeyBinding("t", Command("trials"), "in blind trials: say the trial and its keys"),
     KeyBinding("a", Command("listen", ("A",)), "in a trial: hear A"),
     KeyBinding("b", Command("listen", ("B",)), "in a trial: hear B"),

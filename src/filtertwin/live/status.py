@@ -197,7 +197,7 @@ class StatusReader:
         median_s, max_s = self._recent_callback_s()
         target = 10 ** (core.safety.level_db / 20)
         return StatusFacts(
-            hearing=session.now_hearing(),
+            hearing=" + ".join(filter(None, (session.now_hearing(), session.noise_label()))),
             capture="" if plan is None else plan.label if captured else "ADC off",
             way_peaks=tuple(peaks),
             output_peak=float(core.meters[core.dry_meter + 1]),

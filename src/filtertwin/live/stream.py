@@ -43,6 +43,7 @@ from filtertwin.resample import StreamResampler
 
 if TYPE_CHECKING:
     from filtertwin.live.capture import AdcCapture
+    from filtertwin.live.hiss import NoiseAdder
 
 BLOCKS, XRUNS, STARVED_FRAMES, ODD_BLOCKS = 0, 1, 2, 3
 """Indices into :attr:`StreamCore.counters`."""
@@ -108,6 +109,8 @@ class StreamCore:
     captures : int
         ADC capture sources the ring carries after the chains (``n_chains + 1`` or 0; see
         :func:`filtertwin.live.capture.source_gains`); the mixer sees them as more chains.
+    noise : NoiseAdder, optional
+        Adds every chain's circuit noise to its output before the mixer (``noise on``).
     """
 
     def __init__(
@@ -123,6 +126,7 @@ class StreamCore:
         pairs: int = 1,
         fade_s: float = 0.03,
         captures: int = 0,
+        noise: NoiseAdder | None = None,
     ) -> None:
         if channels not in (1, 2):
             raise ValueError(f"channels must be 1 or 2, got {channels}")
@@ -140,6 +144,7 @@ class StreamCore:
         self.runner = runner
         self.ring = ring
         self.safety = safety
+        self.noise = noise
         self.out_channels = 2 * pairs
         n_sources = 1 if runner is not None else mixed + 1
         self.sources = np.zeros((n_sources, block_frames, channels), dtype=np.float32)
@@ -206,6 +211,8 @@ class StreamCore:
             np.copyto(self.dry, indata)
         runner = self.runner
         chains = self._ring_chains if runner is None else runner.process(self.dry)
+        if self.noise is not None:
+            chains = self.noise.add(chains)
         for mixer, column in self._mixer_columns:
             mixer.process(chains, self.dry, outdata, column, 2)
         self.safety.process(outdata)
