@@ -9,6 +9,12 @@ Calls the real callback function (``StreamCore.output_callback``) with synthetic
 times and reports the median and the 99th percentile of its time, in microseconds and as a
 share of the block period at 48 kHz (target: median below 5 % at 64 frames).
 
+With ``--window`` it also times the callback as ``listen --window`` runs it: the preview
+window's tap attached (the callback copies each block into it) and, on another thread, what
+the server does 25 times a second for a connected page (the latest 4096 frames copied out of
+the tap, two spectra, the JSON message). Runs with and without alternate; the medians'
+ratio is printed (target: within 10 %).
+
 For scale, the same run measures ``scipy.signal.sosfilt`` with ``zi`` on one chain's block
 (8 sections, stereo) and prints the ratio; machines are shared and noisy, so compare the
 ratio between runs rather than the microseconds. With ``--noise`` the same callback is also
@@ -20,8 +26,10 @@ from __future__ import annotations
 
 import argparse
 import datetime
+import json
 import os
 import platform
+import threading
 import time
 
 import numba
@@ -35,6 +43,10 @@ from filtertwin.live.player import warm_up
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.live.stream import StreamCore
+from filtertwin.live.tap import SignalTap
+from filtertwin.live.tap import warm_up as warm_up_tap
+from filtertwin.live.window import views
+from filtertwin.live.window.server import LIVE_RATE_HZ
 
 RATE_HZ = 48000.0
 SECTIONS = 8
@@ -73,8 +85,23 @@ def make_core(frames: int, noise: bool = False) -> StreamCore:
     return core
 
 
-def time_callback(frames: int, blocks: int, noise: bool = False) -> np.ndarray:
+def serve_page(tap: SignalTap, stop: threading.Event) -> None:
+    """What the window's server does for a connected page, LIVE_RATE_HZ times a second."""
+    while not stop.wait(1.0 / LIVE_RATE_HZ):
+        dry, out, _ = tap.latest(views.SPECTRUM_FRAMES)
+        json.dumps(
+            {"in_db": views.spectrum_db(dry, RATE_HZ), "out_db": views.spectrum_db(out, RATE_HZ)}
+        )
+
+
+def time_callback(
+    frames: int, blocks: int, window: bool = False, noise: bool = False
+) -> np.ndarray:
     core = make_core(frames, noise)
+    stop = threading.Event()
+    if window:
+        core.tap = SignalTap()
+        threading.Thread(target=serve_page, args=(core.tap, stop), daemon=True).start()
     rng = np.random.default_rng(1)
     source = (0.1 * rng.standard_normal((1, 32 * frames, 2))).astype(np.float32)
     hiss = (1e-4 * rng.standard_normal((2, 32 * frames, 2))).astype(np.float32)
@@ -92,7 +119,23 @@ def time_callback(frames: int, blocks: int, noise: bool = False) -> np.ndarray:
         started = clock()
         core.output_callback(out, frames, None, 0)
         times[n] = clock() - started
+    stop.set()
     return times / 1e3
+
+
+def compare_window(frames: int, blocks: int, rounds: int = 4) -> None:
+    """Median callback time without and with a connected page, runs alternating."""
+    plain, served = [], []
+    for _ in range(rounds):
+        plain.append(time_callback(frames, blocks)[100:])
+        served.append(time_callback(frames, blocks, window=True)[100:])
+    without, with_page = np.median(np.concatenate(plain)), np.median(np.concatenate(served))
+    ratio = with_page / without
+    verdict = "met" if ratio <= 1.10 else "MISSED"
+    print(
+        f"  {frames:4d} frames: median {without:6.1f} us without the window, {with_page:6.1f} us "
+        f"with a connected page; ratio {ratio:.3f} (target <= 1.10: {verdict})"
+    )
 
 
 def time_sosfilt(frames: int, blocks: int) -> np.ndarray:
@@ -112,6 +155,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--blocks", type=int, default=20000, help="callbacks timed per size")
     parser.add_argument("--frames", type=int, nargs="+", default=[64, 256])
+    parser.add_argument("--window", action="store_true", help="also compare with a page served")
     parser.add_argument("--noise", action="store_true", help="also time it with noise on")
     args = parser.parse_args()
     print(f"date: {datetime.datetime.now().astimezone().isoformat(timespec='seconds')}")
@@ -139,6 +183,11 @@ def main() -> None:
             )
     verdict = "met" if np.median(time_callback(64, 5000)) < 0.05 * 1e6 * 64 / RATE_HZ else "MISSED"
     print(f"target (median < 5 % of the 64-frame period): {verdict}")
+    if args.window:
+        warm_up_tap()
+        print("preview window (listen --window): tap attached, page served 25 times a second")
+        for frames in args.frames:
+            compare_window(frames, args.blocks // 4)
 
 
 if __name__ == "__main__":

@@ -16,7 +16,7 @@ set -euo pipefail
 cd "$(dirname "${BASH_SOURCE[0]}")/.."
 
 PYTHON=${PYTHON:-python}
-SYSTEM_PACKAGES=(libportaudio2 jackd2 jack-tools)
+SYSTEM_PACKAGES=(libportaudio2 jackd2 jack-tools chromium)
 
 section() { printf '\n=== %s ===\n' "$1"; }
 

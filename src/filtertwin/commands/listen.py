@@ -109,6 +109,10 @@ def register(subparsers: Any) -> None:
         help="timed commands, lines 'TIME_S COMMAND [ARGS]'; - reads stdin")  # fmt: skip
     add("--duration", type=positive(float, "--duration"), metavar="S",
         help="stop after S seconds")  # fmt: skip
+    add("--window", action="store_true",
+        help="also show the session in a local page in the web browser: stage cards whose "
+        "parts step through their series, response, live spectrum, meters, blind trials "
+        "(the terminal keys keep working)")  # fmt: skip
     p.set_defaults(func=cmd_listen)
 
 
@@ -223,6 +227,10 @@ def cmd_listen(args: argparse.Namespace) -> int:
     reason = "interrupted"
     with ExitStack() as stack:
         key_source = stack.enter_context(keys.TerminalKeys()) if interactive else None
+        if args.window:
+            from filtertwin.live.window import open_window
+
+            stack.enter_context(open_window(player, console.say))
         try:
             player.open()
             player.start()

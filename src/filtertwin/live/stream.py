@@ -44,6 +44,7 @@ from filtertwin.resample import StreamResampler
 if TYPE_CHECKING:
     from filtertwin.live.capture import AdcCapture
     from filtertwin.live.hiss import NoiseAdder
+    from filtertwin.live.tap import SignalTap
 
 BLOCKS, XRUNS, STARVED_FRAMES, ODD_BLOCKS = 0, 1, 2, 3
 """Indices into :attr:`StreamCore.counters`."""
@@ -157,6 +158,8 @@ class StreamCore:
         self.counters = np.zeros(4, dtype=np.int64)
         self.cpu_s = np.zeros(CPU_HISTORY)
         self._clock = time.perf_counter
+        self.tap: SignalTap | None = None
+        """Where the preview window's spectrum copies from (set before the stream starts)."""
 
     @property
     def period_s(self) -> float:
@@ -217,6 +220,8 @@ class StreamCore:
             mixer.process(chains, self.dry, outdata, column, 2)
         self.safety.process(outdata)
         _meter_kernel(chains, self.dry, outdata, self.meters, self._fall)
+        if self.tap is not None:
+            self.tap.write(self.dry, outdata)
         done = counters[BLOCKS]
         self.cpu_s[done % CPU_HISTORY] = self._clock() - started
         counters[BLOCKS] = done + 1

@@ -1,0 +1,315 @@
+"""The one place where the preview window meets the listening session.
+
+Everything the window does to or reads from a running ``filtertwin listen`` goes through
+:class:`SessionLink`, so that when the session grows an API of its own only this file
+changes. Today it uses what :mod:`filtertwin.live.session` and :mod:`filtertwin.live.edits`
+offer:
+
+* commands are the same :class:`~filtertwin.live.keys.Command` words a script or the
+  terminal sends (``select``, ``bypass``, ``solo``, ``mute``, ``level``, ``part``,
+  ``corner``, ``listen``, ``answer``, ``capture``, ``quit``). The link serialises every
+  command, from the terminal and from the page alike, with one lock around the session's
+  ``handle``, so the two never interleave;
+* undo and redo re-install a candidate's design from before or after an edit (the same
+  rebuild, twin and chain swap as the edit itself);
+* "save as" writes the heard candidate's design as a new design file
+  (:mod:`filtertwin.live.window.savefile`).
+
+The page reads a snapshot of the session taken under the same lock (:meth:`SessionLink.view`)
+and the meters the audio callback wrote (:meth:`SessionLink.meters`); nothing here runs in
+the audio thread.
+"""
+
+from __future__ import annotations
+
+import collections
+import math
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from filtertwin.design import Design
+from filtertwin.errors import UserInputError
+from filtertwin.live import keys
+from filtertwin.live.player import Player
+from filtertwin.live.status import StatusReader
+from filtertwin.live.stream import BLOCKS, STARVED_FRAMES
+from filtertwin.live.tap import SignalTap
+from filtertwin.live.tap import warm_up as warm_up_tap
+from filtertwin.live.window import savefile
+
+EDIT_COMMANDS = ("part", "corner")
+MESSAGES_KEPT = 40
+
+
+@dataclass
+class EditHistory:
+    """Designs before and after each edit, per candidate, for undo and redo."""
+
+    undo: list[tuple[int, Design, Design]] = field(default_factory=list)
+    redo: list[tuple[int, Design, Design]] = field(default_factory=list)
+    previous: dict[int, Design] = field(default_factory=dict)
+    """The design each candidate had before its latest change (the plot's ghost)."""
+
+
+@dataclass(frozen=True)
+class SessionView:
+    """What the page shows of the session at one moment (plain data)."""
+
+    version: int
+    candidates: tuple[Any, ...]
+    twins: tuple[Any, ...]
+    selected: int | None
+    solo: str
+    muted: frozenset[str]
+    level_db: float
+    ceiling_dbfs: float
+    processing_rate_hz: float
+    match_offsets_db: tuple[float, ...]
+    previous: dict[int, Design]
+    can_undo: bool
+    can_redo: bool
+    capture: str
+    blind: dict[str, Any] | None
+
+
+class SessionLink:
+    """Drive and read a prepared :class:`~filtertwin.live.player.Player`'s session.
+
+    Parameters
+    ----------
+    player : Player
+        The prepared session (before or after its stream starts).
+    clock : callable
+        Seconds, monotonic.
+
+    Notes
+    -----
+    Construction attaches a :class:`~filtertwin.live.tap.SignalTap` to the stream core (the
+    callback then copies each block into it) and wraps the session's ``handle`` and ``say``
+    so that terminal commands are serialised with the page's and their messages reach it.
+    """
+
+    def __init__(self, player: Player, clock: Callable[[], float] = time.monotonic) -> None:
+        self.player = player
+        self.session = player.session
+        self.core = player.core
+        self.clock = clock
+        self.lock = threading.RLock()
+        self.version = 0
+        self.history = EditHistory()
+        self.originals = tuple(c.design for c in self.session.candidates)
+        """Each candidate's design as it started (the stage cards' targets)."""
+        self.messages: collections.deque[tuple[int, str]] = collections.deque(maxlen=MESSAGES_KEPT)
+        self._message_count = 0
+        warm_up_tap()
+        self.tap = SignalTap()
+        self.core.tap = self.tap
+        self._reader = StatusReader(self.session, player.cpu_load, clock)
+        self._handle = self.session.handle
+        self._say = self.session.say
+        self.session.handle = self._locked_handle  # type: ignore[method-assign]
+        self.session.say = self._say_too
+
+    # --- commands --------------------------------------------------------------------------
+
+    def _say_too(self, message: str) -> None:
+        self._message_count += 1
+        self.messages.append((self._message_count, message))
+        self._say(message)
+
+    def _locked_handle(self, command: keys.Command, now_s: float) -> None:
+        with self.lock:
+            session = self.session
+            before = [c.design for c in session.candidates]
+            self._handle(command, now_s)
+            if command.name in EDIT_COMMANDS:
+                for index, (old, cand) in enumerate(zip(before, session.candidates, strict=True)):
+                    if cand.design is not old:
+                        self.history.undo.append((index, old, cand.design))
+                        self.history.redo.clear()
+                        self.history.previous[index] = old
+            self.version += 1
+
+    def run(self, name: str, args: tuple[str, ...] = ()) -> None:
+        """Carry out one command word with its arguments, as a script line would.
+
+        Raises
+        ------
+        UserInputError
+            If the word is not a command the session knows.
+        """
+        if name == "undo":
+            self.undo()
+        elif name == "redo":
+            self.redo()
+        else:
+            command = keys.parse_command(" ".join([name, *args]))
+            self.session.handle(command, self.clock())
+
+    def _blind_running(self) -> bool:
+        blind = self.session.blind
+        return blind is not None and not blind.finished
+
+    def _reinstall(self, index: int, design: Design, undoing: Design) -> None:
+        session = self.session
+        session._install(index, design)
+        session._rematch()
+        self.history.previous[index] = undoing
+        self.version += 1
+
+    def undo(self) -> None:
+        """Take back the latest edit (any candidate); it can be redone."""
+        with self.lock:
+            if self._blind_running():
+                self.session.say("undo: no edits during blind trials")
+                return
+            if not self.history.undo:
+                self.session.say("undo: nothing to undo")
+                return
+            index, before, after = self.history.undo.pop()
+            self._reinstall(index, before, after)
+            self.history.redo.append((index, before, after))
+            self.session.say(f"undo: {self.session.candidates[index].label} back as before")
+
+    def redo(self) -> None:
+        """Make the latest undone edit again."""
+        with self.lock:
+            if self._blind_running():
+                self.session.say("redo: no edits during blind trials")
+                return
+            if not self.history.redo:
+                self.session.say("redo: nothing to redo")
+                return
+            index, before, after = self.history.redo.pop()
+            self._reinstall(index, after, before)
+            self.history.undo.append((index, before, after))
+            self.session.say(f"redo: {self.session.candidates[index].label} edited again")
+
+    def save_as(self, path: str) -> Path:
+        """Write the heard candidate's design, as edited, to a new file.
+
+        Raises
+        ------
+        UserInputError
+            During blind trials, in bypass, or if the file exists or cannot be written.
+        """
+        with self.lock:
+            if self._blind_running():
+                raise UserInputError("save as: not during blind trials (it would name X)")
+            index = self.session.selection.candidate
+            if index is None:
+                raise UserInputError("save as: select the candidate to save first (not bypass)")
+            design = self.session.candidates[index].design
+        written = savefile.save_design(design, Path(path))
+        self.session.say(f"saved {self.session.candidates[index].label} as {written}")
+        return written
+
+    # --- reading ---------------------------------------------------------------------------
+
+    def view(self) -> SessionView:
+        """A snapshot of the session (taken under the command lock)."""
+        with self.lock:
+            s = self.session
+            offsets = tuple(
+                20 * math.log10(c.level_gain) if c.level_gain > 0 else -math.inf
+                for c in s.layout.candidates
+            )
+            plan = s.capture_plan
+            return SessionView(
+                version=self.version,
+                candidates=tuple(s.candidates),
+                twins=tuple(s.twins),
+                selected=s.selection.candidate,
+                solo=s.selection.solo,
+                muted=frozenset(s.selection.muted),
+                level_db=s.safety.level_db,
+                ceiling_dbfs=s.safety.ceiling_dbfs,
+                processing_rate_hz=s.processing_rate_hz,
+                match_offsets_db=offsets,
+                previous=dict(self.history.previous),
+                can_undo=bool(self.history.undo),
+                can_redo=bool(self.history.redo),
+                capture="" if plan is None else ("on" if s.capture_on else "off"),
+                blind=self._blind_view(),
+            )
+
+    def _blind_view(self) -> dict[str, Any] | None:
+        s = self.session
+        blind = s.blind
+        if blind is None:
+            return None
+        view: dict[str, Any] = {
+            "kind": blind.plan.kind,
+            "trial": min(blind.trial, blind.plan.n_trials),
+            "trials": blind.plan.n_trials,
+            "answered": len(blind.answers),
+            "buttons": list(s.blind_buttons()),
+            "heard": s.heard,
+            "finished": blind.finished,
+        }
+        if blind.finished:
+            score = blind.score()
+            from filtertwin.live.blind import describe_score
+
+            view["score"] = {
+                "hits": score.hits,
+                "trials": score.trials,
+                "p_value": score.p_value,
+                "text": describe_score(blind.plan, score),
+            }
+        return view
+
+    def meters(self) -> dict[str, Any]:
+        """Meters and counters of the stream now (read from what the callback wrote)."""
+        facts = self._reader.facts()
+        core = self.core
+        limit_gain = float(core.safety._state[1])
+        played = int(core.counters[BLOCKS]) * core.block_frames - int(core.counters[STARVED_FRAMES])
+        stream = self.player.stream
+        latency = getattr(stream, "latency", None) if stream is not None else None
+        if isinstance(latency, tuple):
+            latency = latency[-1]
+        feeder = self.player.feeder
+        loop_s = None
+        if feeder is not None:
+            loop_s = feeder.info.duration_s
+        return {
+            "way_peaks": [[w, p] for w, p in facts.way_peaks],
+            "output_peak": facts.output_peak,
+            "limit_db": 20 * math.log10(max(limit_gain, 1e-12)),
+            "limiting": facts.limiting,
+            "clipping": list(facts.clipping),
+            "xruns": facts.xruns,
+            "starved_frames": facts.starved_frames,
+            "callback_load": facts.callback_median_s / facts.period_s,
+            "callback_max_load": facts.callback_max_s / facts.period_s,
+            "cpu_load": facts.cpu_load,
+            "latency_s": None if latency is None else float(latency),
+            "level_db": facts.level_db,
+            "ramp": facts.ramp_gain,
+            "elapsed_s": facts.elapsed_s,
+            "loop_s": loop_s,
+            "position_s": None if not loop_s else (played / core.rate_hz) % loop_s,
+        }
+
+    def clipping(self) -> tuple[str, ...]:
+        """Stages of the heard candidate that reached their swing in the last second."""
+        return self._reader.facts().clipping
+
+    def latest_signals(self, frames: int) -> tuple[np.ndarray, np.ndarray, float]:
+        """The last ``frames`` of the dry input and the output, and the stream rate."""
+        dry, out, _ = self.tap.latest(frames)
+        return dry, out, self.core.rate_hz
+
+    def close(self) -> None:
+        """Give the session its own ``handle`` and ``say`` back; detach the tap."""
+        with self.lock:
+            self.session.handle = self._handle  # type: ignore[method-assign]
+            self.session.say = self._say
+            self.core.tap = None
