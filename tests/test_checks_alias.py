@@ -20,8 +20,8 @@ from filtertwin.checks.alias import (
     capture,
     check_alias,
     ideal_dynamic_range_db,
-    psd,
 )
+from filtertwin.checks.foldpower import plan_spectrum, spectrum
 from filtertwin.design import design_filter, load
 from filtertwin.errors import UserInputError
 
@@ -88,9 +88,10 @@ def test_welch_psd_integrates_to_the_variance():
     rng = np.random.default_rng(5)
     rate = 48000.0
     x = 0.2 * rng.standard_normal(96000) + tones(rate, 2.0, [(1234.5, 0.3)]) + 0.7
-    f, p = psd(x, rate)
+    plan = plan_spectrum(len(x), rate, 2000.0, 150.0)
+    f, p = spectrum(x, rate, plan)
     assert np.sum(p) * (f[1] - f[0]) == pytest.approx(np.var(x), rel=0.01)
-    assert f[1] - f[0] <= 6.0  # about the resolution asked for (4 Hz), a power of two
+    assert f[1] - f[0] <= 2000.0 / 100  # well under a hundredth of the band
 
 
 def test_check_finds_tones_their_aliases_and_the_filtered_levels():
@@ -99,7 +100,8 @@ def test_check_finds_tones_their_aliases_and_the_filtered_levels():
     filt = design.filters[0]
     parts = [(500.0, 0.5), (5300.0, 0.1), (11100.0, 0.05)]
     x = tones(rate, 2.0, parts)
-    check, caps = check_alias(design, x, rate, adc, band_hz=band, reject_db=20.0)
+    # 16 bits: the twin must follow the model down to 108 dB, which covers both spurs
+    check, caps = check_alias(design, x, rate, adc, band_hz=band, bits=16)
 
     found = {round(c.source_hz / 100) * 100: c for c in check.components}
     assert set(found) == {5300, 11100}
@@ -110,6 +112,7 @@ def test_check_finds_tones_their_aliases_and_the_filtered_levels():
         assert c.alias_hz == pytest.approx(float(alias_frequency(f, adc)), abs=6)
         assert c.without_filter_peak == pytest.approx(a, rel=0.01)
         # level times |H(f)| of the analog model (the twin runs oversampled: within 0.3 dB)
+        assert c.note == ""
         assert 20 * math.log10(c.with_filter_peak / (a * g)) == pytest.approx(0, abs=0.3)
         assert c.in_band
 
@@ -139,14 +142,20 @@ def test_requirement_is_attenuation_at_adc_rate_minus_band():
     assert check.required_db == pytest.approx(6.02 * 8 + 1.76, abs=0.01)  # Bennett; Kester
     assert not check.passed
     assert check.margin_db == pytest.approx(check.attenuation_db - check.required_db)
-    passing, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=3500.0, reject_db=20.0)
+    # 20 dB asked and met at 4.5 kHz, but the band reaches beyond the 2 kHz corner: FAIL
+    wide, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=3500.0, reject_db=20.0)
+    assert wide.margin_db > 0 and not wide.passed
+    assert "beyond the filter's passband edge" in " ".join(wide.reasons())
+    passing, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=1900.0, reject_db=20.0)
     assert passing.passed and passing.margin_db == pytest.approx(passing.attenuation_db - 20)
 
 
-def test_default_band_is_the_filter_corner_capped_at_the_adc_nyquist():
+def test_default_band_is_where_the_droop_reaches_its_limit_capped_at_the_adc_nyquist():
     x = tones(48000.0, 0.5, [(500.0, 0.5)])
     check, _ = check_alias(lowpass(corner="2 kHz"), x, 48000.0, 8000.0)
-    assert check.band_hz == 2000.0
+    # a Butterworth filter is 3.01 dB down at its corner (10 log10 2, Butterworth 1930)
+    assert 1950.0 <= check.band_hz <= 2000.0
+    assert check.droop.max_droop_db <= 3.0 and check.droop.passed
     check, _ = check_alias(lowpass(corner="6 kHz"), x, 48000.0, 8000.0)
     assert check.band_hz == 4000.0
 
@@ -284,3 +293,59 @@ def test_command_defaults_agree_with_the_check():
 
     defaults = inspect.signature(check_alias).parameters
     assert command.DEFAULT_BITS == defaults["bits"].default
+
+
+def test_command_suggests_designs_writes_the_first_and_records_the_column(
+    tmp_path, capsys, monkeypatch
+):
+    from filtertwin import cli
+
+    inputs = write_inputs(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    argv = ["alias", inputs["design"], inputs["csv"], "--adc-rate", "8k", "--column", "b",
+            "--rate", "48k", "--band", "1k", "--reject-db", "60", "--max-droop", "1",
+            "--suggest", "--save-suggestion", "better.toml", "--json", "--out", "o"]  # fmt: skip
+    status = cli.main(argv)
+    data = json.loads(capsys.readouterr().out)
+    assert status in (0, 1)
+    assert data["column"] == "b"
+    assert data["suggestions"] and data["saved_design"] == "better.toml"
+    first = data["suggestions"][0]
+    # the design written passes the same check (exit status 0)
+    again = cli.main(["alias", "better.toml", inputs["csv"], "--adc-rate", "8k", "--column", "b",
+                      "--rate", "48k", "--band", "1k", "--reject-db", "60", "--max-droop", "1",
+                      "--out", "o2"])  # fmt: skip
+    out = capsys.readouterr().out
+    assert again == 0 and "verdict: PASS" in out, out
+    assert first["yield"] >= 0.99  # the default target, 99 % of the builds
+    # never overwritten
+    assert cli.main(argv) == 2
+    assert "exists" in capsys.readouterr().err
+
+
+def test_csv_messages_name_the_real_cause_and_an_option_that_exists(tmp_path, capsys,
+                                                                    monkeypatch):  # fmt: skip
+    from filtertwin import cli
+
+    inputs = write_inputs(tmp_path)
+    monkeypatch.chdir(tmp_path)
+    comma = tmp_path / "comma.csv"
+    comma.write_text("time;value\n0,000;0,25\n0,001;0,30\n0,002;0,10\n")
+    assert cli.main(["alias", inputs["design"], str(comma), "--adc-rate", "200"]) == 2
+    err = capsys.readouterr().err
+    assert "decimal comma" in err and err.count("\n") == 1
+    # an uneven logger clock: one step 5 % long (common practice: 1 % is the default limit)
+    rate = 8000.0
+    t = np.arange(4000) / rate
+    t[2000:] += 0.05 / rate
+    values = np.sin(2 * np.pi * 500 * t)
+    jitter = tmp_path / "jitter.csv"
+    jitter.write_text(
+        "time,v\n" + "".join(f"{a:.9f},{b:.6f}\n" for a, b in zip(t, values, strict=True))
+    )
+    argv = ["alias", inputs["design"], str(jitter), "--adc-rate", "2000", "--band", "900",
+            "--reject-db", "10"]  # fmt: skip
+    assert cli.main(argv) == 2
+    err = capsys.readouterr().err
+    assert "--max-jitter" in err
+    assert cli.main([*argv, "--max-jitter", "10"]) in (0, 1)  # the option exists and works

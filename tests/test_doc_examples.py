@@ -11,6 +11,8 @@ MODULES = [
     "filtertwin.units",
     "filtertwin.eseries",
     "filtertwin.noise",
+    "filtertwin.checks.alias",
+    "filtertwin.checks.foldpower",
 ]
 
 

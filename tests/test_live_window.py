@@ -317,7 +317,7 @@ def test_the_live_spectrum_updates_20_times_a_second_and_the_window_is_not_blank
         )
         page.close()
     assert views_drawn == ["phase", "delay", "magnitude"]
-    print(f"\npreview window screenshot: {shot}")
+    print(f"\npreview window screenshot: {shot}; spectrum {frames / 2.0:.1f} frames/s")
     assert frames >= 2.0 * 20  # 20 frames a second or more (the issue's requirement)
     import matplotlib.image
 
@@ -408,3 +408,99 @@ def test_undo_redo_and_save_as_from_the_page_and_the_terminal_drives_the_same_se
     saved = build_design(load_design(tmp_path / "my-build.toml"))
     assert saved.filter("topcut").stages[1].circuit.c1 == pytest.approx(33e-9, rel=1e-12)
     assert any("saved A as my-build.toml" in line for line in said)
+
+
+# --- the command line ------------------------------------------------------------------------
+
+
+def test_listen_window_from_the_command_line_prints_the_address_and_serves_the_page(
+    tmp_path, jack_server
+):
+    import os
+    import shutil
+    import subprocess
+    import sys
+
+    wav, _ = noise_wav(tmp_path, 1.0)
+    env = {
+        k: v for k, v in os.environ.items() if k not in ("DISPLAY", "WAYLAND_DISPLAY", "BROWSER")
+    }
+    env["PYTHONPATH"] = str(Path(__file__).resolve().parents[1] / "src")
+    command = [sys.executable, "-m", "filtertwin", "listen", "candidate-butterworth", "--input",
+               str(wav), "--device", "system", "--window", "--duration", "6"]  # fmt: skip
+    process = subprocess.Popen(
+        command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, stdin=subprocess.DEVNULL,
+        text=True, env=env,
+    )  # fmt: skip
+    lines = []
+    try:
+        while not lines or not lines[-1].startswith("preview window: "):
+            line = process.stdout.readline()
+            assert line, "the address was never printed"
+            lines.append(line)
+        url = lines[-1].split()[2]
+        assert url.startswith("http://127.0.0.1:")
+        assert status_of(url) == 200 and status_of(url + "app.js") == 200
+        assert status_of(url.rsplit("/", 2)[0] + "/") == 403
+        rest = process.stdout.read()  # the same buffered reader, up to the end of the run
+        process.wait(timeout=30)
+        errors = process.stderr.read()
+    finally:
+        if process.poll() is None:
+            process.kill()
+    text = "".join(lines) + rest
+    assert process.returncode == 0, errors
+    assert "stopped (duration)" in text and "Traceback" not in errors
+    console_browsers = ("www-browser", "links", "elinks", "lynx", "w3m")
+    if not any(shutil.which(b) for b in console_browsers):  # a headless machine, as in CI
+        assert "no web browser found here: open the address above in one" in text
+
+
+# --- the loop: jump and region -----------------------------------------------------------------
+
+
+def source_position_s(dry: np.ndarray, source: np.ndarray) -> float | None:
+    """Where in the source file a stretch of the heard dry input starts (seconds), or None
+    when it is no exact stretch of it (it holds a crossfade)."""
+    mono = source.astype(np.float64).mean(axis=1)
+    scores = signal.correlate(mono, dry, mode="valid", method="fft")
+    k = int(np.argmax(scores))
+    return k / RATE_HZ if np.max(np.abs(mono[k : k + len(dry)] - dry)) < 1e-6 else None
+
+
+def test_clicking_the_loop_bar_jumps_and_a_region_keeps_the_loop_inside_it(
+    tmp_path, jack_server, browser
+):
+    wav, source = noise_wav(tmp_path, 4.0)  # 0.17 s of silence, then 4 s of noise
+    length_s = len(source) / RATE_HZ
+    player = player_for(NAMES[:1], wav, [])
+    with served(player) as (server, _, _):
+        page = open_page(browser, server)
+        page.wait_for_selector("#loop-text[data-position]")
+        box = page.locator("#loop").bounding_box()
+        page.mouse.click(box["x"] + 0.75 * box["width"], box["y"] + box["height"] / 2)
+        time.sleep(0.6)  # the read-ahead (0.25 s) in front of the jump plays first
+        dry, _, _ = server.link.tap.latest(4096)
+        jumped_to = source_position_s(dry[-2048:], source)
+        assert jumped_to is not None
+        shown = float(page.get_attribute("#loop-text", "data-position"))
+        page.fill("#loop-start", "1.0")
+        page.fill("#loop-end", "1.5")
+        page.click("#loop-set")
+        page.wait_for_selector("#loop-text:has-text('looping 1.0 to 1.5 s')")
+        time.sleep(1.2)  # more than two rounds of the 0.5 s region
+        heard = []
+        for _ in range(12):
+            dry, _, _ = server.link.tap.latest(1024)
+            heard.append(source_position_s(dry, source))
+            time.sleep(0.07)
+        page.close()
+    # the click at 3/4 of the bar asks for 0.75 x the file's length; 0.6 s later the heard
+    # stretch starts between there and 0.6 s on (plus a block)
+    target = 0.75 * length_s
+    assert target - 0.01 <= jumped_to <= target + 0.6 + 0.05, (target, jumped_to)
+    assert abs(shown - (jumped_to + 2048 / RATE_HZ)) < 0.35  # the page shows where it is
+    found = [s for s in heard if s is not None]  # a stretch across the crossfaded wrap: None
+    assert len(found) >= 6, heard
+    for start in found:  # every stretch heard lies inside the region (1024 frames long)
+        assert 1.0 - 1e-9 <= start and start + 1024 / RATE_HZ <= 1.5 + 1e-9, heard

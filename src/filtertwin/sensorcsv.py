@@ -148,6 +148,8 @@ def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool]]:
         fail(f"{path} has no data rows; export the capture again")
     delimiter = next((d for d in (",", ";", "\t") if d in content[0][1]), None)
     rows = [_split(line, delimiter) for _, line in content]
+    for (index, _), row in zip(content, rows, strict=True):
+        _refuse_decimal_commas(path, index, row, delimiter)
     numbers = [[_is_number(field) for field in row] for row in rows]
 
     def labels_over(i: int) -> bool:
@@ -165,6 +167,21 @@ def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool]]:
     names = tuple(label or f"col{j}" for j, label in enumerate(labels))
     numeric = numbers[header_rows] + [False] * (len(names) - len(data_row))
     return CsvLayout(delimiter, content[header_rows][0]), names, numeric
+
+
+_DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+([eE][+-]?\d+)?$")
+
+
+def _refuse_decimal_commas(path: Path, index: int, row: list[str], delimiter: str | None) -> None:
+    """Refuse numbers written with a decimal comma ("0,25" in a table split by ";" or tabs)."""
+    if delimiter == ",":
+        return
+    for field in row:
+        if _DECIMAL_COMMA.match(field):
+            fail(
+                f"{path} line {index + 1}: {field!r} is written with a decimal comma; export "
+                "the table with a decimal point (or replace ',' by '.' in the numbers)"
+            )
 
 
 def _scan_csv(
@@ -213,7 +230,7 @@ def _check_steps(
         fail(
             f"{path} line {lines[at]}: sample interval {steps[at]:.6g} s is {off[at]:.1%} off"
             f" the typical {typical:.6g} s (limit {limit:.1%}); resample the capture evenly"
-            " or raise the jitter limit"
+            " or raise the limit (--max-jitter PCT of alias and render)"
         )
     return typical
 

@@ -233,7 +233,7 @@ def _general(response, topology, f0_hz, q, k_built, rules, rf, rg, amp) -> Stage
     r1_ideal = roots.ravel()
     ok = np.isfinite(r1_ideal)
     if not np.any(ok):
-        raise SynthesisError(_unreachable(response, topology, q, k_built, rules))
+        raise SynthesisError(_unreachable(response, topology, f0_hz, q, k_built, rules))
     c1s, c2s, r1_ideal = c1s[ok], c2s[ok], r1_ideal[ok]
     r2_ideal = t * t / (c1s * c2s * r1_ideal)
     r1_lo, r1_hi = _bracket(res, r1_ideal)
@@ -247,7 +247,7 @@ def _general(response, topology, f0_hz, q, k_built, rules, rf, rg, amp) -> Stage
     score = np.where(np.isfinite(score) & (qv > 0), score, np.inf)
     i = int(np.argmin(score))
     if not np.isfinite(score[i]) or err[i] > _MAX_LOG_ERROR:
-        raise SynthesisError(_unreachable(response, topology, q, k_built, rules))
+        raise SynthesisError(_unreachable(response, topology, f0_hz, q, k_built, rules))
 
     def make(j: int) -> StageCircuit:
         return StageCircuit(
@@ -281,16 +281,38 @@ def _pick(
     return make(int(order[int(np.argmin(as_built))]))
 
 
-def _unreachable(response, topology, q, k, rules) -> str:
+def _unreachable(response, topology, f0_hz, q, k, rules) -> str:
+    """Why no part combination reaches (f0, Q): the time constant sqrt(R1 R2 C1 C2) =
+    1 / (2 pi f0) outside what the ranges give (for a unity-gain stage, with the capacitor
+    ratio its Q needs), or the Q itself."""
     lo, hi = rules.capacitor_range_f
     rlo, rhi = rules.resistor_range_ohm
+    t = 1.0 / (2 * math.pi * f0_hz)
+    spread = 2 * q if topology == "unity" else 1.0  # sqrt(C1/C2) or sqrt(R2/R1) >= 2 Q
+    t_lo, t_hi = rlo * lo * spread, rhi * hi / spread
     ratio = "C1/C2" if response == "lowpass" else "R2/R1"
-    hint = (
-        f"a unity-gain {response} needs {ratio} >= 4 Q^2 = {4 * q * q:.3g}"
-        if topology == "unity"
-        else f"gain K = {k:.4g}"
-    )
+    if (topology != "unity" or spread**2 <= hi / lo) and not t_lo <= t <= t_hi:
+        need = (
+            f"capacitors up to {t * spread / rhi:.3g} F or resistors up to "
+            f"{t * spread / hi:.3g} ohm"
+            if t > t_hi
+            else f"capacitors down to {t / (spread * rlo):.3g} F or resistors down to "
+            f"{t / (spread * lo):.3g} ohm"
+        )
+        with_ratio = f" with {ratio} = 4 Q^2 = {spread**2:.3g}" if topology == "unity" else ""
+        return (
+            f"f0 {f0_hz:.4g} Hz is out of reach: it needs sqrt(R1 R2 C1 C2) = {t:.3g} s, and "
+            f"capacitors {lo:.3g}..{hi:.3g} F with resistors {rlo:.3g}..{rhi:.3g} ohm{with_ratio} "
+            f"give {t_lo:.3g}..{t_hi:.3g} s; widen the ranges to {need}"
+        )
+    if topology == "unity":
+        return (
+            f"Q {q:.4g} is out of reach with capacitors {lo:.3g}..{hi:.3g} F and resistors "
+            f"{rlo:.3g}..{rhi:.3g} ohm (a unity-gain {response} needs {ratio} >= 4 Q^2 = "
+            f"{4 * q * q:.3g}); use topology 'gain' or widen the part ranges"
+        )
     return (
         f"Q {q:.4g} is out of reach with capacitors {lo:.3g}..{hi:.3g} F and resistors "
-        f"{rlo:.3g}..{rhi:.3g} ohm ({hint}); use topology 'gain' or widen the part ranges"
+        f"{rlo:.3g}..{rhi:.3g} ohm at gain K = {k:.4g}; raise the gain (more Q per ratio of "
+        "parts) or widen the part ranges"
     )

@@ -24,14 +24,14 @@ from fractions import Fraction
 from typing import Any
 
 import numpy as np
-import scipy.ndimage
 import scipy.signal
 
-from filtertwin import twin as twin_mod
-from filtertwin.checks.tolerance import passband_edges_hz
+from filtertwin.checks import foldpower, stopband
+from filtertwin.checks.droop import DEFAULT_MAX_DROOP_DB, Droop, band_within_droop, passband_droop
+from filtertwin.checks.foldpower import SpectrumPlan, Tone, alias_frequency
+from filtertwin.checks.stopband import StopbandPlan
 from filtertwin.design import Design, Filter
 from filtertwin.errors import UserInputError
-from filtertwin.render import render_array  # the resamplers render and listen use
 
 __all__ = [
     "AliasCheck",
@@ -42,7 +42,6 @@ __all__ = [
     "check_alias",
     "ideal_dynamic_range_db",
     "interpolator_taps",
-    "psd",
     "select_filter",
 ]
 
@@ -50,18 +49,14 @@ MAX_FRAMES = 2**24
 """Longest recording read whole (16.7 M frames: 5.5 minutes at 51.2 kHz)."""
 MIN_CAPTURE_FRAMES = 256
 """Shortest ADC capture whose spectrum means anything."""
-PSD_RESOLUTION_HZ = 4.0
-"""Wanted bin spacing of the spectra (Hz); coarser for short recordings."""
-PEAK_PROMINENCE_DB = 10.0
-"""A component stands this far above its surroundings in the recording's spectrum ..."""
-PEAK_ABOVE_FLOOR_DB = 15.0
-"""... and this far above the local noise floor (median over +/- 50 bins)."""
-FLOOR_BINS = 101
+SPECTRUM_DEPTH_DB = 50.0
+"""The spectra see this far below the requirement (window sidelobes): the aliases left after
+a filter that just meets the requirement sit about that deep below the strongest content."""
 IRRELEVANT_MARGIN_DB = 20.0
 """Components weaker than the in-band signal by more than the requirement plus this are left
 out of the table: even unfiltered their aliases stay below what the ADC must resolve."""
-PEAK_HALF_WIDTH_BINS = 3
-"""Bins either side of a peak summed into its power (Hann main lobe is +/- 2 bins)."""
+AGREEMENT_DB = 1.0
+"""A component's level after the filter agrees with the model within this, or is flagged."""
 INTERP_ZERO_CROSSINGS = 32
 INTERP_KAISER_BETA = 10.0
 MAX_RATIO_DENOMINATOR = 2000
@@ -69,19 +64,25 @@ MAX_RATIO_DENOMINATOR = 2000
 
 @dataclass(frozen=True)
 class AliasComponent:
-    """One strong component above the ADC's Nyquist frequency.
+    """One distinct component above the ADC's Nyquist frequency.
 
     Attributes
     ----------
     source_hz, alias_hz : float
-        Where it is in the recording and where the ADC puts it.
+        Where it is in the recording (refined between bins) and where the ADC puts it.
     in_band : bool
-        The alias lands inside the band of interest.
+        The alias lands inside the band of interest (decided on the refined frequency).
     without_filter_db, with_filter_db : float
         Its power relative to the in-band signal power, before and after the filter (the
         filtered level measured on the digital twin's output).
     filter_db : float
         The analog as-built model's gain at ``source_hz`` relative to the passband gain.
+    expected_with_db : float
+        ``without_filter_db`` plus the model's gain there (relative to the in-band power
+        after the filter): what ``with_filter_db`` should be.
+    note : str
+        Why ``with_filter_db`` differs from ``expected_with_db`` by more than 1 dB ("" when
+        it does not).
     without_filter_peak, with_filter_peak : float
         Peak amplitude of the component in the recording's unit (sqrt(2 x power)).
     """
@@ -92,6 +93,8 @@ class AliasComponent:
     without_filter_db: float
     with_filter_db: float
     filter_db: float
+    expected_with_db: float
+    note: str
     without_filter_peak: float
     with_filter_peak: float
 
@@ -128,13 +131,18 @@ class AliasCheck:
         The analog as-built model's attenuation there, relative to its passband gain.
     margin_db : float
         ``attenuation_db - required_db``.
+    droop : Droop
+        The band as the filter passes it (gain, phase, group delay at its edge; droop).
     passed : bool
+        The stopband requirement is met and the band passes (droop, passband).
     aliased_without_db, aliased_with_db : float
         Power folding into the band, relative to the in-band signal power.
     components : tuple of AliasComponent
         Strongest first.
-    oversampling : int
-        Oversampling the digital twin ran at.
+    twin : StopbandPlan
+        The oversampling the digital twin ran at and its fidelity in the stopband and band.
+    spectrum : SpectrumPlan
+        Resolution and window of the recording's spectra.
     recording : Spectra
         Spectrum of the recording (0 to its Nyquist frequency) before and after the filter.
     filter_db : numpy.ndarray
@@ -153,11 +161,13 @@ class AliasCheck:
     attenuation_at_hz: float
     attenuation_db: float
     margin_db: float
+    droop: Droop
     passed: bool
     aliased_without_db: float
     aliased_with_db: float
     components: tuple[AliasComponent, ...]
-    oversampling: int
+    twin: StopbandPlan
+    spectrum: SpectrumPlan
     recording: Spectra
     filter_db: np.ndarray
     captured: Spectra
@@ -165,6 +175,24 @@ class AliasCheck:
     @property
     def verdict(self) -> str:
         return "PASS" if self.passed else "FAIL"
+
+    @property
+    def oversampling(self) -> int:
+        """Oversampling the digital twin ran at."""
+        return self.twin.factor
+
+    def reasons(self) -> list[str]:
+        """Why the check fails, in words (empty when it passes)."""
+        out = []
+        if self.margin_db < 0:
+            out.append(
+                f"the stopband gives {self.attenuation_db:.1f} dB at "
+                f"{self.attenuation_at_hz:.5g} Hz, {-self.margin_db:.1f} dB short of "
+                f"{self.required_db:.1f} dB"
+            )
+        if not self.droop.passed:
+            out.append(self.droop.reason())
+        return out
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary (SI units, dB); the spectra are left out."""
@@ -180,8 +208,10 @@ class AliasCheck:
             "attenuation_at_hz": self.attenuation_at_hz,
             "attenuation_db": self.attenuation_db,
             "margin_db": self.margin_db,
+            "passband": self.droop.to_dict(),
             "pass": self.passed,
             "verdict": self.verdict,
+            "fail_reasons": self.reasons(),
             "aliased_db": {
                 "without_filter": self.aliased_without_db,
                 "with_filter": self.aliased_with_db,
@@ -195,12 +225,16 @@ class AliasCheck:
                     "without_filter_db": c.without_filter_db,
                     "with_filter_db": c.with_filter_db,
                     "filter_db": c.filter_db,
+                    "expected_with_filter_db": c.expected_with_db,
+                    "note": c.note,
                     "without_filter_peak": c.without_filter_peak,
                     "with_filter_peak": c.with_filter_peak,
                 }
                 for c in self.components
             ],
             "twin_oversampling": self.oversampling,
+            "twin_fidelity": self.twin.to_dict(),
+            "spectrum": self.spectrum.to_dict(),
         }
 
 
@@ -226,48 +260,6 @@ def ideal_dynamic_range_db(bits: int) -> float:
     98.09
     """
     return 20 * math.log10(2.0) * bits + 10 * math.log10(1.5)
-
-
-def alias_frequency(f_hz: np.ndarray | float, adc_rate_hz: float) -> np.ndarray:
-    """Where a sampler at ``adc_rate_hz`` puts frequency ``f_hz``: ``|f - k fs|`` in [0, fs/2].
-
-    References
-    ----------
-    A. V. Oppenheim, R. W. Schafer, Discrete-Time Signal Processing, 3rd ed., 4.2.
-
-    Examples
-    --------
-    >>> float(alias_frequency(6700.0, 8000.0)), float(alias_frequency(13100.0, 8000.0))
-    (1300.0, 2900.0)
-    """
-    r = np.mod(np.abs(np.asarray(f_hz, float)), adc_rate_hz)
-    return np.minimum(r, adc_rate_hz - r)
-
-
-def psd(
-    samples: np.ndarray, rate_hz: float, resolution_hz: float = PSD_RESOLUTION_HZ
-) -> tuple[np.ndarray, np.ndarray]:
-    """One-sided Welch PSD (Hann, 50 % overlap, mean removed) in unit^2/Hz.
-
-    The segment is the power of two nearest ``rate_hz / resolution_hz``, shortened until at
-    least eight overlapping segments fit (so that noise does not look like tones).
-    ``sum(p) * df`` is the signal's variance (Parseval).
-
-    Returns
-    -------
-    f_hz, p : numpy.ndarray
-
-    References
-    ----------
-    P. D. Welch, IEEE Trans. Audio Electroacoust. AU-15, 1967; ``scipy.signal.welch``.
-    """
-    frames = len(samples)
-    n = 2 ** max(4, round(math.log2(rate_hz / resolution_hz)))
-    while n > 16 and 9 * n // 2 > frames:
-        n //= 2
-    n = min(n, frames)
-    f, p = scipy.signal.welch(samples, fs=rate_hz, window="hann", nperseg=n, noverlap=n // 2)
-    return f, p
 
 
 def interpolator_taps(up: int) -> np.ndarray:
@@ -306,6 +298,8 @@ def capture(samples: np.ndarray, rate_hz: float, adc_rate_hz: float) -> tuple[np
         return np.array(samples[::step], dtype=float), rate_hz / step
     frac = (Fraction(adc_rate_hz) / Fraction(rate_hz)).limit_denominator(MAX_RATIO_DENOMINATOR)
     up, down = frac.numerator, frac.denominator
+    if up == 1:  # the nearest ratio of whole numbers is a whole-number step
+        return np.array(samples[::down], dtype=float), rate_hz / down
     h = interpolator_taps(up)
     delay = INTERP_ZERO_CROSSINGS * up
     pad = (-delay) % down
@@ -384,79 +378,79 @@ def _validate(
         )
 
 
-def filter_with_twin(
-    design: Design, filt: Filter, samples: np.ndarray, rate_hz: float
-) -> tuple[np.ndarray, int]:
-    """Run a filter's digital twin over a 1-D recording at its own rate.
-
-    The twin is built with ``oversampling="auto"``; when it runs oversampled, the recording
-    is resampled up, filtered and resampled back by the resamplers render uses
-    (:mod:`filtertwin.resample`: flat to 0.4535 of the rate, 150 dB rejection), their delay
-    removed.
-
-    Returns
-    -------
-    filtered : numpy.ndarray
-        Same length and rate as ``samples``.
-    oversampling : int
-    """
-    tw = twin_mod.build_twin(design, rate_hz, oversampling="auto", filters=[filt.name])
-    sos = tw.filters[0].sos
-    factor = tw.oversampling
-    if factor == 1:
-        return scipy.signal.sosfilt(sos, samples), 1
-    block = min(len(samples), 1 << 16)
-    return render_array(tw, samples[:, np.newaxis], block, clip=False)[0, :, 0], factor
-
-
 def _db(power: np.ndarray | float) -> np.ndarray:
     """Power ratio in dB, floored at -300 dB (nothing folds when the ADC runs at the
     recording's rate)."""
     return 10 * np.log10(np.maximum(power, 1e-30))
 
 
+def _note(with_db: float, expected_db: float, buried: bool, twin_off_db: float) -> str:
+    """Why a component's level after the filter is not the model's (see AliasComponent)."""
+    if abs(with_db - expected_db) <= AGREEMENT_DB:
+        return ""
+    if twin_off_db > AGREEMENT_DB:
+        return f"twin {twin_off_db:.1f} dB off the model here"
+    if buried:
+        return "under the noise after the filter: at most this"
+    return f"{with_db - expected_db:+.1f} dB from the model"
+
+
 def _components(
-    f: np.ndarray,
-    p_without: np.ndarray,
-    p_with: np.ndarray,
-    ref_without: float,
-    ref_with: float,
-    gain_db: np.ndarray,
+    tones: tuple[Tone, ...],
+    with_powers: list[float],
+    buried: list[bool],
+    refs: tuple[float, float],
+    filt: Filter,
+    use_amp: bool,
+    plan: StopbandPlan,
+    rate_hz: float,
     adc_rate_hz: float,
     band_hz: float,
     count: int,
     floor_db: float,
 ) -> tuple[AliasComponent, ...]:
-    df = float(f[1] - f[0])
-    level = _db(p_without)
-    floor = scipy.ndimage.median_filter(level, size=FLOOR_BINS, mode="nearest")
-    peaks, _ = scipy.signal.find_peaks(level, prominence=PEAK_PROMINENCE_DB)
-    keep = (f[peaks] > adc_rate_hz / 2) & (level[peaks] - floor[peaks] >= PEAK_ABOVE_FLOOR_DB)
-    peaks = peaks[keep]
-    w = PEAK_HALF_WIDTH_BINS
-    found = []
-    for i in peaks:
-        sl = slice(max(i - w, 0), i + w + 1)
-        power = float(p_without[sl].sum() * df)
-        if _db(power / ref_without) >= floor_db:
-            found.append((power, float(p_with[sl].sum() * df), i))
-    found.sort(reverse=True)
+    ref_without, ref_with = refs
+    kept = [(t, pw, b) for t, pw, b in zip(tones, with_powers, buried, strict=True)
+            if _db(t.power / ref_without) >= floor_db][:count]  # fmt: skip
+    if not kept:
+        return ()
+    f = np.array([t.f_hz for t, _, _ in kept])
+    model = filt.frequency_response(f, use_amp)
+    twin = stopband.twin_response(plan.sos, _taps(plan), f, rate_hz, plan.factor)
+    gain_db = 20 * np.log10(np.maximum(np.abs(model), 1e-300) / abs(filt.passband_gain))
+    twin_off = np.abs(20 * np.log10(np.maximum(np.abs(twin), 1e-300) / np.abs(model)))
+    shift = float(_db(ref_with / ref_without))
     out = []
-    for pw, pf, i in found[:count]:
-        alias = float(alias_frequency(f[i], adc_rate_hz))
+    for (tone, pf, bur), g, off in zip(kept, gain_db, twin_off, strict=True):
+        alias = float(alias_frequency(tone.f_hz, adc_rate_hz))
+        without = float(_db(tone.power / ref_without))
+        with_db = float(_db(pf / ref_with))
+        expected = without + float(g) - shift
         out.append(
             AliasComponent(
-                source_hz=float(f[i]),
+                source_hz=tone.f_hz,
                 alias_hz=alias,
                 in_band=alias <= band_hz,
-                without_filter_db=float(_db(pw / ref_without)),
-                with_filter_db=float(_db(pf / ref_with)),
-                filter_db=float(gain_db[i]),
-                without_filter_peak=math.sqrt(2 * pw),
+                without_filter_db=without,
+                with_filter_db=with_db,
+                filter_db=float(g),
+                expected_with_db=expected,
+                note=_note(with_db, expected, bur, float(off)),
+                without_filter_peak=math.sqrt(2 * tone.power),
                 with_filter_peak=math.sqrt(2 * pf),
             )
         )
     return tuple(out)
+
+
+def _taps(plan: StopbandPlan) -> np.ndarray | None:
+    return None if plan.factor == 1 else stopband.resampling_taps(plan.factor, plan.zero_crossings)
+
+
+def _spectra(x: np.ndarray, y: np.ndarray, rate_hz: float, plan: SpectrumPlan) -> Spectra:
+    f, p_without = foldpower.spectrum(x, rate_hz, plan)
+    _, p_with = foldpower.spectrum(y, rate_hz, plan)
+    return Spectra(f, p_without, p_with)
 
 
 def check_alias(
@@ -469,6 +463,7 @@ def check_alias(
     band_hz: float | None = None,
     bits: int = 16,
     reject_db: float | None = None,
+    max_droop_db: float = DEFAULT_MAX_DROOP_DB,
     max_components: int = 8,
 ) -> tuple[AliasCheck, Captures]:
     """Check an anti-alias filter against a recording and an ADC.
@@ -485,12 +480,15 @@ def check_alias(
     filter_name : str, optional
         The anti-alias filter (default: the design's only filter).
     band_hz : float, optional
-        Top of the band of interest in Hz (default: the filter's corner, capped at the ADC's
-        Nyquist frequency).
+        Top of the band of interest in Hz (default: where the filter's droop reaches
+        ``max_droop_db``, at most its passband edge and the ADC's Nyquist frequency).
     bits : int
         ADC resolution; the requirement is its ideal dynamic range 6.02 N + 1.76 dB.
     reject_db : float, optional
         Required attenuation in dB instead of the dynamic range.
+    max_droop_db : float
+        Largest loss allowed over the band (dB below the passband gain); see
+        :mod:`filtertwin.checks.droop` for the default.
     max_components : int
         Rows in the component table (components more than ``required + 20`` dB below the
         in-band signal are left out).
@@ -508,7 +506,8 @@ def check_alias(
 
     References
     ----------
-    Oppenheim & Schafer 4.2 (aliasing); Bennett 1948, Kester 2005 (6.02 N + 1.76 dB).
+    Oppenheim & Schafer 4.2 (aliasing); Bennett 1948, Kester 2005 (6.02 N + 1.76 dB);
+    Welch 1967 and Kaiser & Schafer 1980 (the spectra, :mod:`filtertwin.checks.foldpower`).
     """
     x = np.asarray(samples, dtype=float)
     if x.ndim != 1:
@@ -517,39 +516,55 @@ def check_alias(
     if reject_db is not None and not (math.isfinite(reject_db) and reject_db > 0):
         raise UserInputError(f"rejection {reject_db:g} dB must be positive; give --reject-db")
     filt = select_filter(design, filter_name)
-    band = band_hz if band_hz is not None else min(passband_edges_hz(filt)[1], adc_rate_hz / 2)
     if reject_db is None:
         required = ideal_dynamic_range_db(bits)
         requirement = f"ideal dynamic range of a {bits}-bit ADC, 6.02 N + 1.76 dB"
     else:
         required, requirement = float(reject_db), "rejection given"
+    band = (
+        band_hz if band_hz is not None else band_within_droop(filt, max_droop_db, adc_rate_hz / 2)
+    )
+    droop = passband_droop(filt, band, max_droop_db)
     at_hz = adc_rate_hz - band
     atten = attenuation_db(filt, at_hz)
 
-    y, factor = filter_with_twin(design, filt, x, rate_hz)
-    f, p_without = psd(x, rate_hz)
-    _, p_with = psd(y, rate_hz)
+    twin = stopband.plan_oversampling(design, filt, rate_hz, adc_rate_hz, band, required)
+    y = stopband.run(twin, x)
+    plan = foldpower.plan_spectrum(len(x), rate_hz, band, required + SPECTRUM_DEPTH_DB)
+    rec = _spectra(x, y, rate_hz, plan)
+    f = rec.f_hz
     df = float(f[1] - f[0])
     inband = f <= band
-    ref_without = float(p_without[inband].sum() * df)
-    ref_with = float(p_with[inband].sum() * df)
+    ref_without = float(rec.without_filter[inband].sum() * df)
+    ref_with = float(rec.with_filter[inband].sum() * df)
     if ref_without <= 0 or ref_with <= 0:
         raise UserInputError(
             f"the recording has no signal below {band:g} Hz to compare the aliases with; "
             "check the recording or --band"
         )
-    folds = (f > adc_rate_hz / 2) & (alias_frequency(f, adc_rate_hz) <= band)
-    aliased_without = float(_db(p_without[folds].sum() * df / ref_without))
-    aliased_with = float(_db(p_with[folds].sum() * df / ref_with))
-    floor = -(required + IRRELEVANT_MARGIN_DB)
-    gain_db = _gain_db(filt, f)
-    comps = _components(f, p_without, p_with, ref_without, ref_with, gain_db, adc_rate_hz, band,
-                        max_components, floor)  # fmt: skip
+    tones, floor_without = foldpower.find_tones(f, rec.without_filter, plan, adc_rate_hz / 2)
+    floor_with = foldpower.local_floor(rec.with_filter, plan)
+    with_powers, buried = [], []
+    for t in tones:
+        measured = foldpower.lobe_power(rec.with_filter, floor_with, t.lobe, df)
+        total = float(rec.with_filter[t.lobe].sum() * df)
+        is_buried = measured < 0.5 * total  # the floor is at least half the lobe's power
+        with_powers.append(total if is_buried else measured)
+        buried.append(is_buried)
+    folded_without = foldpower.folded_power(
+        f, rec.without_filter, floor_without, tones, [t.power for t in tones], adc_rate_hz, band
+    )
+    folded_with = foldpower.folded_power(
+        f, rec.with_filter, floor_with, tones, with_powers, adc_rate_hz, band
+    )
+    comps = _components(
+        tones, with_powers, buried, (ref_without, ref_with), filt, design.amplifier is not None,
+        twin, rate_hz, adc_rate_hz, band, max_components, -(required + IRRELEVANT_MARGIN_DB),
+    )  # fmt: skip
 
     cap_without, cap_rate = capture(x, rate_hz, adc_rate_hz)
     cap_with, _ = capture(y, rate_hz, adc_rate_hz)
-    fc, pc_without = psd(cap_without, cap_rate)
-    _, pc_with = psd(cap_with, cap_rate)
+    cap_plan = foldpower.plan_spectrum(len(cap_without), cap_rate, band, plan.sidelobe_db)
     check = AliasCheck(
         filter_name=filt.name,
         recording_rate_hz=float(rate_hz),
@@ -561,13 +576,15 @@ def check_alias(
         attenuation_at_hz=float(at_hz),
         attenuation_db=float(atten),
         margin_db=float(atten - required),
-        passed=bool(atten >= required),
-        aliased_without_db=aliased_without,
-        aliased_with_db=aliased_with,
+        droop=droop,
+        passed=bool(atten >= required and droop.passed),
+        aliased_without_db=float(_db(folded_without.total / ref_without)),
+        aliased_with_db=float(_db(folded_with.total / ref_with)),
         components=comps,
-        oversampling=factor,
-        recording=Spectra(f, p_without, p_with),
-        filter_db=gain_db,
-        captured=Spectra(fc, pc_without, pc_with),
+        twin=twin,
+        spectrum=plan,
+        recording=rec,
+        filter_db=_gain_db(filt, f),
+        captured=_spectra(cap_without, cap_with, cap_rate, cap_plan),
     )
     return check, Captures(cap_without, cap_with, float(cap_rate))

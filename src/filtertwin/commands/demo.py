@@ -118,7 +118,8 @@ def run(args: argparse.Namespace) -> int:
         print(
             "  (FAIL is the finding here: this filter does not reach the 16-bit converter's\n"
             "   full dynamic range at (ADC rate - band); the table shows how far each spur is\n"
-            "   pushed down. Run the ADC faster, or steepen the filter, and check again.)"
+            "   pushed down. Run the ADC faster, or steepen the filter, and check again;\n"
+            "   add --suggest to the alias command to see designs that would pass.)"
         )
 
     _heading("what to open and what to listen to")

@@ -68,6 +68,21 @@ def positive(kind: Callable[[str], Any], what: str) -> Callable[[str], Any]:
     return parse
 
 
+DEFAULT_MAX_JITTER_PCT = 1.0
+"""Largest deviation of a CSV time step from the typical one (same as
+``filtertwin.recordings.inspect``'s default 0.01)."""
+
+
+def add_max_jitter(parser: argparse.ArgumentParser) -> None:
+    """The ``--max-jitter PCT`` option of the commands that read CSV sensor tables."""
+    parser.add_argument(
+        "--max-jitter", type=positive(float, "--max-jitter"), metavar="PCT",
+        default=DEFAULT_MAX_JITTER_PCT,
+        help="largest deviation of a CSV time step from the typical one, in percent "
+        f"(default {DEFAULT_MAX_JITTER_PCT:g}); a logger with an uneven clock needs more",
+    )  # fmt: skip
+
+
 def column(text: str | None) -> str | int | None:
     """A CSV column or channel: a 0-based index or a name."""
     return int(text) if text is not None and text.isdigit() else text

@@ -13,7 +13,13 @@ import time
 from pathlib import Path
 from typing import Any, TextIO
 
-from filtertwin.commands.options import add_resampling, column, frequency_hz, oversampling
+from filtertwin.commands.options import (
+    add_max_jitter,
+    add_resampling,
+    column,
+    frequency_hz,
+    oversampling,
+)
 from filtertwin.errors import UserInputError
 
 SAFETY_LINE = (
@@ -75,6 +81,7 @@ def register(subparsers: Any) -> None:
         "--column", metavar="NAME|INDEX",
         help="the one channel or CSV column to render (default all)",
     )  # fmt: skip
+    add_max_jitter(p)
     p.add_argument(
         "--circuit-noise", action="store_true",
         help="add the circuit's own noise (resistors and amplifier) to every filter output, "
@@ -145,7 +152,10 @@ def cmd_render(args: argparse.Namespace) -> int:
     outside the fidelity tolerance, resampling filters included)."""
     from filtertwin import recordings
 
-    info = recordings.inspect(args.input, rate_hz=args.rate, column=column(args.column))
+    info = recordings.inspect(
+        args.input, rate_hz=args.rate, column=column(args.column),
+        jitter_limit=args.max_jitter / 100,
+    )  # fmt: skip
 
     from filtertwin import examples, render
     from filtertwin.design import build_design

@@ -27,6 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from filtertwin.checks.alias import interpolator_taps
+from filtertwin.design import Design
 from filtertwin.errors import UserInputError
 from filtertwin.resample import MAX_FACTOR, StreamResampler, ratio
 
@@ -138,6 +139,56 @@ def plan_capture(
         dac_up=dac[0],
         dac_down=dac[1],
     )
+
+
+CAPTURE_BITS = 16
+"""Converter resolution the live capture's stopband is judged at (as `alias` by default)."""
+
+
+def stopband_notes(
+    label: str, design: Design, recording_rate_hz: float, adc_rate_hz: float, factor: int = 1
+) -> list[str]:
+    """How well a candidate's twin, running at ``factor`` times the recording's rate, follows
+    the analog model over the frequencies the ADC folds into its band.
+
+    One line per low-pass or band-pass filter. The rule is :mod:`filtertwin.checks.stopband`'s
+    (within 1 dB down to a 16-bit converter's 98 dB plus 10 dB); where the twin misses it,
+    the line says by how much, where, and which oversampling would follow the circuit
+    (``filtertwin alias`` runs the twin there).
+    """
+    from filtertwin.checks.alias import ideal_dynamic_range_db
+    from filtertwin.checks.droop import DEFAULT_MAX_DROOP_DB, band_within_droop
+    from filtertwin.checks.stopband import plan_oversampling
+
+    required = ideal_dynamic_range_db(CAPTURE_BITS)
+    notes = []
+    for filt in design.filters:
+        if filt.response == "highpass":
+            continue
+        band = band_within_droop(filt, DEFAULT_MAX_DROOP_DB, adc_rate_hz / 2)
+        args = (design, filt, recording_rate_hz, adc_rate_hz, band, required)
+        try:
+            now = plan_oversampling(*args, factors=(factor,))
+        except ValueError:
+            continue  # a stage above this rate's Nyquist frequency: the twin refuses it anyway
+        where = f"{label} '{filt.name}' twin at {factor}x the recording's rate"
+        if now.reached:
+            notes.append(
+                f"{where}: within {now.stopband_db:.2f} dB of the circuit over the folding "
+                f"frequencies down to -{now.level_db:.0f} dB"
+            )
+            continue
+        need = plan_oversampling(*args)
+        fix = (
+            f"{need.factor}x would follow it (filtertwin alias runs it there)"
+            if need.reached
+            else "no factor up to 32x follows it"
+        )
+        notes.append(
+            f"{where}: {now.stopband_db:.1f} dB off the circuit at {now.stopband_at_hz:.5g} Hz "
+            f"in the folding band, so its capture there is not the circuit's; {fix}"
+        )
+    return notes
 
 
 def sampler_taps(up: int) -> np.ndarray:

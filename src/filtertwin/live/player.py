@@ -440,6 +440,11 @@ def prepare(
     else:
         assert info is not None
         prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say)
+        if plan is not None:
+            for c in candidates:
+                for note in capture_mod.stopband_notes(c.label, c.design, info.rate_hz,
+                                                       plan.adc_rate_hz):  # fmt: skip
+                    say(note)
         captures = 0 if plan is None else len(sos) + 1
         feeder = _feeder(options, info, rate_hz, len(sos) + 1 + captures, prefilter)
     noise_ring = hiss.noise_ring(len(sos), in_channels)

@@ -16,7 +16,8 @@ swaps chains with the runner's ``set_chain``, or replaces :attr:`StreamCore.runn
 (one attribute store, taken up at the next block).
 
 :class:`Feeder` is the read-ahead thread: it reads a recording in a loop with
-:func:`filtertwin.recordings.read_blocks` into a bounded :class:`~filtertwin.live.ring.BlockRing`.
+:class:`~filtertwin.live.looping.LoopReader` (the whole file, or a region, with jumps) into a
+bounded :class:`~filtertwin.live.ring.BlockRing`.
 For a recording at another rate than the stream, a :class:`PreFilter` runs the twin at
 the recording's own rate in that thread and resamples every chain's output and the dry
 input to the stream rate; with an :class:`~filtertwin.live.capture.AdcCapture` it also
@@ -34,11 +35,11 @@ import numba
 import numpy as np
 
 from filtertwin.engine import CascadeRunner
+from filtertwin.live.looping import LoopReader
 from filtertwin.live.mixer import SelectionMixer
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.recordings import read_blocks
 from filtertwin.resample import StreamResampler
 
 if TYPE_CHECKING:
@@ -329,17 +330,20 @@ class Feeder:
         self.channels = channels
         self.prefilter = prefilter
         self.error: BaseException | None = None
-        self.loops = 0
+        self.reader = LoopReader(info, chunk_frames, channels)
+        """What is read: the whole recording, or a region, with jumps (``reader.request``)."""
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, name="filtertwin-read-ahead", daemon=True)
         # wait a small part of the time the full ring lasts before looking for room again
         self._poll_s = min(0.01, ring.capacity_frames / info.rate_hz / 8)
 
     def _blocks(self) -> Any:
-        while True:
-            for block in read_blocks(self.info, self.chunk_frames):
-                yield block[:, : self.channels]
-            self.loops += 1
+        yield from self.reader.blocks()
+
+    @property
+    def loops(self) -> int:
+        """Times the loop came round to its start."""
+        return self.reader.loops
 
     def _prepare(self, block: np.ndarray) -> np.ndarray:
         if self.prefilter is None:

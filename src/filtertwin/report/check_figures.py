@@ -91,9 +91,10 @@ def alias_figure(
     top.set_ylabel("PSD (dB re 1 unit\u00b2/Hz)")
     top.set_title(f"The recording at {_hz(check.recording_rate_hz)}, before and after the filter")
     nyquist = check.adc_rate_hz / 2
-    k = 1
+    k = 2
     while k * nyquist < rec.f_hz[-1]:
-        top.axvline(k * nyquist / scale, color="0.8", lw=0.6, ls=":", zorder=0)
+        label = f"fold lines: multiples of {_hz(nyquist)} (ADC Nyquist)" if k == 2 else None
+        top.axvline(k * nyquist / scale, color="0.6", lw=0.6, ls=":", zorder=0, label=label)
         k += 1
     top.axvline(nyquist / scale, color="tab:red", lw=1.0, ls="--", label="ADC Nyquist frequency")
     gain_ax = top.twinx()
@@ -108,6 +109,10 @@ def alias_figure(
         (check.attenuation_at_hz / scale, -check.attenuation_db),
         xytext=(8, 8), textcoords="offset points", fontsize=8, color="tab:green",
     )  # fmt: skip
+    d = check.droop
+    gain_ax.plot([d.band_hz / scale], [d.edge_gain_db], "s", color="tab:olive", ms=5,
+                 label=f"band edge: {d.edge_gain_db:+.2f} dB (largest droop "
+                 f"{d.max_droop_db:.2f} dB, limit {d.limit_db:g})")  # fmt: skip
     gain_ax.set_ylabel("filter gain (dB re passband)", color="tab:green")
     gain_ax.set_ylim(max(-160.0, -check.required_db - 40), 10)
     handles = top.get_legend_handles_labels()
@@ -125,8 +130,9 @@ def alias_figure(
     ):
         label = f"captured {words} the filter (aliases {aliased_db:+.1f} dB)"
         bottom.plot(cap.f_hz / scale, _db10(p), color=colour, lw=0.9, label=label)
-    for c in check.components:
-        bottom.axvline(c.alias_hz / scale, color="tab:red", lw=0.6, ls=":")
+    for i, c in enumerate(check.components):
+        label = "where a component above Nyquist lands" if i == 0 else None
+        bottom.axvline(c.alias_hz / scale, color="tab:red", lw=0.6, ls=":", label=label)
         bottom.annotate(
             f"{_hz(c.source_hz)} \u2192 {_hz(c.alias_hz)}",
             (c.alias_hz / scale, 1.0), xycoords=("data", "axes fraction"),

@@ -38,7 +38,6 @@ from filtertwin.errors import UserInputError
 from filtertwin.live import keys
 from filtertwin.live.player import Player
 from filtertwin.live.status import StatusReader
-from filtertwin.live.stream import BLOCKS, STARVED_FRAMES
 from filtertwin.live.tap import SignalTap
 from filtertwin.live.tap import warm_up as warm_up_tap
 from filtertwin.live.window import savefile
@@ -148,9 +147,41 @@ class SessionLink:
             self.undo()
         elif name == "redo":
             self.redo()
+        elif name in ("jump", "loop"):
+            self._move_loop(name, args)
         else:
             command = keys.parse_command(" ".join([name, *args]))
             self.session.handle(command, self.clock())
+
+    def _move_loop(self, name: str, args: tuple[str, ...]) -> None:
+        """``jump S``: play from S seconds; ``loop S E``: loop S to E seconds; ``loop all``."""
+        feeder = self.player.feeder
+        if feeder is None:
+            raise UserInputError(f"{name}: the live input has no position; play a recording")
+        reader, rate_hz = feeder.reader, feeder.info.rate_hz
+        try:
+            seconds = [float(a) for a in args if a != "all"]
+        except ValueError:
+            raise UserInputError(f"{name} takes seconds, e.g. 'jump 12.5', 'loop 10 20'") from None
+        frames = [round(s * rate_hz) for s in seconds]
+        try:
+            if name == "jump" and len(frames) == 1:
+                start, end = reader.region
+                reader.request(frames[0], start, end)
+                self.session.say(f"playing from {seconds[0]:.1f} s")
+            elif name == "loop" and len(frames) == 2:
+                reader.request(frames[0], frames[0], frames[1])
+                self.session.say(f"looping {seconds[0]:.1f} s to {seconds[1]:.1f} s")
+            elif name == "loop" and args == ("all",):
+                reader.request(0, 0, None)
+                self.session.say("looping the whole recording")
+            else:
+                raise UserInputError("use 'jump S', 'loop S E' or 'loop all' (seconds)")
+        except ValueError as error:
+            raise UserInputError(
+                f"{name}: {error} (the recording lasts {feeder.info.duration_s:.1f} s)"
+            ) from None
+        self.version += 1
 
     def _blind_running(self) -> bool:
         blind = self.session.blind
@@ -270,15 +301,21 @@ class SessionLink:
         facts = self._reader.facts()
         core = self.core
         limit_gain = float(core.safety._state[1])
-        played = int(core.counters[BLOCKS]) * core.block_frames - int(core.counters[STARVED_FRAMES])
         stream = self.player.stream
         latency = getattr(stream, "latency", None) if stream is not None else None
         if isinstance(latency, tuple):
             latency = latency[-1]
         feeder = self.player.feeder
-        loop_s = None
+        loop_s = position_s = region_s = None
         if feeder is not None:
-            loop_s = feeder.info.duration_s
+            info, reader = feeder.info, feeder.reader
+            loop_s = info.duration_s
+            start, end = reader.region
+            region_s = [start / info.rate_hz, end / info.rate_hz]
+            # what is heard now: the read position less what waits in the read-ahead ring
+            ahead = feeder.ring.available_frames * info.rate_hz / core.rate_hz
+            heard = reader.position - ahead
+            position_s = (start + (heard - start) % (end - start)) / info.rate_hz
         return {
             "way_peaks": [[w, p] for w, p in facts.way_peaks],
             "output_peak": facts.output_peak,
@@ -295,7 +332,8 @@ class SessionLink:
             "ramp": facts.ramp_gain,
             "elapsed_s": facts.elapsed_s,
             "loop_s": loop_s,
-            "position_s": None if not loop_s else (played / core.rate_hz) % loop_s,
+            "region_s": region_s,
+            "position_s": position_s,
         }
 
     def clipping(self) -> tuple[str, ...]:

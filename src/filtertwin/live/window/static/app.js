@@ -225,8 +225,14 @@ function renderMeters(m) {
   }
   facts.forEach(([, v], i) => { if (page.facts[i].textContent !== v) page.facts[i].textContent = v; });
   if (m.loop_s) {
-    $("loop-fill").style.width = `${(100 * m.position_s / m.loop_s).toFixed(1)}%`;
-    $("loop-text").textContent = `loop ${num(m.position_s, 1)} of ${num(m.loop_s, 1)} s`;
+    page.loopS = m.loop_s;
+    $("loop-fill").style.left = `${(100 * m.position_s / m.loop_s).toFixed(2)}%`;
+    const [a, b] = m.region_s;
+    $("loop-region").style.left = `${(100 * a / m.loop_s).toFixed(2)}%`;
+    $("loop-region").style.width = `${(100 * (b - a) / m.loop_s).toFixed(2)}%`;
+    $("loop-text").dataset.position = String(m.position_s);
+    $("loop-text").textContent = `at ${num(m.position_s, 1)} s of ${num(m.loop_s, 1)} s` +
+      (b - a < m.loop_s - 1e-3 ? `, looping ${num(a, 1)} to ${num(b, 1)} s` : "");
   } else {
     $("loop-text").textContent = "live input";
   }
@@ -325,6 +331,13 @@ $("undo").addEventListener("click", () => send("undo"));
 $("redo").addEventListener("click", () => send("redo"));
 $("save").addEventListener("click", () => { const name = $("save-name").value.trim(); if (name) send("save_as", name); });
 $("stop").addEventListener("click", () => send("quit"));
+$("loop").addEventListener("click", e => {
+  if (!page.loopS) return;
+  const box = $("loop").getBoundingClientRect();
+  send("jump", (page.loopS * (e.clientX - box.left) / box.width).toFixed(3));
+});
+$("loop-set").addEventListener("click", () => send("loop", $("loop-start").value.trim() || "0", $("loop-end").value.trim() || String(page.loopS || 0)));
+$("loop-all").addEventListener("click", () => send("loop", "all"));
 $("capture").addEventListener("click", () => send("capture"));
 $("response-view").addEventListener("change", responsePlot);
 $("twin").addEventListener("change", responsePlot);
