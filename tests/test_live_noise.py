@@ -35,9 +35,16 @@ def load(name):
     return build_design(load_design(examples.resolve(name)))
 
 
-def setup(names=("bookshelf-2way",), gains=None):
-    """A core with a runner (a recording at the stream's rate), its noise ring filled by
-    hand, and its session; the input is silent."""
+class HandFed(NoiseFeeder):
+    """A noise feeder whose ring the test fills by hand: its thread never starts."""
+
+    def start(self):
+        self.ready.set()
+
+
+def setup(names=("bookshelf-2way",), gains=None, feeder_kind=HandFed):
+    """A core with a runner (a recording at the stream's rate), its noise ring (filled by
+    hand, or by a real feeder thread) and its session; the input is silent."""
     candidates = cands.make_candidates([(n, load(n)) for n in names])
     twins = cands.build_twins(candidates, RATE_HZ)
     sos, levels = cands.chains(twins)
@@ -52,8 +59,7 @@ def setup(names=("bookshelf-2way",), gains=None):
     core.prime()
     gains = np.ones(len(candidates)) if gains is None else np.asarray(gains, float)
     match = LevelMatch("off", (0.0,) * len(gains), 0.0, tuple(gains), 1.0)
-    feeder = NoiseFeeder([c.design for c in candidates], RATE_HZ, 1, ring)  # not started
-    feeder.ready.set()
+    feeder = feeder_kind([c.design for c in candidates], RATE_HZ, 1, ring)
     said = []
     session = ListenSession(
         candidates, twins, core, core, RATE_HZ, match, say=said.append,
@@ -124,12 +130,11 @@ def test_the_status_line_and_the_help_show_the_noise():
 
 
 def test_a_part_edit_makes_the_noise_follow_the_edited_design():
-    core, session, ring, said = setup()
+    core, session, ring, said = setup(feeder_kind=NoiseFeeder)
     feeder = session.noise.feeder
-    feeder.ready.clear()
-    feeder.start()
+    assert not feeder.ready.is_set()  # nothing is made before the noise is asked for
     try:
-        feeder.wait_ready()
+        session.handle(Command("noise", ("on",)), 0.5)  # starts the thread and waits for it
         old = feeder._sources[0].firs.copy()
         session.handle(parse_command("part low 1 R1 +6"), 1.0)  # six E-series steps up
         edited = session.candidates[0].design

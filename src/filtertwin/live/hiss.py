@@ -6,7 +6,8 @@ signal by :class:`filtertwin.noise.CircuitNoiseSource` (the same shaping FIR as
 ``render --circuit-noise``), in full-scale units at the stream's rate.
 
 Nothing of it is computed in the audio callback. :class:`NoiseFeeder` is a thread of its own
-that builds the sources (a few tenths of a second per filter), then keeps a
+that builds the sources (a few tenths of a second per filter) when the noise is first asked
+for, then keeps a
 :class:`~filtertwin.live.ring.BlockRing` of every chain's noise full, and rebuilds one
 candidate's source after a part or corner edit (the new density is heard once the ring has
 played out, about a third of a second). :class:`NoiseAdder`, called by the callback, reads
@@ -216,8 +217,9 @@ class NoiseFeeder:
             self.ready.set()
 
     def start(self) -> None:
-        """Start the thread (the sources are built in it)."""
-        self._thread.start()
+        """Start the thread (the sources are built in it); again: nothing."""
+        if self._thread.ident is None:
+            self._thread.start()
 
     def wait_ready(self, timeout_s: float = READY_TIMEOUT_S) -> None:
         """Wait until the ring is full (or the timeout); raise what the thread raised."""
@@ -264,8 +266,10 @@ class LiveNoise:
         return self.adder.on
 
     def switch(self, on: bool) -> None:
-        """Fade the noise in or out; before the first fade-in, wait until it is made."""
+        """Fade the noise in or out; the first time, start making it and wait until it is
+        there (the thread runs only once the noise is asked for: it costs CPU time)."""
         if on:
+            self.feeder.start()
             self.feeder.wait_ready()
         self.adder.switch(on)
 

@@ -287,10 +287,9 @@ class Player:
             self.feeder.start()
             if self.feeder.error is not None:
                 raise self.feeder.error
-        if self.noise_feeder is not None:
-            self.noise_feeder.start()
-            if self.options.circuit_noise:
-                self.noise_feeder.wait_ready()
+        if self.noise_feeder is not None and self.options.circuit_noise:
+            self.noise_feeder.start()  # otherwise at the first 'noise on'
+            self.noise_feeder.wait_ready()
         self.session.start(time.monotonic())
         if self._saved_switch_interval_s is None:
             self._saved_switch_interval_s = sys.getswitchinterval()
