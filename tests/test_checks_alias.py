@@ -134,7 +134,9 @@ def test_requirement_is_attenuation_at_adc_rate_minus_band():
     design = lowpass()
     x = tones(48000.0, 0.5, [(500.0, 0.5), (9000.0, 0.1)])
     check, _ = check_alias(design, x, 48000.0, 8000.0, band_hz=3500.0, bits=8)
-    assert check.attenuation_at_hz == 4500.0
+    # Oppenheim & Schafer 3rd ed. 4.2: a tone at f aliases to fs - f, so the first one to
+    # fold into the band [0, 3500] comes from 8000 - 3500 = 4500 Hz (ADC rate minus band)
+    assert check.attenuation_at_hz == 4500.0  # Oppenheim & Schafer 4.2
     # scipy.signal.butter analog prototype; the as-built E96/E12 parts are within 0.5 dB
     b, a = scipy.signal.butter(4, 2 * np.pi * 2000.0, analog=True)
     _, h = scipy.signal.freqs(b, a, worN=[2 * np.pi * 4500.0])
@@ -220,7 +222,7 @@ BAD_INPUTS = [
     (("mono", "--adc-rate", "fast"), r"argument --adc-rate: cannot read 'fast'"),
     (("mono", "--adc-rate", "8k", "--bits", "40"), r"outside 1\.\.32"),
     (("mono", "--adc-rate", "8k", "--out", "aa.toml"), r"--out aa.toml: is a file"),
-    (("stereo", "--adc-rate", "8k"), r"has 2 channels .* choose one with --column"),
+    (("stereo", "--adc-rate", "8k", "--segment", "5:2"), r"--segment: must be START:END"),
 ]
 
 
@@ -289,10 +291,14 @@ def test_csv_input_gives_csv_captures_at_the_adc_rate(tmp_path, capsys, monkeypa
 def test_command_defaults_agree_with_the_check():
     import inspect
 
+    from filtertwin.checks import suggest
     from filtertwin.commands import alias as command
 
     defaults = inspect.signature(check_alias).parameters
     assert command.DEFAULT_BITS == defaults["bits"].default
+    assert command.DEFAULT_MAX_DROOP_DB == defaults["max_droop_db"].default
+    assert command.DEFAULT_BUILDS == suggest.DEFAULT_BUILDS
+    assert command.DEFAULT_MIN_YIELD_PCT == 100 * suggest.DEFAULT_MIN_YIELD
 
 
 def test_command_suggests_designs_writes_the_first_and_records_the_column(
@@ -331,9 +337,9 @@ def test_csv_messages_name_the_real_cause_and_an_option_that_exists(tmp_path, ca
     monkeypatch.chdir(tmp_path)
     comma = tmp_path / "comma.csv"
     comma.write_text("time;value\n0,000;0,25\n0,001;0,30\n0,002;0,10\n")
-    assert cli.main(["alias", inputs["design"], str(comma), "--adc-rate", "200"]) == 2
-    err = capsys.readouterr().err
-    assert "decimal comma" in err and err.count("\n") == 1
+    table = recordings.inspect(comma)  # a decimal comma is read, not refused
+    assert table.rate_hz == pytest.approx(1000.0)  # 1 ms steps
+    np.testing.assert_array_equal(recordings.read_all(table)[:, 0], [0.25, 0.30, 0.10])
     # an uneven logger clock: one step 5 % long (common practice: 1 % is the default limit)
     rate = 8000.0
     t = np.arange(4000) / rate

@@ -107,9 +107,11 @@ def test_as_built_linkwitz_riley_design_sums_flat_within_0_01_db():
     assert check.ways == ("woofer", "tweeter")  # ordered by frequency, not by file order
     assert check.max_dev_db < 0.01
     (point,) = check.crossovers
-    assert point.f_hz == pytest.approx(FC, rel=0.002)
-    assert point.level_db == pytest.approx(MINUS_6_DB, abs=0.01)
-    assert point.phase_diff_deg == pytest.approx(0.0, abs=0.2)
+    # Linkwitz 1976: LR4 ways cross at fc, each at -6.02 dB, in phase; the E96 resistors'
+    # 1.2 % half step (IEC 60063) is mostly cancelled by the synthesis' rounding to target
+    assert point.f_hz == pytest.approx(FC, rel=0.002)  # Linkwitz 1976: crossing at fc
+    assert point.level_db == pytest.approx(MINUS_6_DB, abs=0.01)  # Linkwitz 1976: -6.02 dB
+    assert point.phase_diff_deg == pytest.approx(0.0, abs=0.2)  # Linkwitz 1976: in phase
     assert check.verdict == "PASS"
 
 
@@ -228,3 +230,32 @@ def test_command_defaults_agree_with_the_check():
     defaults = inspect.signature(check_crossover).parameters
     assert command.DEFAULT_BAND_HZ == defaults["band_hz"].default
     assert command.DEFAULT_TOLERANCE_DB == defaults["tolerance_db"].default
+
+
+def test_odd_order_butterworth_ways_sum_flat_either_way_90_degrees_apart_and_any_gain_is_told():
+    # Linkwitz 1976: odd-order Butterworth low- and high-pass are in quadrature (90 degrees
+    # apart) at every frequency, so the sum is flat in magnitude with either polarity
+    low, high = prototype(3, "low"), prototype(3, "high")
+    normal = analyse_ways(["low", "high"], [low, high])
+    (point,) = normal.crossovers
+    assert abs(point.phase_diff_deg) == pytest.approx(90.0, abs=1e-6)  # Linkwitz 1976
+    assert normal.max_dev_db < 1e-6  # flat: Linkwitz 1976
+    assert normal.polarity.quadrature
+    assert "both polarities sum flat" in normal.polarity.advice()
+    inverted = analyse_ways(["low", "high"], [low, lambda f: -high(f)])
+    assert inverted.max_dev_db < 1e-6 and inverted.polarity.invert == ()  # Linkwitz 1976
+
+
+def test_a_small_improvement_from_the_other_polarity_is_reported_not_hidden():
+    # As built (E96 / E12 parts), 3rd-order Butterworth ways with the tweeter inverted: both
+    # choices are nearly flat (Linkwitz 1976), part rounding makes normal slightly flatter
+    inverted = check_crossover(two_way("butterworth", 3, tweeter_polarity="inverted",
+                                       capacitors="E12"))  # fmt: skip
+    normal = check_crossover(two_way("butterworth", 3, capacitors="E12"))
+    advice = inverted.polarity
+    assert advice.best_dev_db == pytest.approx(normal.max_dev_db, abs=1e-9)  # the same sum
+    assert 0.001 <= advice.improvement_db < 0.1 and advice.invert == ()
+    text = advice.advice()
+    assert text.startswith("keep the polarities, or invert 'tweeter' for a slightly flatter sum")
+    assert f"{advice.current_dev_db:.3f} -> {advice.best_dev_db:.3f} dB" in text
+    assert "both polarities sum flat (odd order)" in text  # Linkwitz 1976: 90 degrees apart

@@ -13,7 +13,7 @@ import pytest
 import scipy.signal
 import scipy.stats
 
-from filtertwin import sallenkey
+from filtertwin import sallenkey, verdicts
 from filtertwin.checks.tolerance import (
     draw_parts,
     magnitude_sq,
@@ -151,7 +151,11 @@ def test_uniform_draws_stay_within_the_tolerance():
     dev = relative_deviations(design, draw_parts(design, 20000, distribution="uniform", seed=7))
     for kind, tol in (("R", 0.01), ("C", 0.05)):
         assert np.max(np.abs(dev[kind])) <= tol
-        assert np.std(dev[kind]) == pytest.approx(tol / math.sqrt(3), rel=0.01)  # uniform std
+        # standard deviation of a uniform distribution on [-t, t] is t / sqrt(3)
+        # (scipy.stats.uniform(-t, 2t).std(), the reference); 20000 draws: SE about 0.5 %
+        ref = scipy.stats.uniform(-tol, 2 * tol).std()
+        assert ref == pytest.approx(tol / math.sqrt(3), rel=1e-12)
+        assert np.std(dev[kind]) == pytest.approx(ref, rel=0.01)  # scipy.stats.uniform
 
 
 def test_envelope_and_yield_equal_a_per_build_loop_with_scipy_freqs():
@@ -299,6 +303,41 @@ def test_command_defaults_agree_with_the_check():
 
     assert command.DISTRIBUTIONS == check.DISTRIBUTIONS
     assert command.DEFAULT_RIPPLE_DB == check.DEFAULT_RIPPLE_DB
+    assert command.DEFAULT_YIELD_PCT == 100 * verdicts.DEFAULT_YIELD_TARGET
+
+
+def _tolerance_cli(*args: str) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "filtertwin", "tolerance", *args],
+                          capture_output=True, text=True, check=False)  # fmt: skip
+
+
+def test_tolerance_prints_a_yield_verdict_and_exits_1_below_the_target():
+    # README's exit-status table: 0 PASS, 1 a check failed; default target 90 %
+    args = ("studio-3way", "--builds", "200", "--seed", "1")
+    first = _tolerance_cli(*args, "--json")
+    data = json.loads(first.stdout)
+    pct = 100 * data["yield"]
+    assert data["min_yield"] == 0.9
+    assert first.returncode == (0 if pct >= 90 else 1) and data["verdict"] in ("PASS", "FAIL")
+    above = _tolerance_cli(*args, "--min-yield", f"{min(pct + 0.5, 100):g}")
+    if pct < 99.5:
+        assert above.returncode == 1, above.stderr
+        (line,) = [s for s in above.stdout.splitlines() if s.startswith("yield: design")]
+        assert line.startswith(f"yield: design FAIL ({pct:.1f} % of 200 builds")
+        assert above.stdout.splitlines()[-1].startswith("verdict: FAIL (1 of 1 failed: yield")
+    at = _tolerance_cli(*args, "--min-yield", f"{max(pct - 0.05, 0.01):.2f}")
+    assert at.returncode == 0 and at.stdout.splitlines()[-1] == "verdict: PASS (1 check)"
+    bad = _tolerance_cli("bookshelf-2way", "--builds", "50", "--min-yield", "120")
+    assert bad.returncode == 2 and bad.stdout == "" and bad.stderr.count("\n") == 1
+    assert "--min-yield: must be above 0 and at most 100" in bad.stderr
+
+
+def test_tolerance_of_one_filter_lists_only_that_filters_parts_under_the_worst_build():
+    run = _tolerance_cli("studio-3way", "--builds", "50", "--seed", "2", "--filter", "mid")
+    assert run.returncode in (0, 1), run.stderr
+    tail = run.stdout.split("worst build:")[1].splitlines()[1:]
+    parts = [s for s in tail if s.startswith("  ") and " stage " in s]
+    assert parts and all(s.startswith("  mid stage ") for s in parts)
 
 
 def test_a_design_spec_round_trip_keeps_every_filter_kind_renderable():

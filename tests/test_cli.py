@@ -106,3 +106,13 @@ def test_a_bad_option_value_is_one_line_naming_the_option(tmp_path):
     assert len(lines) == 1
     assert "argument --oversample: must be 1, 2, 4, 8 or auto, got '3'" in lines[0]
     assert "see 'filtertwin render --help'" in lines[0]
+
+
+def test_examples_say_once_above_the_list_that_they_are_invented(capsys):
+    from filtertwin import cli, examples
+
+    assert cli.main(["examples"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert "invented scenario" in out[0]  # STYLE: demo data says it is invented
+    listed = [line.split()[0] for line in out[1:] if line.startswith("  ")]
+    assert listed == examples.names()

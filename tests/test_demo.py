@@ -38,6 +38,17 @@ def test_demo_prints_the_verdicts_with_their_figures(demo):
     assert "open   filtertwin-demo/crossover/report.html" in out
 
 
+def test_demo_cautions_about_hearing_tweeters_and_mains_where_it_says_what_to_play(demo):
+    out = demo[0].stdout
+    tail = out[out.index("what to open and what to listen to") :]
+    listen = tail.index("listen ")
+    # common practice (REFERENCES.md, facts of the trade): loud playback harms hearing;
+    # full-range signal destroys tweeters; mains wiring follows local codes
+    for word in ("caution, hearing:", "caution, tweeters:", "caution, mains:"):
+        assert word in tail and tail.index(word) > listen, word
+    assert "never straight into a tweeter" in tail and "start playback quiet" in tail
+
+
 def test_demo_outputs_exist_and_parse(demo):
     _, folder = demo
     crossover = folder / "crossover"

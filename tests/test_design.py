@@ -96,12 +96,16 @@ def test_band_pass_is_a_high_pass_then_a_low_pass():
 def test_stages_are_ordered_lowest_q_first_and_peak_gain_reported():
     f = design(response="lowpass", alignment="chebyshev", ripple_db=1.0, order=6, corner=CORNER)
     qs = [s.target.q for s in f.stages]
+    # common practice (Williams & Taylor, Electronic Filter Design Handbook, cascade ordering):
+    # low-Q stages first so the peaking stage does not clip inside the filter
     assert qs == sorted(qs)
     f_rev = design(
         response="lowpass", alignment="chebyshev", ripple_db=1.0, order=6, corner=CORNER,
         stage_order="highest-q-first",
     )  # fmt: skip
-    # the high-Q stage first peaks inside the filter: more internal gain at stage 1
+    # the high-Q stage first peaks inside the filter: a 1 dB Chebyshev 6th order has a last
+    # stage Q of about 8 (Zverev's stage-Q tables, from memory), a peak near 20 log Q = 18 dB
+    # above the first stage's, so more than 6 dB is safe
     assert f_rev.stages[0].peak_gain_db > f.stages[0].peak_gain_db + 6
 
 
@@ -186,3 +190,37 @@ def test_synthesis_with_the_amplifier_model_picks_parts_that_stay_on_target_as_b
         if not math.isnan(s.target.q):
             assert s.built.q == pytest.approx(s.target.q, rel=0.02)
     assert d.warnings == ()
+
+
+def _built(stage: dict) -> list:
+    spec = {"filter": [{"name": "bench", "response": "lowpass",
+                        "stage": [{"topology": "unity", **stage}]}]}  # fmt: skip
+    return [str(w) for w in build_design(parse_design(spec, "<test>")).warnings]
+
+
+def test_a_given_circuit_with_q_23_is_warned_about_with_its_peak_and_part_range():
+    warned = _built({"R1": "10k", "R2": "10k", "C1": "2u2", "C2": "1n"})
+    # textbook unity-gain Sallen-Key with equal R: Q = sqrt(C1 / C2) / 2 (Horowitz & Hill
+    # 3rd ed. 6.3); a second-order low-pass peaks at Q / sqrt(1 - 1/(4 Q^2)) above DC
+    q = math.sqrt(2.2e-6 / 1e-9) / 2
+    peak_db = 20 * math.log10(q / math.sqrt(1 - 1 / (4 * q * q)))
+    (high_q,) = [w for w in warned if "is above 10" in w]
+    assert f"Q {q:.1f} is above 10" in high_q  # 23.5 (textbook closed form)
+    assert f"peaks {peak_db:+.1f} dB above the passband gain" in high_q  # +27.4 dB
+    (cap,) = [w for w in warned if w.startswith("bench stage 1: C1 = 2u2")]
+    assert "outside the part range 100p..1u" in cap  # the default capacitor range
+
+
+def test_a_tiny_capacitor_is_warned_about_strays():
+    warned = _built({"R1": "10k", "R2": "10k", "C1": "47p", "C2": "22p"})
+    assert any("C2 = 22p" in w and "stray" in w for w in warned)
+
+
+def test_resistors_above_1_megohm_get_their_noise_and_bias_current_offset():
+    warned = _built({"R1": "2M2", "R2": "2M2", "C1": "200p", "C2": "100p"})
+    (r1,) = [w for w in warned if w.startswith("bench stage 1: R1 = 2M2")]
+    # Johnson 1928 / Nyquist 1928: sqrt(4 k T R), k exact (SI brochure 2019), T = 298.15 K
+    noise_nv = math.sqrt(4 * 1.380649e-23 * 298.15 * 2.2e6) * 1e9
+    assert f"thermal noise is {noise_nv:.0f} nV/rtHz" in r1  # 190 nV/rtHz
+    assert "each 1 nA of amplifier input bias current through it makes 2.2 mV" in r1  # Ohm's law
+    assert not any("Q " in w and "is above 10" in w for w in warned)  # Q 0.707: no Q warning

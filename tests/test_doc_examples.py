@@ -11,8 +11,13 @@ MODULES = [
     "filtertwin.units",
     "filtertwin.eseries",
     "filtertwin.noise",
+    "filtertwin.resample",
     "filtertwin.checks.alias",
     "filtertwin.checks.foldpower",
+    "filtertwin.prototypes",
+    "filtertwin.archive.calibration",
+    "filtertwin.archive.windows",
+    "filtertwin.timestamps",
 ]
 
 

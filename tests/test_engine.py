@@ -454,3 +454,171 @@ def test_warm_up_leaves_only_float32_and_float64_kernels() -> None:
     runner = CascadeRunner(CHAINS[:1], channels=1, max_frames=8, dtype=np.float32)
     with pytest.raises(TypeError, match="dtype float64, this runner was built for float32"):
         runner.process(np.zeros((8, 1)))
+
+
+# --- slew-rate limiting ---------------------------------------------------------------------
+
+
+def slewed_cascade_reference(
+    sos: np.ndarray, levels: np.ndarray, steps: np.ndarray, x: np.ndarray
+) -> tuple[np.ndarray, list[int], list[int]]:
+    """Each section as its direct form I difference equation (Oppenheim & Schafer 6.3), its
+    output clamped to +/- level, then moved at most one step from the previous output, and
+    fed back limited: the discrete slew model written out independently of the runner.
+    Returns the last output and, per section, the clipped and the slewed sample counts."""
+    clipped, slewed = [], []
+    values = x
+    for (b0, b1, b2, _, a1, a2), level, step in zip(sos, levels, steps, strict=True):
+        y = np.zeros_like(values)
+        x1 = x2 = y1 = y2 = 0.0
+        n_clip = n_slew = 0
+        for n, xn in enumerate(values):
+            target = b0 * xn + b1 * x1 + b2 * x2 - a1 * y1 - a2 * y2
+            held = min(max(target, -level), level)
+            if abs(held - y1) > step:
+                v = y1 + step if held > y1 else y1 - step
+                n_slew += 1
+            else:
+                v = held
+                n_clip += abs(target) > level
+            y[n] = v
+            x1, x2, y1, y2 = xn, x1, v, y1
+        clipped.append(n_clip)
+        slewed.append(n_slew)
+        values = y
+    return values, clipped, slewed
+
+
+SLEW_SOS = unity_dc_sections(signal.butter(6, 0.2, output="sos"))
+SLEW_LEVELS = np.array([np.inf, 0.8, 0.9])
+SLEW_STEPS = np.array([0.05, np.inf, 0.04])
+
+
+def test_slew_limiting_matches_the_written_out_model_and_counts_by_section() -> None:
+    x = noise(2000, channels=2, seed=31) * 2.0
+    runner = CascadeRunner([SLEW_SOS], 2, 2000, clip_levels=[SLEW_LEVELS], slew_steps=[SLEW_STEPS])
+    y = runner.process(x)[0]
+    clipped, slewed = np.zeros(3, int), np.zeros(3, int)
+    for ch in range(2):
+        expected, n_clip, n_slew = slewed_cascade_reference(
+            SLEW_SOS, SLEW_LEVELS, SLEW_STEPS, x[:, ch]
+        )
+        # independent direct form I loop of the documented model (Oppenheim & Schafer 6.3)
+        np.testing.assert_allclose(y[:, ch], expected, rtol=0, atol=1e-9)
+        clipped += n_clip
+        slewed += n_slew
+    np.testing.assert_array_equal(runner.slew_counts[0], slewed)
+    np.testing.assert_array_equal(runner.clip_counts[0], clipped)
+    assert slewed[0] > 0 and slewed[2] > 0 and slewed[1] == 0
+    assert np.max(np.abs(np.diff(y, axis=0))) <= 0.04 + 1e-12  # the last section's step
+
+
+def test_limits_that_are_never_reached_leave_output_bit_identical_to_scipy_sosfilt() -> None:
+    x = noise(1531, channels=2, seed=32)
+    levels = [np.full(len(sos), 1e3) for sos in CHAINS]
+    steps = [np.full(len(sos), 1e2) for sos in CHAINS]  # < 2 x level: the slewing kernel runs
+    runner = CascadeRunner(CHAINS, 2, 1531, clip_levels=levels, slew_steps=steps)
+    y = runner.process(x)
+    for k, sos in enumerate(CHAINS):
+        # scipy.signal.sosfilt, bit for bit
+        np.testing.assert_array_equal(y[k], signal.sosfilt(sos, x, axis=0))
+    assert not runner.slew_counts.any() and not runner.clip_counts.any()
+
+
+@pytest.mark.parametrize("sizes", [[17], [509], [17, 0, 509, 0, 4]], ids=["17", "509", "mixed"])
+def test_slew_limited_output_in_chunks_equals_one_shot_output(sizes: list[int]) -> None:
+    x = noise(3001, channels=3, seed=33) * 2.0
+    chains = [SLEW_SOS, CHAINS[1]]
+    levels = [SLEW_LEVELS, np.full(len(CHAINS[1]), 1.5)]
+    steps = [SLEW_STEPS, np.full(len(CHAINS[1]), 0.1)]
+    whole = CascadeRunner(chains, 3, 3001, clip_levels=levels, slew_steps=steps)
+    expected = whole.process(x).copy()
+    chunked = CascadeRunner(chains, 3, 509, clip_levels=levels, slew_steps=steps)
+    got, start, i = [], 0, 0
+    while start < len(x):
+        size = min(sizes[i % len(sizes)], len(x) - start)
+        got.append(chunked.process(x[start : start + size]).copy())  # includes length 0
+        start += size
+        i += 1
+    # chunked equals one-shot (the habit of scipy's and python-soxr's tests)
+    np.testing.assert_array_equal(np.concatenate(got, axis=1), expected)
+    np.testing.assert_array_equal(chunked.slew_counts, whole.slew_counts)
+    np.testing.assert_array_equal(chunked.clip_counts, whole.clip_counts)
+    assert whole.slew_counts.sum() > 0
+
+
+@pytest.mark.parametrize("quiet_frames", [300, 301, 2], ids=["whole steps", "odd", "short"])
+def test_slew_limit_added_by_hot_swap_starts_from_the_true_previous_output(
+    quiet_frames: int,
+) -> None:
+    quiet = noise(quiet_frames, channels=2, seed=34) * 0.01
+    loud = noise(700, channels=2, seed=35) * 3.0
+    steps = np.full(3, 0.03)
+    # limited all along: the quiet part never reaches the step, so both runners agree there
+    limited = CascadeRunner([SLEW_SOS], 2, 700, slew_steps=[steps])
+    swapped = CascadeRunner([SLEW_SOS], 2, 700)
+    np.testing.assert_array_equal(limited.process(quiet), swapped.process(quiet))
+    assert not limited.slew_counts.any()
+    swapped.set_chain(0, SLEW_SOS, slew_steps=steps)
+    # the same model from the same previous outputs: identical afterwards
+    np.testing.assert_array_equal(swapped.process(loud), limited.process(loud))
+    assert swapped.slew_counts.sum() == limited.slew_counts.sum() > 0
+
+
+def test_reset_and_nonfinite_recovery_forget_the_previous_output() -> None:
+    x = noise(600, channels=1, seed=36) * 3.0
+    steps = [np.full(3, 0.03)]
+    runner = CascadeRunner([SLEW_SOS], 1, 600, slew_steps=steps)
+    runner.process(x)
+    runner.reset()
+    fresh = CascadeRunner([SLEW_SOS], 1, 600, slew_steps=steps)
+    np.testing.assert_array_equal(runner.process(x), fresh.process(x))
+    bad = x.copy()
+    bad[100, 0] = np.nan
+    runner.process(bad)
+    assert runner.nonfinite_resets == 1
+    fresh = CascadeRunner([SLEW_SOS], 1, 600, slew_steps=steps)
+    np.testing.assert_array_equal(runner.process(x), fresh.process(x))
+
+
+def test_set_chain_without_steps_keeps_them_and_bad_steps_are_refused() -> None:
+    x = noise(400, channels=1, seed=37) * 3.0
+    steps = [np.full(3, 0.03)]
+    runner = CascadeRunner([SLEW_SOS], 1, 400, slew_steps=steps)
+    runner.set_chain(0, SLEW_SOS, clip_levels=np.full(3, np.inf))
+    fresh = CascadeRunner([SLEW_SOS], 1, 400, slew_steps=steps)
+    np.testing.assert_array_equal(runner.process(x), fresh.process(x))
+    with pytest.raises(ValueError, match="slew steps of chain 0 must be > 0"):
+        runner.set_chain(0, SLEW_SOS, slew_steps=np.array([0.1, 0.0, 0.1]))
+    with pytest.raises(ValueError, match="slew_steps must have one array per chain"):
+        CascadeRunner([SLEW_SOS], 1, 400, slew_steps=[])
+
+
+def test_slew_limited_process_allocates_nothing_after_the_first_call() -> None:
+    x = noise(64, channels=2, seed=38)
+    steps = [np.full(len(sos), 0.01) for sos in CHAINS]
+    runner = CascadeRunner(CHAINS, channels=2, max_frames=64, slew_steps=steps)
+    runner.process(x)
+    # project rule: no buffer allocated on the real-time path (ARCHITECTURE.md, engine)
+    assert peak_bytes_allocated(lambda: runner.process(x), 200) < x.nbytes
+    assert runner.slew_counts.any()
+
+
+@pytest.mark.parametrize("frames", [300, 301], ids=["whole steps", "odd"])
+def test_a_new_runner_given_state_and_last_outputs_continues_a_slewing_stream_exactly(
+    frames: int,
+) -> None:
+    x = noise(frames + 400, channels=2, seed=39) * 3.0
+    steps = [np.full(3, 0.03)]
+    for first_steps in (steps, None):  # the first runner slewing, or not limited at all yet
+        old = CascadeRunner([SLEW_SOS], 2, 700, slew_steps=first_steps)
+        reference = CascadeRunner([SLEW_SOS], 2, 700, slew_steps=first_steps)
+        old.process(x[:frames])
+        reference.process(x[:frames])
+        reference.set_chain(0, SLEW_SOS, slew_steps=steps[0])
+        new = CascadeRunner([SLEW_SOS], 2, 700, slew_steps=steps)
+        new.state[...] = old.state
+        new.set_last_outputs(old.last_outputs)
+        # the same model from the same state and previous outputs: identical afterwards
+        np.testing.assert_array_equal(new.process(x[frames:]), reference.process(x[frames:]))
+        assert new.slew_counts.sum() > 0

@@ -7,6 +7,7 @@ from scipy import stats
 
 from filtertwin.errors import UserInputError
 from filtertwin.live.blind import (
+    HIDDEN_COLUMNS,
     LOG_COLUMNS,
     Answer,
     BlindSession,
@@ -91,11 +92,17 @@ def test_a_session_logs_every_answer_with_its_time(tmp_path):
         rows = list(csv.DictReader(f))
     assert tuple(rows[0]) == LOG_COLUMNS
     assert [r["time_s"] for r in rows] == ["2.500", "0.500"]
-    assert rows[0]["x_design"] == design_behind(plan, 1, "X")
-    assert rows[0]["correct"] == str(int(plan.x_is[0] == "A"))
+    assert [r["answer"] for r in rows] == ["A", "B"]
+    # during the trials nothing in the log tells X apart or how an answer fared
+    assert all(r[column] == "" for r in rows for column in HIDDEN_COLUMNS)
     assert not session.finished
     session.answer("A", 14.0)
     assert session.finished
+    session.end()  # the trials are over: the hidden columns are written
+    with path.open() as f:
+        rows = list(csv.DictReader(f))
+    assert rows[0]["x_design"] == design_behind(plan, 1, "X")
+    assert rows[0]["correct"] == str(int(plan.x_is[0] == "A"))
     assert sorted(p.name for p in tmp_path.iterdir()) == ["trials.csv"]  # no temporary left
     with pytest.raises(UserInputError, match="all trials are answered"):
         session.answer("A", 15.0)

@@ -26,6 +26,7 @@ from filtertwin.live.routing import (
     pair_gains,
 )
 from filtertwin.spec import load_design, parse_design
+from filtertwin.twin import build_twin
 
 RATE_HZ = 48000.0
 
@@ -137,11 +138,20 @@ def test_loudness_matching_finds_the_gain_difference_on_a_program():
 
 
 def test_the_program_through_a_twin_is_what_sosfilt_gives_below_the_swing():
-    made = cands.make_candidates([("b", load("bookshelf-2way"))])
-    (twin,) = cands.build_twins(made, RATE_HZ)
+    twin = build_twin(load("bookshelf-2way"), RATE_HZ, oversampling=1)
     x = 0.1 * np.random.default_rng(1).standard_normal((10000, 2))
     expected = sum(signal.sosfilt(f.sos, x, axis=0) for f in twin.filters)  # scipy sosfilt
     np.testing.assert_allclose(twin_output(x, twin), expected, rtol=0, atol=1e-13)
+
+
+def test_candidates_run_at_the_oversampling_render_picks_and_say_so():
+    made = cands.make_candidates([("b", load("bookshelf-2way")), ("r", load("turntable-rumble"))])
+    twins = cands.build_twins(made, RATE_HZ)
+    picked = [build_twin(c.design, RATE_HZ, oversampling="auto").oversampling for c in made]
+    assert {t.oversampling for t in twins} == {max(picked)}  # one runner, one rate
+    lines = cands.fidelity_lines(made, twins)
+    assert len(lines) == 3 and lines[0].startswith("A b 'woofer': twin at ")
+    assert all(f"oversampled {max(picked)}x, linear-phase resampling" in line for line in lines)
 
 
 def test_loudness_matching_needs_an_audio_rate():

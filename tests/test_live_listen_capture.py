@@ -25,7 +25,7 @@ from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.live.session import ListenSession
 from filtertwin.live.status import StatusReader, status_line
-from filtertwin.live.stream import PreFilter, StreamCore
+from filtertwin.live.stream import Oversampling, PreFilter, StreamCore
 from filtertwin.resample import ratio
 from filtertwin.spec import load_design
 from test_live_listen_cli import one_line_error, run
@@ -59,7 +59,9 @@ def prefilter_for(recording_hz, adc_hz, name="vibration-antialias", stream_hz=ST
     direct = capture.resampler(up, down, width)
     plan = capture.plan_capture(adc_hz, recording_hz, stream_hz, "test recording")
     adc = capture.AdcCapture(plan, width, capture.lag_s(direct, recording_hz))
-    prefilter = PreFilter(CascadeRunner(sos, 1, CHUNK, levels), direct, adc)
+    factor = twins[0].oversampling  # as listen runs them: oversampled as render would
+    over = Oversampling(factor, len(sos), 1, CHUNK, "linear", np.float64) if factor > 1 else None
+    prefilter = PreFilter(CascadeRunner(sos, 1, CHUNK * factor, levels), direct, adc, over)
     return prefilter, plan, candidates, twins
 
 
@@ -234,10 +236,10 @@ def test_capture_on_and_off_crossfades_between_the_signal_and_what_the_adc_captu
     # bypass: the spur where it is; its capture: at 1.3 kHz (Oppenheim & Schafer 4.2)
     assert levels[0][6700] == pytest.approx(-20.0, abs=0.1) and levels[0][1300] < -90
     assert levels[1][1300] == pytest.approx(-20.0, abs=0.1) and levels[1][6700] < -90
-    # A's capture: the alias lowered by the twin's response at 6.7 kHz (scipy.signal.sosfreqz;
-    # at 51.2 kHz the bilinear warping puts it 2.7 dB below the analog model's -58 dB)
-    sos = session.twins[0].filters[0].sos
-    h = signal.sosfreqz(sos, [6700.0], fs=recording_hz)[1][0]
+    # A's capture: the alias lowered by the twin's response at 6.7 kHz (scipy.signal.sosfreqz
+    # at the rate the twin runs; its resampling filters are flat there)
+    twin = session.twins[0]
+    h = signal.sosfreqz(twin.filters[0].sos, [6700.0], fs=twin.rate_hz)[1][0]
     assert levels[2][1300] == pytest.approx(-20 + 20 * np.log10(abs(h)), abs=0.1)
     assert levels[3][1300] < -120  # the filtered signal itself has nothing at 1.3 kHz
 
@@ -247,7 +249,9 @@ def test_the_status_line_says_when_the_adc_capture_is_heard():
     reader = StatusReader(session)
     assert "| ADC off |" in status_line(reader.facts())
     session.handle(parse_command("capture on"), 1.0)
-    assert re.match(r"A \| ADC 8 kHz \| low ", status_line(reader.facts()))
+    assert re.match(
+        r"A vibration-antialias \| ADC 8 kHz \| antialias ", status_line(reader.facts())
+    )
     session.handle(parse_command("capture"), 2.0)  # no word: switch
     assert not session.capture_on
 

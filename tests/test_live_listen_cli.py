@@ -38,12 +38,32 @@ def test_help_warns_about_hearing_and_tweeters_and_lists_the_keys():
     assert "full-range or low-frequency signal destroys tweeters" in text
     assert "press 0 again within 3 s" in text and "--ways-out" in text
     assert "part low 2 C1 +1" in text and "a/b/x listen" in text
+    # the typed commands, Esc, and t only with blind trials
+    for word in ("level DB", "select N|LABEL", "capture on|off", "confirm", "undo", "save FILE"):
+        assert word in text, word
+    assert "Esc cancels" in text and "(--abx N or --prefer N)" in text
+
+
+def test_the_key_table_lists_the_typed_commands_and_what_t_needs():
+    from filtertwin.live.keys import KEY_BINDINGS, RULES, help_text
+
+    text = help_text()
+    typed = text.split("commands, typed after e (Enter runs, Esc cancels)")[1]
+    for name in ("select", "solo", "mute", "level", "part", "corner", "undo", "redo", "edits",
+                 "save", "capture", "confirm", "listen", "answer", "bypass", "quit"):  # fmt: skip
+        assert name in typed and name in RULES, name
+    t_help = next(b.help for b in KEY_BINDINGS if b.key == "t")
+    assert "--abx or --prefer" in t_help
+    assert max(len(line) for line in text.splitlines()) <= 79  # fits an 80-column terminal
 
 
 def test_with_no_audio_server_both_commands_say_so_in_one_line():
     for args in (("devices",), ("listen", "candidate-bessel", "--input",
                                 "audio_samples/program_48k.wav")):  # fmt: skip
-        assert "no audio devices found: start an audio server" in one_line_error(run(*args))
+        line = one_line_error(run(*args))
+        assert "no audio devices found: start an audio server" in line
+        assert "'filtertwin devices'" not in line  # not the command just run: what to do
+        assert "then try again" in line
 
 
 def test_without_the_portaudio_library_the_fix_is_named(tmp_path):

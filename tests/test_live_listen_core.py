@@ -20,11 +20,14 @@ from filtertwin.live.stream import (
     BLOCKS,
     METER_FALL_DB_PER_S,
     STARVED_FRAMES,
+    Oversampling,
     PreFilter,
     StreamCore,
 )
+from filtertwin.render import render_array
 from filtertwin.resample import StreamResampler, design_filter
 from filtertwin.spec import load_design
+from filtertwin.twin import build_twin
 
 RATE_HZ = 48000.0
 BLOCK = 256
@@ -34,18 +37,25 @@ def load(name):
     return build_design(load_design(examples.resolve(name)))
 
 
-def setup(names, channels=2, ways_out=False, ramp_s=0.001, level_db=0.0):
-    """A core fed from a ring, and its session, as prepare() makes them (no device)."""
+def setup(names, channels=2, ways_out=False, ramp_s=0.001, level_db=0.0, oversampled=False):
+    """A core fed from a ring, and its session, as prepare() makes them (no device); the
+    twins at 1x (the mixing is what most tests here check) unless ``oversampled``, when
+    they run at the factor render picks, resampled in the callback as listen runs them."""
     candidates = cands.make_candidates([(n, load(n)) for n in names])
-    twins = cands.build_twins(candidates, RATE_HZ)
+    if oversampled:
+        twins = cands.build_twins(candidates, RATE_HZ)
+    else:
+        twins = tuple(build_twin(c.design, RATE_HZ, oversampling=1) for c in candidates)
     sos, levels = cands.chains(twins)
     pair_ways = cands.output_ways(candidates) if ways_out else routing.STEREO_MIX
-    runner = CascadeRunner(sos, channels, BLOCK, levels, dtype=np.float32)
+    factor = twins[0].oversampling  # as prepare() runs them: oversampled as render would
+    runner = CascadeRunner(sos, channels, BLOCK * factor, levels, dtype=np.float32)
+    over = Oversampling(factor, len(sos), channels, BLOCK) if factor > 1 else None
     ring = BlockRing(1, 64 * BLOCK, channels)
     core = StreamCore(
         n_chains=len(sos), channels=channels, block_frames=BLOCK, rate_hz=RATE_HZ,
         runner=runner, ring=ring, safety=OutputSafety(RATE_HZ, level_db, ramp_s=ramp_s),
-        pairs=max(1, len(pair_ways)),
+        pairs=max(1, len(pair_ways)), oversampling=over,
     )  # fmt: skip
     core.prime()
     messages = []
@@ -218,3 +228,23 @@ def test_a_block_of_an_unexpected_size_is_silence_and_counted(frames):
     core.process(None, out, False)
     assert not np.any(out)
     assert core.counters[3] == 1
+
+
+def test_oversampled_twins_play_what_the_offline_render_gives_with_the_dry_input_in_step():
+    core, _, twins, _ = setup(["candidate-butterworth", "candidate-bessel"], oversampled=True)
+    assert twins[0].oversampling == 8 and core.oversampling is not None
+    delay = core.oversampling.delay_frames
+    x = noise(40 * BLOCK)
+    played = []
+    for start in range(0, len(x), BLOCK):
+        core.ring.write(np.ascontiguousarray(x[None, start : start + BLOCK]))
+        core.ring.read_into(core.sources)
+        played.append(core.oversampling.process(core.runner, core.dry)[0].copy())
+        np.testing.assert_array_equal(  # the dry input, delayed as much as the chains
+            core.dry, np.concatenate([np.zeros((delay, 2), np.float32), x])[start : start + BLOCK]
+        )
+    live = np.concatenate(played)[delay:].astype(np.float64)
+    # the offline render in float64 (render's resamplers, scipy-checked in test_render.py),
+    # delay taken out: equal to float32 rounding
+    offline = render_array(twins[0], x.astype(np.float64), 4096)[0]
+    np.testing.assert_allclose(live, offline[: len(live)], rtol=0, atol=2e-6)

@@ -25,7 +25,7 @@ def settle(core, blocks=8):
 def test_select_solo_and_mute_set_the_mix_and_say_what_is_heard():
     core, session, _, said = setup(["studio-3way", "bookshelf-2way"])
     session.handle(cmd("select", "B"), 1.0)
-    assert said[-1].startswith("now: B (bookshelf-2way), ways low+high")
+    assert said[-1].startswith("now: B (bookshelf-2way), ways woofer+tweeter")
     session.handle(cmd("solo", "high"), 2.0)
     session.handle(cmd("select", "1"), 3.0)
     settle(core)
@@ -121,21 +121,27 @@ def test_edits_are_refused_during_blind_trials(tmp_path):
     assert "answer A or B" in said[-1]
 
 
-def test_a_part_edit_swaps_the_chain_and_keeps_its_state():
+def test_a_part_edit_ends_with_the_new_sections_in_the_chain_itself():
     core, session, twins, said = setup(["candidate-butterworth", "candidate-bessel"])
-    x = noise(24 * BLOCK, amplitude=0.1)
+    x = noise(80 * BLOCK, amplitude=0.1)
     play(core, x[: 12 * BLOCK])
     runner = core.runner
-    zi = runner.state[0, :4].transpose(0, 2, 1).copy()  # scipy's zi layout (sections, 2, ch)
     session.handle(cmd("part", "topcut", "2", "C1", "+1"), 1.0)
-    assert core.runner is runner  # same section count: set_chain, no new runner
     assert "A topcut stage 2: C1 = 33n (was 27n)" in said[-1]
     assert "as built f0" in said[-1] and "(was f0" in said[-1]
+    assert core.blend is not None  # a warm spare carries the change in
+    start = 12 * BLOCK
+    while session.edits_pending:
+        play(core, x[start : start + BLOCK])
+        session.poll()
+        start += BLOCK
+    assert core.blend is None and core.runner is runner  # same section count: set_chain
     new_sos = session.twins[0].filters[0].sos
     assert not np.array_equal(new_sos, twins[0].filters[0].sos)
-    out = play(core, x[12 * BLOCK : 13 * BLOCK])
-    # the new coefficients from the old state on: scipy.signal.sosfilt with zi
-    expected, _ = signal.sosfilt(new_sos, x[12 * BLOCK : 13 * BLOCK].astype(np.float64),
+    zi = runner.state[0, :4].transpose(0, 2, 1).copy()  # scipy's zi layout (sections, 2, ch)
+    out = play(core, x[start : start + BLOCK])
+    # the new coefficients from the chain's own state on: scipy.signal.sosfilt with zi
+    expected, _ = signal.sosfilt(new_sos, x[start : start + BLOCK].astype(np.float64),
                                  axis=0, zi=zi)  # fmt: skip
     np.testing.assert_array_equal(out, expected.astype(np.float32))
 
@@ -167,12 +173,15 @@ def test_the_status_line_reports_what_the_callback_measured():
     assert facts.limiting  # driven into the ceiling
     # the stages that the analog model says a full-scale sine clips (design.Stage.clip_input_dbfs)
     stages = session.candidates[0].design.filters[0].stages
-    expected = tuple(f"low s{s.index}" for s in stages if s.clip_input_dbfs < 0)
-    assert facts.clipping == expected == ("low s2",)
-    assert facts.way_peaks[0][0] == "low" and facts.way_peaks[0][1] > 1.0
+    expected = tuple(f"voice s{s.index}" for s in stages if s.clip_input_dbfs < 0)
+    assert facts.clipping == expected == ("voice s2",)
+    assert facts.way_peaks[0][0] == "voice" and facts.way_peaks[0][1] > 1.0  # the design's name
     assert facts.elapsed_s == 1.5
     line = status_line(facts)
-    assert "xruns 1" in line and "clip low s2" in line and "LIMIT" in line and "load 3 %" in line
+    assert "xruns 1" in line and "clip voice s2" in line and "load 3 %" in line
+    # the limiter's gain reduction now, from the safety's own state
+    limit_db = 20 * np.log10(core.safety.limiter_gain)
+    assert f"limit {limit_db:.1f} dB" in line and limit_db < -1.0
     summary = "\n".join(summary_lines(session, 1.5))
     assert "1 xruns" in summary and "A low stage 2:" in summary
 
@@ -192,3 +201,60 @@ def test_arrow_keys_are_dropped_whole_and_escape_still_cancels_a_line():
     editor.open()
     editor.key("p")
     assert editor.key("\x1b") is None and not editor.active
+
+
+def test_way_state_carries_across_candidates_and_never_plays_silence_unannounced():
+    core, session, _, said = setup(["studio-3way", "bookshelf-2way"])
+    session.handle(cmd("mute", "mid"), 1.0)
+    session.handle(cmd("select", "B"), 2.0)  # a 2-way candidate after a mute of mid: fine
+    assert said[-1].startswith("now: B (bookshelf-2way), ways woofer+tweeter")
+    session.handle(cmd("select", "A"), 2.5)
+    session.handle(cmd("solo", "mid"), 3.0)
+    session.handle(cmd("select", "B"), 4.0)  # no mid way: all of B is heard, and said
+    assert "(B has no mid way: all its ways are heard)" in said[-1]
+    session.handle(cmd("solo", "low"), 5.0)
+    session.handle(cmd("mute", "low"), 6.0)  # ends the solo: everything but low
+    assert said[-1].startswith("now: B (bookshelf-2way), ways tweeter")
+    session.handle(cmd("mute", "high"), 6.5)  # would leave nothing: refused
+    assert "would leave nothing to hear" in said[-1]
+    session.handle(cmd("solo", "sum"), 7.0)
+    settle(core)
+    reader = StatusReader(session)
+    assert reader.facts().ways == "all ways" == session.ways_heard()
+    # A's three chains silent, B's two at their level, the dry input off (chain order)
+    np.testing.assert_array_equal(core.mixers[0].gains, [0, 0, 0, 1, 1, 0])
+
+
+def test_a_single_filter_way_goes_by_the_designs_name():
+    core, session, _, said = setup(["candidate-butterworth", "bookshelf-2way"])
+    reader = StatusReader(session)
+    assert [w for w, _ in reader.facts().way_peaks] == ["topcut"]
+    session.handle(cmd("solo", "topcut"), 1.0)
+    assert said[-1].startswith("now: A (candidate-butterworth), ways topcut")
+    session.handle(cmd("solo", "high"), 2.0)
+    assert "candidate A has no 'high' way; its ways are topcut (low)" in said[-1]
+
+
+def test_the_status_line_fits_the_terminal_and_warns_of_an_input_over_full_scale():
+    core, session, _, _ = setup(["bookshelf-2way"])
+    session.handle(cmd("part", "woofer", "2", "C1", "+1"), 0.5)
+    now = [10.0]
+    reader = StatusReader(session, clock=lambda: now[0])
+    t = np.arange(8 * BLOCK) / RATE_HZ
+    x = np.repeat(1.5 * np.sin(2 * np.pi * 440.0 * t)[:, None], 2, axis=1)  # +3.5 dBFS
+    play(core, x)
+    facts = reader.facts()
+    full = status_line(facts)
+    assert full.startswith("A bookshelf-2way (edited) | INPUT OVER 0 dBFS | all ways | ")
+    assert "woofer " in full and "tweeter " in full and "cb " in full
+    for width in (60, 80, 100, 120):
+        line = status_line(facts, width)
+        assert len(line) <= width - 1  # never wraps
+        assert line.startswith("A bookshelf-2way (edited) | INPUT OVER 0 dBFS")
+    assert "woofer " not in status_line(facts, 80)  # the meters go before the name
+    play(core, np.zeros((1400 * BLOCK, 2), np.float32))  # 7.5 s of silence
+    now[0] += 7.5
+    quiet = reader.facts()
+    assert not quiet.input_over
+    # after 7.5 s at 20 dB/s (our fall rate) the held peaks are below -120 dBFS: "-inf"
+    assert "woofer ........  -inf" in status_line(quiet) and "out  -inf dBFS" in status_line(quiet)

@@ -23,6 +23,7 @@ from scipy import signal, stats
 from filtertwin import eseries, sallenkey
 from filtertwin.live.tap import SignalTap
 from filtertwin.live.window import open_window
+from filtertwin.render import render_array
 from test_live_listen_stream import (
     PREROLL,
     RATE_HZ,
@@ -191,8 +192,10 @@ def test_clicking_candidate_b_makes_the_output_b_s_twin(tmp_path, jack_server, b
     y = recorder.data[: recorder.position, 0].astype(np.float64)
     xruns = int(player.core.counters[1]) + recorder.xruns
     start, end = signal_start(y[:, None]), int(np.max(np.nonzero(y)))
-    # scipy.signal.sosfilt of each twin on the looped file: the reference for what is heard
-    refs = [signal.sosfilt(t.filters[0].sos, looped) for t in player.session.twins]
+    # each twin on the looped file as render runs it (its resamplers included: checked
+    # against scipy.signal.upfirdn and sosfilt in test_render.py): the reference for what is
+    # heard; where_in finds each stretch at any offset, so the live delay does not matter
+    refs = [render_array(t, looped[:, None], 16384)[0, :, 0] for t in player.session.twins]
     first = heard_as(y, refs, np.linspace(start + 0.1 * RATE_HZ, clicked_at - 2048, 8, dtype=int))
     last = heard_as(y, refs, np.linspace(end - 0.6 * RATE_HZ, end - 1024, 8, dtype=int))
     assert 1 not in first and 0 not in last, (first, last)  # never the other candidate
@@ -244,9 +247,12 @@ def test_stepping_a_capacitor_moves_the_card_the_plot_and_the_sound_without_a_cl
     assert redrawn
     # the sound: before and after the edit the sine has the old and the new twin's gain
     # (scipy.signal.sosfreqz of each twin); amplitudes fitted on short stretches, median
-    old_gain = abs(signal.sosfreqz(player_twin_sos(old_design), [f_hz], fs=RATE_HZ)[1][0])
+    # (at the rate the twin runs: oversampled, its resamplers flat to 1e-6 dB at 3 kHz)
+    twin_hz = player.session.twins[0].rate_hz
+    old_sos = player_twin_sos(old_design, player.session.twins[0].oversampling)
+    old_gain = abs(signal.sosfreqz(old_sos, [f_hz], fs=twin_hz)[1][0])
     new_sos = player.session.twins[0].filters[0].sos
-    new_gain = abs(signal.sosfreqz(new_sos, [f_hz], fs=RATE_HZ)[1][0])
+    new_gain = abs(signal.sosfreqz(new_sos, [f_hz], fs=twin_hz)[1][0])
     assert abs(new_gain - old_gain) > 0.02  # the step is audible at 3 kHz
     y = recorder.data[: recorder.position, 0].astype(np.float64)
     start, end = signal_start(y[:, None]), int(np.max(np.nonzero(y)))
@@ -273,10 +279,10 @@ def stretch_amplitude(y: np.ndarray, f_hz: float, frames: int = 2048) -> float:
     return float(np.median(fits))
 
 
-def player_twin_sos(design) -> np.ndarray:
+def player_twin_sos(design, oversampling: int) -> np.ndarray:
     from filtertwin.twin import build_twin
 
-    return build_twin(design, RATE_HZ).filters[0].sos
+    return build_twin(design, RATE_HZ, oversampling=oversampling).filters[0].sos
 
 
 def sine_amplitude(y: np.ndarray, f_hz: float) -> float:

@@ -208,6 +208,8 @@ def test_sections_from_poles_groups_conjugates_and_pairs_real_poles():
     # (s + 1)(s + 4): w0 = 2, Q = 2 / 5; (s^2 + s + 1): w0 = 1, Q = 1 (algebra)
     poles = np.array([-4.0, -0.5 - 1j * math.sqrt(3) / 2, -1.0, -0.5 + 1j * math.sqrt(3) / 2])
     got = sections_from_poles(poles)
+    # pairing: (s - p)(s - p*) = s^2 - 2 Re(p) s + |p|^2, so w0 = |p| and Q = |p| / (-2 Re p)
+    # (Williams & Taylor, Electronic Filter Design Handbook, section from poles)
     assert [s.order for s in got] == [2, 2]
     assert (got[0].f0_ratio, got[0].q) == pytest.approx((2.0, 0.4))
     assert (got[1].f0_ratio, got[1].q) == pytest.approx((1.0, 1.0))
@@ -215,6 +217,7 @@ def test_sections_from_poles_groups_conjugates_and_pairs_real_poles():
 
 def test_sections_from_poles_leaves_the_smallest_real_pole_first_order():
     got = sections_from_poles(np.array([-3.0, -0.5, -2.0]))
+    # algebra: (s + 2)(s + 3) = s^2 + 5 s + 6, so w0 = sqrt(6) and Q = sqrt(6) / 5
     assert got[0].order == 1 and got[0].f0_ratio == 0.5
     assert (got[1].f0_ratio, got[1].q) == pytest.approx((math.sqrt(6.0), math.sqrt(6.0) / 5.0))
 

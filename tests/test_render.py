@@ -191,6 +191,29 @@ def test_a_hot_input_clips_at_the_stage_whose_output_reaches_the_swing(tmp_path)
     assert np.abs(out).max() <= twin.filters[0].clip_fs[-1] * (1 + 1e-6)
 
 
+def test_render_exits_1_on_an_amplifier_swing_fail_and_0_when_every_check_passes(tmp_path):
+    design = _design("turntable-rumble")  # a twin within its fidelity tolerance at 48 kHz
+    twin = build_twin(design, RATE_HZ, oversampling="auto")
+    t = np.arange(RATE_HZ // 4) / RATE_HZ
+    quiet = np.column_stack([0.01 * np.sin(2 * np.pi * 100.0 * t)] * 2)
+    hot = 2.0 * twin.filters[0].clip_fs.min() / 0.01 * quiet  # twice the swing, full-scale units
+    for name, data, status in (("quiet", quiet, 0), ("hot", hot, 1)):
+        source = _float_wav(tmp_path / f"{name}.wav", data)
+        run = subprocess.run(
+            [sys.executable, "-m", "filtertwin", "render", "turntable-rumble", str(source),
+             "--out", str(tmp_path / name), "--no-report"],
+            capture_output=True, text=True, check=False,
+        )  # fmt: skip
+        # README's exit-status table: 0 every check passed, 1 a check failed
+        assert run.returncode == status, run.stdout + run.stderr
+        lines = run.stdout.splitlines()
+        assert lines[-1].startswith("verdict: PASS" if status == 0 else "verdict: FAIL")
+        (swing,) = [s for s in lines if s.startswith("amplifier swing: filter 'rumble'")]
+        assert swing.split()[4] == ("PASS" if status == 0 else "FAIL"), swing
+    # the outputs of a FAIL are kept: the user listens to what failed
+    assert (tmp_path / "hot" / "rumble.wav").exists()
+
+
 def test_peak_levels_are_the_sample_peaks_of_the_written_files(tmp_path):
     x = _noise(SHORT_FRAMES, level=0.3)
     source = _float_wav(tmp_path / "in.wav", x)

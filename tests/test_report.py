@@ -161,9 +161,11 @@ def test_design_sections_list_every_stage_and_its_parts():
     design = _design()
     sections = summary.design_sections(design)
     assert [s.heading for s in sections] == [
-        f"Filter '{f.name}': stages and parts" for f in design.filters
+        "Design: amplifier, parts and warnings",
+        *(f"Filter '{f.name}': stages and parts" for f in design.filters),
+        "Parts list",
     ]
-    for section, f in zip(sections, design.filters, strict=True):
+    for section, f in zip(sections[1:-1], design.filters, strict=True):
         (stage_header, stage_rows), (parts_header, parts_rows) = section.tables
         assert len(stage_rows) == len(parts_rows) == len(f.stages)
         for row, stage in zip(parts_rows, f.stages, strict=True):
@@ -207,3 +209,140 @@ def test_render_report_lists_every_file_and_figure(tmp_path):
     assert data["noise"]["filters"]["woofer"]["rms_v"] == pytest.approx(noise.filters[0].rms_v)
     assert data["noise"]["sum"]["snr_db"] == pytest.approx(noise.sum.snr_db)
     assert "Circuit noise" in page
+
+
+def _as_built_lowpass(c1: str, c2: str, r2: str = "10k"):
+    from filtertwin.design import build_design
+    from filtertwin.spec import parse_design
+
+    spec = {"filter": [{"name": "lp", "response": "lowpass", "stage": [
+        {"topology": "unity", "R1": "10k", "R2": r2, "C1": c1, "C2": c2}]}]}  # fmt: skip
+    return build_design(parse_design(spec, "<test>")).filters[0]
+
+
+def test_a_near_butterworth_stage_is_called_close_to_butterworth_with_its_q_and_minus_3_db():
+    import math
+
+    import scipy.optimize
+    import scipy.signal
+
+    from filtertwin.report.design_text import resemblance
+
+    f = _as_built_lowpass("22n", "10n", r2="12k")
+    # textbook unity-gain Sallen-Key low-pass (Horowitz & Hill 3rd ed. 6.3):
+    # w0 = 1 / sqrt(R1 R2 C1 C2), Q = sqrt(R1 R2 C1 C2) / (C2 (R1 + R2))
+    r1, r2, c1, c2 = 10e3, 12e3, 22e-9, 10e-9
+    w0 = 1 / math.sqrt(r1 * r2 * c1 * c2)
+    q = math.sqrt(r1 * r2 * c1 * c2) / (c2 * (r1 + r2))
+    # Butterworth Q of a 2nd-order section is 1/sqrt(2) (scipy.signal.butter's poles)
+    high_pct = 100 * (q * math.sqrt(2) - 1)
+
+    def level_db(f_hz: float) -> float:  # scipy.signal.freqs of the same textbook section
+        _, h = scipy.signal.freqs([w0 * w0], [1, w0 / q, w0 * w0], worN=[2 * math.pi * f_hz])
+        return 20 * math.log10(abs(h[0])) + 3.0
+
+    f3 = scipy.optimize.brentq(level_db, w0 / (2 * math.pi) / 2, 2 * w0 / (2 * math.pi))
+    text = resemblance(f)
+    assert text.startswith(f"close to Butterworth, Q {high_pct:.0f} % high, -3 dB at ")
+    shown = text.split("-3 dB at ")[1]
+    assert float(shown.split()[0]) * (1e3 if "kHz" in shown else 1) == pytest.approx(f3, rel=1e-3)
+    assert "Chebyshev" not in text
+
+
+def test_a_stage_with_real_ripple_keeps_its_chebyshev_name():
+    from filtertwin.report.design_text import resemblance
+
+    # Chebyshev 1 dB 2nd order: Q = 0.9565 (Williams & Taylor table, from memory); with equal
+    # resistors C1 / C2 = 4 Q^2 = 3.66 (common practice, REFERENCES.md)
+    text = resemblance(_as_built_lowpass("36.6n", "10n"))
+    assert text.startswith("Chebyshev 1.0") and "ripple" in text and "close to" not in text
+
+
+def test_the_report_names_the_amplifier_parts_warnings_and_every_part():
+    from filtertwin.design import build_design
+    from filtertwin.spec import parse_design
+
+    spec = {"amplifier": {"preset": "low-noise bipolar"},
+            "parts": {"resistors": "E24", "capacitors": "E6"},
+            "filter": [{"name": "big", "response": "lowpass", "stage": [
+                {"topology": "unity", "R1": "2M2", "R2": "2M2", "C1": "200p", "C2": "100p"}]},
+                {"name": "lp", "response": "lowpass", "alignment": "butterworth", "order": 4,
+                 "corner": "1k"}]}  # fmt: skip
+    design = build_design(parse_design(spec, "<test>"))
+    overview, *_, parts = summary.design_sections(design)
+    text = " ".join(overview.paragraphs)
+    assert "Amplifier: low-noise bipolar" in text
+    assert "resistors E24 +/-5 %" in text and "capacitors E6 +/-20 %" in text  # series defaults
+    assert sum(p.startswith("Warning: big stage 1: R1 = 2M2") for p in overview.paragraphs) == 1
+    ((header, rows),) = parts.tables
+    assert header[:2] == ("designator", "value")
+    assert len(rows) == sum(len(s.circuit.parts()) for f in design.filters for s in f.stages)
+
+
+def test_the_crossover_plot_unwraps_its_phase_and_reaches_60_db_down(tmp_path):
+    import math
+
+    import matplotlib.pyplot as plt
+    import scipy.signal
+
+    from filtertwin.report import check_figures
+
+    # LR4 sum = all-pass, phase falling 0 -> -360 degrees (Linkwitz 1976); scipy.signal.freqs
+    b, a = scipy.signal.butter(2, 2 * math.pi * 2200.0, analog=True)
+    w = 2 * math.pi * np.geomspace(10.0, 40000.0, 800)
+    _, h = scipy.signal.freqs(b, a, worN=w)
+    bh, ah = scipy.signal.butter(2, 2 * math.pi * 2200.0, "high", analog=True)
+    _, hh = scipy.signal.freqs(bh, ah, worN=w)
+    allpass = h * h + hh * hh
+    deg = check_figures._unwrapped_deg(allpass)
+    assert np.max(np.abs(np.diff(deg))) < 10  # no 360-degree jumps
+    # the LR4 sum is the 2nd-order all-pass (1 - j a x - x^2) / (1 + j a x - x^2), a = sqrt 2,
+    # x = f / fc (Linkwitz 1976): its phase is -2 atan2(a x, 1 - x^2), continuous in x
+    x = w / (2 * math.pi * 2200.0)
+    closed_form = -2 * np.degrees(np.arctan2(math.sqrt(2) * x, 1 - x * x))
+    np.testing.assert_allclose(deg, closed_form, atol=1e-6)
+    fig, ax = plt.subplots()
+    check_figures._phase_axis(ax, [deg])
+    lo, hi = ax.get_ylim()
+    assert lo <= -360 and hi >= 0 and lo % 90 == 0 and hi % 90 == 0
+    plt.close(fig)
+    # common practice: show the ways well into their stopbands (an LR4 way falls 24 dB an
+    # octave, Linkwitz 1976: 60 dB spans 2.5 octaves past the crossover)
+    assert check_figures.CROSSOVER_FLOOR_DB >= 60
+
+
+def test_the_tolerance_panels_measure_the_worst_build_where_the_check_does():
+    from filtertwin.checks.tolerance import WORST_WINDOW_DB, run_tolerance
+    from filtertwin.report import check_figures
+
+    design = _design("studio-3way")
+    result = run_tolerance(design, 200, seed=1)
+    overall = max(check_figures.worst_here_db(ft) for ft in result.filters)
+    # the red curve is the worst build overall: its largest deviation within 20 dB of the
+    # passband, over the filters, is the deviation the check reports for it
+    assert overall == pytest.approx(result.worst_deviation_db, rel=1e-9)
+    assert WORST_WINDOW_DB == 20.0
+    for ft in result.filters:  # no build of a filter deviates more than its panel says
+        assert check_figures.worst_here_db(ft) <= ft.worst_deviation_db + 1e-12
+
+
+def test_the_spectra_plot_names_the_roll_off_toward_nyquist():
+    import matplotlib.pyplot as plt
+
+    from filtertwin.report import figures
+    from filtertwin.twin import build_twin, resampling_response
+
+    twin = build_twin(_design("bookshelf-2way"), 48000.0, oversampling=4)
+    f = np.linspace(10.0, 24000.0, 4000)
+    fig, (top, bottom) = plt.subplots(2)
+    figures._mark_nyquist_rolloff((top, bottom), twin, f)
+    (label,) = [t for t in bottom.get_legend_handles_labels()[1] if "Nyquist" in t]
+    assert label == "resampling filters of the 4x twin roll off toward Nyquist (24 kHz)"
+    # the shading starts where the resampling filters (filtertwin.resample, the FIR of
+    # scipy.signal.resample_poly) have lost 0.1 dB
+    loss = -20 * np.log10(np.abs(resampling_response(4, f, twin.rate_hz, twin.resampling)))
+    start = f[loss > figures.ROLLOFF_DB][0]
+    (patch,) = bottom.patches
+    assert patch.get_x() == pytest.approx(start)
+    assert patch.get_x() + patch.get_width() == pytest.approx(24000.0)  # Nyquist of 48 kHz
+    plt.close(fig)

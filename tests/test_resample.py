@@ -159,7 +159,9 @@ def test_a_twin_outside_its_tolerance_is_printed_and_render_exits_1(tmp_path, ca
     printed = capsys.readouterr().out
     # README's exit-status table: "1 a check failed"
     assert status == 1
-    assert "fidelity: filter 'woofer' FAIL (tolerance 0.1 dB, 1 deg)" in printed
+    (line,) = [s for s in printed.splitlines() if s.startswith("twin fidelity: filter 'woofer'")]
+    assert " FAIL (" in line and line.endswith("; tolerance 0.1 dB, 1 deg)")
+    assert printed.splitlines()[-1].startswith("verdict: FAIL")
 
 
 def test_auto_runs_a_corner_above_the_recordings_nyquist_frequency():
@@ -181,3 +183,27 @@ def test_the_hint_blames_the_resamplers_only_when_the_sections_are_faithful():
     # the causal filters' phase near 20 kHz is theirs, not the sections' (sections alone
     # within 1 degree: scipy.signal.sosfreqz against the analog model in measure_fidelity)
     assert "causal resampling filters" in high and "steep skirt" not in high
+
+
+def test_the_twin_error_panel_shows_what_the_fidelity_line_reports(monkeypatch, tmp_path):
+    from filtertwin.report import figures
+
+    drawn = []
+    monkeypatch.setattr(figures, "save_png", lambda fig, path: drawn.append(fig) or path)
+    design = _studio()
+    twin = build_twin(design, 44100.0, oversampling=2)  # resamplers and sections both count
+    figures.response_figure(tmp_path / "r.png", design, twin, "t")
+    error_axes = drawn[0].axes[3]
+    top = twin.filters[0].fidelity.band_hz[1]
+    for ft, line in zip(twin.filters, error_axes.get_lines(), strict=False):
+        f, err = np.asarray(line.get_xdata()), np.asarray(line.get_ydata())
+        inside = (f <= top) & np.isfinite(err)
+        # the panel's largest error in the band is the fidelity line's (scipy.signal.sosfreqz
+        # of the sections times the resamplers' response; grids differ, so 2 % apart)
+        assert np.max(np.abs(err[inside])) == pytest.approx(ft.fidelity.max_db, rel=0.02, abs=2e-3)
+        if ft.name == "high":  # above the band the resamplers' own roll-off is drawn
+            hr = resampling_response(2, f[-1:], twin.rate_hz)
+            expected = 20 * np.log10(abs(signal.sosfreqz(ft.sos, f[-1:], fs=twin.rate_hz)[1][0]))
+            analog = 20 * np.log10(abs(design.filter("high").frequency_response(f[-1:])[0]))
+            assert err[-1] == pytest.approx(expected + 20 * np.log10(abs(hr[0])) - analog, abs=0.01)
+            assert err[-1] < -3.0  # they roll off before Nyquist

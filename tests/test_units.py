@@ -263,3 +263,67 @@ def test_format_si_reads_back_within_its_rounding(value, unit, digits):
     # rounding to `digits` significant figures: relative error at most 0.5 * 10**(1 - digits)
     back = parse_quantity(format_si(value, unit, digits), unit, allow_negative=True)
     assert abs(back - value) <= 0.5 * 10.0 ** (1 - digits) * abs(value) * (1 + 1e-9)
+
+
+@pytest.mark.parametrize(
+    ("text", "unit", "expected"),
+    [
+        # SI brochure 9th ed. (2019) 3: unit symbols are case-sensitive, but these wrong-case
+        # spellings name no other unit or prefix, so a person means the value shown
+        ("2.2 kHZ", "Hz", 2.2e3),
+        ("1 hz", "Hz", 1.0),
+        ("10 nf", "F", 10e-9),
+        ("10 uf", "F", 10e-6),
+        ("100 pf", "F", 100e-12),
+        ("4.7 kOHM", "ohm", 4.7e3),
+        ("2 ma", "A", 2e-3),
+        ("500 mv", "V", 0.5),
+    ],
+)
+def test_unit_letters_in_the_wrong_case_are_read_when_nothing_is_ambiguous(text, unit, expected):
+    assert parse_quantity(text, unit) == pytest.approx(expected, rel=1e-15)  # SI brochure 3
+
+
+def test_prefixes_keep_their_case_milli_is_not_mega():
+    # SI brochure 9th ed. (2019) table 7: m = 1e-3, M = 1e6
+    assert parse_quantity("1 mHz") == pytest.approx(1e-3)
+    assert parse_quantity("1 MHz") == pytest.approx(1e6)
+    with pytest.raises(ValueError, match=r"'N' is not a prefix .*; write nF$"):
+        parse_quantity("10 NF")
+
+
+@pytest.mark.parametrize(
+    ("text", "match"),
+    [
+        (
+            "10mf",
+            r"'mf' could mean millifarads or .* microfarads; write mF for millifarads or "
+            r"uF for microfarads$",
+        ),  # fmt: skip
+        ("10 f", r"a lone 'f' could be a prefix \(femto\) rather than F; write F for farads$"),
+        ("10 Mf", r"'mf' could mean millifarads or .* microfarads; write mF for"),
+        ("10 S", r"unknown suffix 'S'"),
+    ],
+)
+def test_ambiguous_unit_letters_are_refused_with_one_fix(text, match):
+    with pytest.raises(ValueError, match=match) as caught:
+        parse_quantity(text)
+    assert str(caught.value).count("; ") == 1  # one fix, not two
+
+
+def test_a_refusal_in_a_design_file_gives_one_fix(tmp_path):
+    from filtertwin.spec import load_design
+
+    path = tmp_path / "d.toml"
+    path.write_text('[[filter]]\nname = "lp"\nresponse = "lowpass"\nalignment = "butterworth"\n'
+                    'order = 2\ncorner = "2.2 kQ"\n')  # fmt: skip
+    with pytest.raises(
+        ValueError, match=r"unknown suffix 'Q' \(units: [^;]*\); write it like"
+    ) as e:
+        load_design(path)
+    assert str(e.value).count("; ") == 1 and "write e.g." not in str(e.value)
+
+
+def test_a_frequency_option_refusal_gives_an_example_in_hertz():
+    with pytest.raises(ValueError, match=r"unknown suffix 'Q' .*; write e.g. 1.5 kHz, 1k5"):
+        parse_quantity("4Q", "Hz")

@@ -78,6 +78,7 @@ def cmd_examples(args: argparse.Namespace) -> int:
         for path in examples.copy_to(Path(args.copy)):
             print(f"wrote {path}")
         return 0
+    print(examples.INVENTED_NOTE)
     for name, summary in examples.listing():
         print(f"  {name:<26s} {summary}")
     print("\nuse a name wherever a design file goes, e.g. `filtertwin design bookshelf-2way`;")
@@ -139,6 +140,11 @@ def _extra_commands() -> list[Callable[[Any], None]]:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    from filtertwin.numbacache import choose_cache_dir
+
+    notice = choose_cache_dir()  # before any numba import
+    if notice:
+        print(f"filtertwin: {notice}", file=sys.stderr)
     parser = build_parser()
     try:
         args = parser.parse_args(argv)
@@ -159,3 +165,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         # the reader went away (e.g. `| head`): stop quietly, as command-line tools do
         sys.stderr.close()
         return 0
+    except OSError as exc:  # a file the commands did not foresee: still one line, exit 2
+        if exc.filename is None:
+            raise
+        why = exc.strerror or type(exc).__name__
+        print(f"filtertwin: {exc.filename}: {why}; check the path and that you may use it",
+              file=sys.stderr)  # fmt: skip
+        return 2

@@ -32,6 +32,15 @@ GBW_FACTOR = 50.0
 AMP_SHIFT_PCT = 1.0
 # common practice: an internal peak more than 3 dB above the passband gain costs headroom
 PEAK_MARGIN_DB = 3.0
+# the band the design table checks the slew rate over (the twin checks its own band)
+SLEW_BAND_HZ = (20.0, 20000.0)
+# common practice (Horowitz & Hill 3rd ed. 6.3, from memory): a Sallen-Key stage above Q 10
+# is very sensitive to its parts and the amplifier; such stages are built another way
+HIGH_Q = 10.0
+# common practice: above 1 MOhm thermal noise and bias-current offset dominate
+HIGH_OHM = 1e6
+BOLTZMANN_J_PER_K = 1.380649e-23  # SI brochure, 9th ed. (2019), exact
+ROOM_K = 298.15
 
 
 @dataclass(frozen=True)
@@ -90,6 +99,40 @@ class StopbandFloor:
     level_db: float
     at_hz: float
     rises_to_db: float
+
+
+@dataclass(frozen=True)
+class StageSlew:
+    """How close a full-scale sine brings one stage's output to the amplifier's slew rate.
+
+    Attributes
+    ----------
+    stage : int
+        1-based stage number.
+    peak_v : float
+        Largest output over the band for a full-scale sine input, V peak (full scale times
+        the largest gain from the filter input to this stage's output, at most the swing).
+    full_power_hz : float
+        Full-power bandwidth at that output, SR / (2 pi peak_v), Hz: the highest frequency a
+        sine of ``peak_v`` can have without slewing.
+    demand : float
+        Largest slope of the stage's output for a full-scale sine in the band, 2 pi f
+        min(swing, full scale |H(f)|), as a fraction of the slew rate (>= 1: it slews).
+    slews_from_hz : float or None
+        Lowest frequency in the band where a full-scale sine makes this stage slew; None if
+        none does.
+
+    References
+    ----------
+    P. Horowitz, W. Hill, The Art of Electronics, 3rd ed., chapter 4: slew rate and the
+    full-power bandwidth SR / (2 pi Vpeak).
+    """
+
+    stage: int
+    peak_v: float
+    full_power_hz: float
+    demand: float
+    slews_from_hz: float | None
 
 
 @dataclass(frozen=True)
@@ -189,6 +232,39 @@ class Filter:
                 lo = a
         at = math.exp((lo + hi) / 2)
         return StopbandFloor(level(math.log(at)), at, float(np.max(db[i:])))
+
+    def stage_output_response(self, f_hz: np.ndarray, amplifier: bool = True) -> np.ndarray:
+        """Complex response from the filter input to each stage's output, ``(stages, f)``."""
+        f = np.asarray(f_hz, float)
+        out = np.ones((len(self.stages), f.size), complex)
+        h = np.ones(f.size, complex)
+        for number, section in self.stage_sections(amplifier):
+            h = h * sallenkey.response([section], f)
+            out[number - 1] = h
+        return out
+
+    def slew_demands(
+        self, amp: Amplifier, full_scale_v: float, band_hz: tuple[float, float] = SLEW_BAND_HZ
+    ) -> tuple[StageSlew, ...]:
+        """Every stage's slew-rate margin for a full-scale sine over ``band_hz`` (see
+        :class:`StageSlew`)."""
+        grid = np.geomspace(band_hz[0], band_hz[1], 2000)
+        out_v = np.minimum(amp.swing_v, full_scale_v * np.abs(self.stage_output_response(grid)))
+        slope = 2 * math.pi * grid * out_v / amp.slew_v_per_s
+        result = []
+        for stage, (v, d) in enumerate(zip(out_v, slope, strict=True), start=1):
+            peak = float(np.max(v))
+            over = np.nonzero(d >= 1.0)[0]
+            result.append(
+                StageSlew(
+                    stage,
+                    peak,
+                    amp.slew_v_per_s / (2 * math.pi * peak),
+                    float(np.max(d)),
+                    float(grid[over[0]]) if len(over) else None,
+                )  # fmt: skip
+            )
+        return tuple(result)
 
     def characteristic_hz(self) -> tuple[float, float]:
         """Lowest and highest stage frequency, for choosing plot and check bands."""
@@ -342,16 +418,22 @@ def _stages(
     return tuple(stages)
 
 
-def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
-    responses = {s.circuit.response for s in stages}
-    if len(responses) != 1:
-        return None
+def lowpass_sections(stages: tuple[Stage, ...]) -> list[prototypes.Section]:
+    """The stages (ideal amplifier) as low-pass prototype sections: a high-pass stage's f0
+    is inverted, so both compare with the alignments' tables."""
     secs = []
     for s in stages:
         f0 = s.ideal.f0_hz
         ratio = f0 if s.circuit.response == "lowpass" else 1.0 / f0
         secs.append(prototypes.Section(s.circuit.order, ratio, s.ideal.q))
-    return prototypes.nearest_alignment(secs)
+    return secs
+
+
+def _resembles(stages: tuple[Stage, ...]) -> prototypes.AlignmentMatch | None:
+    responses = {s.circuit.response for s in stages}
+    if len(responses) != 1:
+        return None
+    return prototypes.nearest_alignment(lowpass_sections(stages))
 
 
 def _amplifier_warnings(name: str, s: Stage, amp: Amplifier) -> list[DesignWarning]:
@@ -380,21 +462,81 @@ def _amplifier_warnings(name: str, s: Stage, amp: Amplifier) -> list[DesignWarni
     return [DesignWarning(name, s.index, text)]
 
 
-def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[DesignWarning]:
+def _slew_warnings(f: Filter, amp: Amplifier, full_scale_v: float) -> list[DesignWarning]:
+    """Warn where a full-scale sine in the audio band makes a stage slew (its full-power
+    bandwidth at full scale falls inside the band, where the stage's output is that large)."""
     out = []
-    lo, hi = parts.resistor_range_ohm
+    for s in f.slew_demands(amp, full_scale_v):
+        if s.slews_from_hz is None:
+            continue
+        out.append(
+            DesignWarning(
+                f.name,
+                s.stage,
+                f"full-power bandwidth SR / (2 pi Vpeak) = {amp.slew_v_per_s / 1e6:g} V/us / "
+                f"(2 pi x {s.peak_v:.3g} V at full scale) = {s.full_power_hz / 1e3:.3g} kHz "
+                f"(Horowitz & Hill) is inside {SLEW_BAND_HZ[0]:g} Hz to "
+                f"{SLEW_BAND_HZ[1] / 1e3:g} kHz: a full-scale sine above "
+                f"{s.slews_from_hz / 1e3:.3g} kHz slews here; a faster amplifier or a lower "
+                "full scale avoids it",
+            )
+        )
+    return out
+
+
+def _part_range_messages(s: Stage, parts: PartsSpec) -> list[str]:
+    """Parts outside the design's ranges; resistors above 1 MOhm also get their noise and
+    the offset a bias current makes in them."""
+    from filtertwin.units import format_letter_code
+
+    out = []
+    r_lo, r_hi = parts.resistor_range_ohm
+    c_lo, c_hi = parts.capacitor_range_f
+    for name, value in s.circuit.parts().items():
+        kind = name[0]
+        lo, hi, unit = (r_lo, r_hi, "ohm") if kind == "R" else (c_lo, c_hi, "F")
+        if lo <= value <= hi:
+            continue
+        code = format_letter_code(value, "R" if kind == "R" else "C")
+        span = f"{format_letter_code(lo, kind)}..{format_letter_code(hi, kind)}"
+        if kind == "R" and value > HIGH_OHM:
+            noise = math.sqrt(4 * BOLTZMANN_J_PER_K * ROOM_K * value)  # Johnson, Nyquist 1928
+            why = (
+                f"its thermal noise is {noise * 1e9:.0f} nV/rtHz at 25 C, and each 1 nA of "
+                f"amplifier input bias current through it makes {value * 1e-9 * 1e3:.1f} mV "
+                "of offset; a JFET- or CMOS-input amplifier, or lower resistors with larger "
+                "capacitors, avoid both"
+            )
+        elif kind == "R":
+            why = "common practice: lower loads the amplifier, higher adds noise"
+        elif value > hi:
+            why = "large capacitors are costly, bulky and seldom come in close tolerances"
+        else:
+            why = "stray and amplifier input capacitance (a few pF) become part of the filter"
+        out.append(f"{name} = {code} ({value:.4g} {unit}) is outside the part range {span}: {why}")
+    return out
+
+
+def _high_q_message(s: Stage, passband_db: float) -> str:
+    """A stage whose Q makes it ring, peak and depend strongly on its parts."""
+    peak = s.peak_gain_db - passband_db
+    return (
+        f"Q {s.built.q:.1f} is above {HIGH_Q:g} (common practice): the stage peaks "
+        f"{peak:+.1f} dB above the passband gain near {s.built.f0_hz:.4g} Hz and its ringing "
+        f"after a step takes about {s.built.q / math.pi:.0f} cycles to fall by 1/e; check that "
+        "this is intended"
+    )
+
+
+def _warnings(
+    f: Filter, amp: Amplifier | None, parts: PartsSpec, full_scale_v: float
+) -> list[DesignWarning]:
+    out = []
     passband_db = f.passband_db
     for s in f.stages:
-        for name, value in s.circuit.parts().items():
-            if name.startswith("R") and not lo <= value <= hi:
-                out.append(
-                    DesignWarning(
-                        f.name,
-                        s.index,
-                        f"{name} = {value:.4g} ohm is outside {lo:.4g}..{hi:.4g} ohm "
-                        "(common practice: lower loads the amplifier, higher adds noise)",
-                    )
-                )
+        out += [DesignWarning(f.name, s.index, m) for m in _part_range_messages(s, parts)]
+        if not math.isnan(s.built.q) and s.built.q > HIGH_Q:
+            out.append(DesignWarning(f.name, s.index, _high_q_message(s, passband_db)))
         if amp is not None:
             out += _amplifier_warnings(f.name, s, amp)
         excess = s.peak_gain_db - passband_db
@@ -421,6 +563,8 @@ def _warnings(f: Filter, amp: Amplifier | None, parts: PartsSpec) -> list[Design
                     "a full-scale signal clips here",
                 )
             )
+    if amp is not None:
+        out += _slew_warnings(f, amp, full_scale_v)
     return out
 
 
@@ -444,7 +588,7 @@ def build_design(spec: DesignSpec) -> Design:
         resembles = _resembles(stages) if fs.kind == "built" else None
         filt = Filter(fs.name, fs.response, fs.polarity, stages, fs, resembles)
         filters.append(filt)
-        warnings += _warnings(filt, amp, spec.parts)
+        warnings += _warnings(filt, amp, spec.parts, spec.full_scale_v)
     return Design(spec, amp, tuple(filters), tuple(warnings))
 
 

@@ -21,8 +21,29 @@ How the kernel is laid out (why it is fast):
 Limiting to the amplifier's output swing, when a section has a finite level, clamps that
 section's output to +/- level before it reaches both the next section and the section's own
 feedback (the amplifier's output is what its feedback network sees), and counts the clamped
-samples. A block whose input holds NaN or inf, or after which a chain's state is no longer
-finite, resets that chain's state and zeroes that chain's output for the block.
+samples.
+
+Slew-rate limiting, when a section has a finite step, is the usual discrete model of an
+amplifier whose output cannot move faster than its slew rate SR: the section's output may
+change by at most ``step = SR / rate`` (full-scale units per sample) from its previous output
+value, ``y[n] = y[n-1] + clip(y_lin[n] - y[n-1], -step, +step)``, where ``y_lin`` is what the
+linear section (after the swing clamp) would give. The limited value, not ``y_lin``, goes on
+to the next section and into the section's own state (``z0``, ``z1`` are updated from it), as
+the amplifier's slewing output is what its feedback network sees. Where a stage is split into
+several sections, the limits sit on its last section: the amplifier's output. The swing clamp
+comes first, so an output slewing towards a rail stops at the rail. Samples where the step
+was limited are counted per section as slewed; a sample counts as clipped only when the rail,
+not the slew rate, held it (an output still slewing towards the rail has not reached it). A
+step within the limit leaves the sample untouched (a selection, not
+``y[n-1] + (y_lin[n] - y[n-1])``), so a runner whose limits are never reached is bit-identical
+to one without limits. Each section keeps its last output value for this between blocks;
+after a block run without slew limits, the kernel recovers it from the cascade's working rows.
+The model is only as fine as the rate: a sine's step per sample, 2 A sin(pi f / rate), is
+short of its slope times the sample period by 1 - sinc, so a twin near its slew limit runs
+oversampled (:func:`filtertwin.twin.slew_rate_needed_hz`).
+
+A block whose input holds NaN or inf, or after which a chain's state is no longer finite,
+resets that chain's state and zeroes that chain's output for the block.
 """
 
 from __future__ import annotations
@@ -33,6 +54,7 @@ from collections.abc import Sequence
 import numpy as np
 from llvmlite import ir
 from numba import njit, types
+from numba.core import cgutils
 from numba.extending import intrinsic, models, overload, register_model
 
 __all__ = ["FLUSH_BELOW", "CascadeRunner", "sosfilt_blocks", "validate_sos", "warm_up"]
@@ -43,13 +65,20 @@ FLUSH_BELOW = 1e-30
 _CHUNK_FRAMES = 256  # frames staged per pass; also how often the state is flushed
 _FRAMES_PER_STEP = 4  # frames each section takes per step (the state stays in registers)
 _WIDTH = 4  # float64 lanes per vector (256 bits): one lane group
-# Coefficients: for each lane group and section a block of rows, each row _WIDTH lanes wide:
-_B0, _B1, _B2, _A1, _A2, _LEVEL = (row * _WIDTH for row in range(6))
-_SEC_BLOCK = 6 * _WIDTH
+# Coefficients: for each lane group and section a block of rows, each row _WIDTH lanes wide
+# (b0, b1, b2, a1, a2, swing level, slew step, and the section's kind in every lane: 0 no
+# limits, 1 swing clamping, 2 clamping and slewing, for every lane of its group; 256 bytes):
+_B0, _B1, _B2, _A1, _A2, _LEVEL, _STEP, _KIND = (row * _WIDTH for row in range(8))
+_SEC_ROWS = 8
+_SEC_BLOCK = _SEC_ROWS * _WIDTH
 # Working memory: for each lane group and section (plus one slot for the cascade's output):
-# z0, z1, clamped-sample count, one spare row, then the section's input for the frames of a step
-_Z0, _Z1, _COUNT, _INPUT = (row * _WIDTH for row in (0, 1, 2, 4))
+# z0, z1, clamped-sample count, previous output, slewed-sample count, whether the last step
+# was limited (first lane), then the section's input for the frames of a step (a section's
+# outputs are the next slot's input)
+_Z0, _Z1, _COUNT, _PREV, _SLEWED, _LIMITING, _INPUT = (row * _WIDTH for row in range(7))
 _MEM_BLOCK = _INPUT + _FRAMES_PER_STEP * _WIDTH
+# the kernels: no limits, swing clamping only, swing clamping and slew limiting
+_PLAIN, _CLAMP, _SLEW = 0, 1, 2
 
 
 # --- a 4 x float64 vector value for the kernel ----------------------------------------------
@@ -165,6 +194,99 @@ def _vclamp(typingctx, y, level):
 
 
 @intrinsic
+def _vhigh(typingctx, prev, step, level):
+    """The highest output allowed after ``prev``: min(prev + step, level)."""
+
+    def codegen(context, builder, sig, args):
+        prev, step, level = args
+        rise = builder.fadd(prev, step)
+        return builder.select(builder.fcmp_ordered("<", rise, level), rise, level)
+
+    return _VEC(prev, step, level), codegen
+
+
+@intrinsic
+def _vlow(typingctx, prev, step, level):
+    """The lowest output allowed after ``prev``: max(prev - step, -level)."""
+
+    def codegen(context, builder, sig, args):
+        prev, step, level = args
+        fall, low = builder.fsub(prev, step), builder.fneg(level)
+        return builder.select(builder.fcmp_ordered(">", fall, low), fall, low)
+
+    return _VEC(prev, step, level), codegen
+
+
+def _vector_pick(predicate: str):
+    @intrinsic
+    def pick(typingctx, a, b):
+        def codegen(context, builder, sig, args):
+            a, b = args
+            return builder.select(builder.fcmp_ordered(predicate, a, b), a, b)
+
+        return _VEC(a, b), codegen
+
+    return pick
+
+
+_vmax = _vector_pick(">")  # the larger of two, element by element (b where either is NaN)
+_vmin = _vector_pick("<")
+
+
+@intrinsic
+def _vbeyond(typingctx, top, bottom, limit):
+    """True if any element of ``top`` is above ``limit`` or of ``bottom`` below -``limit``,
+    or any is NaN (so that the limited loop, which handles NaN, runs)."""
+
+    def codegen(context, builder, sig, args):
+        top, bottom, limit = args
+        above = builder.fcmp_unordered(">", top, limit)
+        below = builder.fcmp_unordered("<", bottom, builder.fneg(limit))
+        bits = builder.bitcast(builder.or_(above, below), ir.IntType(_WIDTH))
+        return builder.icmp_unsigned("!=", bits, ir.Constant(ir.IntType(_WIDTH), 0))
+
+    return types.boolean(top, bottom, limit), codegen
+
+
+@intrinsic
+def _vbetween(typingctx, y, low, high):
+    """``y`` clamped to [``low``, ``high``], element by element (NaN stays NaN)."""
+
+    def codegen(context, builder, sig, args):
+        y, low, high = args
+        y = builder.select(builder.fcmp_ordered("<", y, low), low, y)
+        return builder.select(builder.fcmp_ordered(">", y, high), high, y)
+
+    return _VEC(y, low, high), codegen
+
+
+@intrinsic
+def _vchanged(typingctx, out, y):
+    """1.0 where ``out != y`` (neither NaN), else 0.0."""
+
+    def codegen(context, builder, sig, args):
+        return builder.uitofp(builder.fcmp_ordered("!=", args[0], args[1]), _LL_VEC)
+
+    return _VEC(out, y), codegen
+
+
+@intrinsic
+def _vrailed(typingctx, out, y, level):
+    """1.0 where ``out != y`` and ``|out| == level`` (held at the rail), else 0.0."""
+
+    def codegen(context, builder, sig, args):
+        out, y, level = args
+        fabs = cgutils.get_or_insert_function(
+            builder.module, ir.FunctionType(_LL_VEC, [_LL_VEC]), "llvm.fabs.v4f64"
+        )
+        at_rail = builder.fcmp_ordered("==", builder.call(fabs, [out]), level)
+        changed = builder.fcmp_ordered("!=", out, y)
+        return builder.uitofp(builder.and_(at_rail, changed), _LL_VEC)
+
+    return _VEC(out, y, level), codegen
+
+
+@intrinsic
 def _vexceeds(typingctx, y, level):
     """1.0 where ``|y| > level``, else 0.0."""
 
@@ -193,19 +315,106 @@ def _gather(x, start, frames, n_chains, mem, stage, width):
 
 
 @njit(inline="always")
-def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, limit, per_step):
+def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
+    """Run one section over its ``per_step`` staged frames (``kind`` and ``keep_prev`` are
+    compile-time constants: the limits applied, and whether ``_PREV`` is kept)."""
+    b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
+    a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
+    z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
+    level = _vzeros()
+    clamped = _vzeros()
+    step = _vzeros()
+    prev = _vzeros()
+    slewed = _vzeros()
+    if kind >= _CLAMP:
+        level, clamped = _vload(sec, c + _LEVEL), _vload(mem, m + _COUNT)
+    if kind == _SLEW:
+        step, prev = _vload(sec, c + _STEP), _vload(mem, m + _PREV)
+        slewed = _vload(mem, m + _SLEWED)
+    y = _vzeros()
+    for k in range(per_step):
+        x = _vload(mem, m + _INPUT + k * _WIDTH)
+        # scipy's order: y = b0 x + z0; z0 = (b1 x - a1 y) + z1; z1 = b2 x - a2 y
+        y = b0 * x + z0
+        if kind == _CLAMP:
+            clamped = clamped + _vexceeds(y, level)
+            y = _vclamp(y, level)
+        elif kind == _SLEW:
+            # clamping to the swing, then limiting the step, is one clamp to these bounds
+            # (prev is within the swing)
+            limited = _vbetween(y, _vlow(prev, step, level), _vhigh(prev, step, level))
+            # every limited sample, and those held at the rail (clipped, not slewing): the
+            # slewed count is their difference (see _store_state)
+            slewed = slewed + _vchanged(limited, y)
+            clamped = clamped + _vrailed(limited, y, level)
+            y = limited
+            prev = y
+        z0 = (b1 * x - a1 * y) + z1
+        z1 = b2 * x - a2 * y
+        _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
+    _vstore(mem, m + _Z0, z0)
+    _vstore(mem, m + _Z1, z1)
+    if kind >= _CLAMP:
+        _vstore(mem, m + _COUNT, clamped)
+    if kind == _SLEW:
+        _vstore(mem, m + _SLEWED, slewed)
+    if keep_prev:
+        _vstore(mem, m + _PREV, y)
+
+
+@njit(inline="always")
+def _section_fits(sec, mem, c, m, per_step):
+    """Run a slew-limited section over its frames as if it had no limits; keep the result
+    (state, previous output) and return True if no output left the swing and no step
+    exceeded the slew step, else leave the state as it was and return False.
+
+    The check is a few maxima and minima per step, off the chain of dependent operations
+    that sets the speed, so a section that is not being limited costs little more than a
+    plain one; the caller runs the limited loop only for the steps that need it.
+    """
+    b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
+    a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
+    z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
+    level, step, prev = _vload(sec, c + _LEVEL), _vload(sec, c + _STEP), _vload(mem, m + _PREV)
+    y = _vzeros()
+    top = bottom = rise = fall = _vzeros()
+    for k in range(per_step):
+        x = _vload(mem, m + _INPUT + k * _WIDTH)
+        y_last = prev if k == 0 else y
+        y = b0 * x + z0
+        z0 = (b1 * x - a1 * y) + z1
+        z1 = b2 * x - a2 * y
+        _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
+        change = y - y_last
+        if k == 0:
+            top, bottom, rise, fall = y, y, change, change
+        else:
+            top, bottom = _vmax(top, y), _vmin(bottom, y)
+            rise, fall = _vmax(rise, change), _vmin(fall, change)
+    if _vbeyond(top, bottom, level) or _vbeyond(rise, fall, step):
+        return False
+    _vstore(mem, m + _Z0, z0)
+    _vstore(mem, m + _Z1, z1)
+    _vstore(mem, m + _PREV, y)
+    return True
+
+
+@njit(inline="always")
+def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, mode, per_step):
     """Run every section over ``frames`` staged frames, in place.
 
     Sections are skewed: in step ``t`` section ``s`` takes the ``per_step`` frames starting at
     ``(t - s) * per_step``, so the sections of one step are independent. ``frames`` must be a
-    multiple of ``per_step``. Returns False if any staged input was NaN or inf.
+    multiple of ``per_step``. ``mode`` (a compile-time constant) is ``_PLAIN``, ``_CLAMP`` or
+    ``_SLEW``: the most any section needs; each section then runs the loop of its own kind
+    (a branch per section and step, predicted well), so sections without limits cost no more
+    than in the plain kernel. Returns False if any staged input was NaN or inf.
     """
     steps = frames // per_step
     last = n_sections - 1
     width = n_groups * _WIDTH
+    keep = mode == _SLEW
     nonfinite = _vzeros()  # stays zero while every input is finite (x - x == 0)
-    level = _vzeros()
-    clamped = _vzeros()
     for t in range(steps + last):
         s_low = max(0, t - steps + 1)
         s_high = min(last, t)
@@ -221,25 +430,22 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, limit, per_ste
             for s in range(s_high, s_low - 1, -1):
                 c = c_group + s * _SEC_BLOCK
                 m = m_group + s * _MEM_BLOCK
-                b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
-                a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
-                z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
-                if limit:
-                    level, clamped = _vload(sec, c + _LEVEL), _vload(mem, m + _COUNT)
-                for k in range(per_step):
-                    x = _vload(mem, m + _INPUT + k * _WIDTH)
-                    # scipy's order: y = b0 x + z0; z0 = (b1 x - a1 y) + z1; z1 = b2 x - a2 y
-                    y = b0 * x + z0
-                    if limit:
-                        clamped = clamped + _vexceeds(y, level)
-                        y = _vclamp(y, level)
-                    z0 = (b1 * x - a1 * y) + z1
-                    z1 = b2 * x - a2 * y
-                    _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
-                _vstore(mem, m + _Z0, z0)
-                _vstore(mem, m + _Z1, z1)
-                if limit:
-                    _vstore(mem, m + _COUNT, clamped)
+                if mode == _PLAIN:
+                    _section_frames(sec, mem, c, m, per_step, _PLAIN, False)
+                else:
+                    kind = sec[c + _KIND]
+                    if mode == _SLEW and kind == _SLEW:
+                        # try without limits unless the last step was limited (slewing
+                        # comes in runs): the limited loop only where it is needed
+                        if mem[m + _LIMITING] != 0.0 or not _section_fits(sec, mem, c, m, per_step):
+                            before = _vload(mem, m + _SLEWED)
+                            _section_frames(sec, mem, c, m, per_step, _SLEW, True)
+                            limiting = not _vall_zero(_vload(mem, m + _SLEWED) - before)
+                            mem[m + _LIMITING] = 1.0 if limiting else 0.0
+                    elif kind >= _CLAMP:
+                        _section_frames(sec, mem, c, m, per_step, _CLAMP, keep)
+                    else:
+                        _section_frames(sec, mem, c, m, per_step, _PLAIN, keep)
             if t >= last:
                 for k in range(per_step):
                     y = _vload(mem, m_group + n_sections * _MEM_BLOCK + _INPUT + k * _WIDTH)
@@ -247,27 +453,49 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, limit, per_ste
     return _vall_zero(nonfinite)
 
 
-# _cascade and _cascade_limited differ only in the literal `limit` they pass: a compile-time
-# constant lets LLVM drop the clamping from the inner loop of unlimited chains, which a
-# runtime flag would not guarantee.
+# The three variants differ only in the literal `mode` they pass: a compile-time constant lets
+# LLVM drop the clamping and slewing from the inner loop where a chain has no such limits,
+# which a runtime flag would not guarantee.
+@njit(inline="always")
+def _cascade_passes(sec, mem, frames, n_sections, n_groups, stage, mode):
+    """Whole steps of ``_FRAMES_PER_STEP`` frames, then the rest one frame per step."""
+    whole = frames - frames % _FRAMES_PER_STEP
+    rest = stage + whole * n_groups * _WIDTH
+    finite = _cascade_steps(sec, mem, whole, n_sections, n_groups, stage, mode, _FRAMES_PER_STEP)
+    if frames > whole:
+        finite &= _cascade_steps(sec, mem, frames - whole, n_sections, n_groups, rest, mode, 1)
+    return finite
+
+
 @njit
 def _cascade(sec, mem, frames, n_sections, n_groups, stage):
-    whole = frames - frames % _FRAMES_PER_STEP
-    rest = stage + whole * n_groups * _WIDTH
-    finite = _cascade_steps(sec, mem, whole, n_sections, n_groups, stage, False, _FRAMES_PER_STEP)
-    if frames > whole:
-        finite &= _cascade_steps(sec, mem, frames - whole, n_sections, n_groups, rest, False, 1)
-    return finite
+    return _cascade_passes(sec, mem, frames, n_sections, n_groups, stage, _PLAIN)
 
 
 @njit
-def _cascade_limited(sec, mem, frames, n_sections, n_groups, stage):
-    whole = frames - frames % _FRAMES_PER_STEP
-    rest = stage + whole * n_groups * _WIDTH
-    finite = _cascade_steps(sec, mem, whole, n_sections, n_groups, stage, True, _FRAMES_PER_STEP)
-    if frames > whole:
-        finite &= _cascade_steps(sec, mem, frames - whole, n_sections, n_groups, rest, True, 1)
-    return finite
+def _cascade_clamped(sec, mem, frames, n_sections, n_groups, stage):
+    return _cascade_passes(sec, mem, frames, n_sections, n_groups, stage, _CLAMP)
+
+
+@njit
+def _cascade_slewed(sec, mem, frames, n_sections, n_groups, stage):
+    return _cascade_passes(sec, mem, frames, n_sections, n_groups, stage, _SLEW)
+
+
+@njit
+def _recall_outputs(mem, n_sections, n_groups, row):
+    """Set every section's previous output from the input rows of the slot after it.
+
+    After a block run without slew limits, row ``row`` of those rows holds each section's
+    last output (the kernel without slew limits keeps no ``_PREV``); ``row < 0``: after
+    :meth:`CascadeRunner.reset`, every previous output is zero.
+    """
+    for g in range(n_groups):
+        for s in range(n_sections):
+            m = (g * (n_sections + 1) + s) * _MEM_BLOCK
+            for w in range(_WIDTH):
+                value = 0.0 if row < 0 else mem[m + _MEM_BLOCK + _INPUT + row * _WIDTH + w]
+                mem[m + _PREV + w] = value
 
 
 @njit
@@ -306,14 +534,17 @@ def _load_state(mem, n_chains, n_sections, channels, work):
 
 
 @njit
-def _store_state(mem, n_sections, work, out, frames, input_finite):
-    """Copy the work state back to the public state and add up the clip counts.
+def _store_state(mem, n_sections, work, out, frames, input_finite, sec):
+    """Copy the work state back to the public state and add up the clip and slew counts.
 
-    A chain whose state is not finite, or every chain when the input was not, is reset and
-    its output for the block zeroed. Returns how many chains were reset.
+    A chain whose state is not finite, or every chain when the input was not, is reset (its
+    sections' previous outputs too) and its output for the block zeroed. Returns how many
+    chains were reset. A slewing section (kind ``_SLEW``) counted every limited sample in
+    ``_SLEWED`` and those held at the rail in ``_COUNT``: its slewed count is the difference.
     """
     n_chains, _, channels = out.shape
     counts = n_chains * n_sections * channels * 2
+    slews = counts + n_chains * n_sections
     i = 0
     n_reset = 0
     for chain in range(n_chains):
@@ -328,19 +559,38 @@ def _store_state(mem, n_sections, work, out, frames, input_finite):
                 mem[i] = z0
                 mem[i + 1] = z1
                 i += 2
+                c = ((lane // _WIDTH) * n_sections + s) * _SEC_BLOCK + _KIND + lane % _WIDTH
+                slewed = work[m + _SLEWED]
+                if sec[c] == _SLEW:
+                    slewed -= work[m + _COUNT]
                 mem[counts + chain * n_sections + s] += work[m + _COUNT]
+                mem[slews + chain * n_sections + s] += slewed
                 work[m + _COUNT] = 0.0
+                work[m + _SLEWED] = 0.0
         if not finite:
             n_reset += 1
             mem[first:i] = 0.0
             out[chain, :frames, :] = 0.0
+            _forget_outputs(work, n_sections, chain * channels, (chain + 1) * channels)
     return n_reset
 
 
+@njit
+def _forget_outputs(work, n_sections, first_lane, end_lane):
+    """Zero the previous outputs of lanes ``first_lane:end_lane``, in both places they live."""
+    for lane in range(first_lane, end_lane):
+        for s in range(n_sections):
+            m = ((lane // _WIDTH) * (n_sections + 1) + s) * _MEM_BLOCK + lane % _WIDTH
+            work[m + _PREV] = 0.0
+            for k in range(_FRAMES_PER_STEP):
+                work[m + _MEM_BLOCK + _INPUT + k * _WIDTH] = 0.0
+
+
 def _memory_layout(n_chains: int, n_sections: int, channels: int) -> tuple[int, int, int]:
-    """Sizes in ``mem``: public state, public clip counts, and the 64-byte aligned work rows."""
+    """Offsets in ``mem``: the public state, then the public clip and slew counts and the
+    marker of where the previous outputs are; the 64-byte aligned work rows; the total."""
     n_state = n_chains * n_sections * channels * 2
-    n_counts = n_chains * n_sections
+    n_counts = 2 * n_chains * n_sections + 1
     work = -(-(n_state + n_counts) // 8) * 8
     n_groups = -(-n_chains * channels // _WIDTH)
     n_work = n_groups * (n_sections + 1) * _MEM_BLOCK + _CHUNK_FRAMES * n_groups * _WIDTH
@@ -354,16 +604,19 @@ _layout = njit(_memory_layout)
 def _run_block(x, out, sec, mem):
     """Filter ``x`` (frames, channels) through every chain into ``out`` (chains, frames, ch).
 
-    ``mem`` starts with the public state (chains, sections, channels, 2) and clip counts
-    (chains, sections), read before and written after the block, followed by the work rows and
-    the staging area. Returns the number of chains reset for non-finite values, or -1 if the
-    shapes disagree.
+    ``mem`` starts with the public state (chains, sections, channels, 2), clip counts and slew
+    counts (chains, sections each), read before and written after the block, and the marker
+    ``recall``: 0 when every section's ``_PREV`` holds its last output, ``r + 1`` when row
+    ``r`` of the next slot's input rows does (after a block without slew limits), -1 when
+    they are zero (after a reset). The work rows and the staging area follow. Returns the
+    number of chains reset for non-finite values, or -1 if the shapes disagree.
     """
     frames, channels = x.shape
     n_chains = out.shape[0]
     n_groups = -(-n_chains * channels // _WIDTH)
     n_sections = sec.shape[0] // (n_groups * _SEC_BLOCK)
-    _, start_work, size = _layout(n_chains, n_sections, channels)
+    n_state, start_work, size = _layout(n_chains, n_sections, channels)
+    recall = n_state + 2 * n_chains * n_sections
     if (
         out.shape[1] != frames
         or out.shape[2] != channels
@@ -374,22 +627,31 @@ def _run_block(x, out, sec, mem):
     work = mem[start_work:]
     width = n_groups * _WIDTH
     stage = n_groups * (n_sections + 1) * _MEM_BLOCK
-    limit = False
-    for i in range(_LEVEL, sec.shape[0], _SEC_BLOCK):
-        for w in range(_WIDTH):
-            limit |= sec[i + w] < np.inf
+    mode = 0.0
+    for i in range(_KIND, sec.shape[0], _SEC_BLOCK):
+        mode = max(mode, sec[i])
+    limit = mode >= _CLAMP
+    slew = mode == _SLEW
     _load_state(mem, n_chains, n_sections, channels, work)
+    if slew and mem[recall] != 0.0:
+        _recall_outputs(work, n_sections, n_groups, int(mem[recall]) - 1)
+    if slew:
+        mem[recall] = 0.0
     finite = True
     for start in range(0, frames, _CHUNK_FRAMES):
         n = min(_CHUNK_FRAMES, frames - start)
         _gather(x, start, n, n_chains, work, stage, width)
-        if limit:
-            finite &= _cascade_limited(sec, work, n, n_sections, n_groups, stage)
+        if slew:
+            finite &= _cascade_slewed(sec, work, n, n_sections, n_groups, stage)
+        elif limit:
+            finite &= _cascade_clamped(sec, work, n, n_sections, n_groups, stage)
         else:
             finite &= _cascade(sec, work, n, n_sections, n_groups, stage)
+        if not slew:  # each section's last output is in this row of the next slot's input
+            mem[recall] = 1.0 + (0 if n % _FRAMES_PER_STEP else _FRAMES_PER_STEP - 1)
         _scatter(out, start, n, work, stage, width)
         _flush(work, n_sections, n_groups)
-    return _store_state(mem, n_sections, work, out, frames, finite)
+    return _store_state(mem, n_sections, work, out, frames, finite, sec)
 
 
 def _kernel_signature(dtype: type[np.floating]) -> tuple[types.Type, ...]:
@@ -477,19 +739,49 @@ def validate_sos(sos: object) -> np.ndarray:
     return array
 
 
-def _validate_levels(levels: object, n_sections: int, chain: int) -> np.ndarray:
+def _validate_levels(
+    levels: object, n_sections: int, chain: int, what: str = "clip levels"
+) -> np.ndarray:
     array = np.array(levels, dtype=np.float64)
     if array.shape != (n_sections,):
         raise ValueError(
-            f"clip levels of chain {chain} must have shape ({n_sections},), one per section, "
+            f"{what} of chain {chain} must have shape ({n_sections},), one per section, "
             f"got {array.shape}"
         )
     if np.any(np.isnan(array)) or np.any(array <= 0.0):
         raise ValueError(
-            f"clip levels of chain {chain} must be > 0 full-scale units (np.inf = no limit), "
+            f"{what} of chain {chain} must be > 0 full-scale units (np.inf = no limit), "
             f"got {array.tolist()}"
         )
     return array
+
+
+def _per_chain(
+    values: Sequence[np.ndarray] | None, n_sections: tuple[int, ...], name: str, what: str
+) -> list[np.ndarray]:
+    """One validated array per chain, one value per section (``np.inf`` where None)."""
+    if values is None:
+        return [np.full(n, np.inf) for n in n_sections]
+    if len(values) != len(n_sections):
+        raise ValueError(
+            f"{name} must have one array per chain ({len(n_sections)}), got {len(values)}"
+        )
+    return [
+        _validate_levels(value, n, chain, what)
+        for chain, (value, n) in enumerate(zip(values, n_sections, strict=True))
+    ]
+
+
+def _mark_kinds(sec4: np.ndarray) -> None:
+    """Write each (lane group, section)'s kind from its lanes' limits: ``_SLEW`` where a lane
+    has a slew step below twice its swing level (a clamped output never steps further, so a
+    larger step never acts), else ``_CLAMP`` where a lane has a finite level, else ``_PLAIN``."""
+    level = sec4[:, :, _LEVEL // _WIDTH, :]
+    step = sec4[:, :, _STEP // _WIDTH, :]
+    slew = np.any(step < 2.0 * level, axis=-1)
+    clamp = np.any(level < np.inf, axis=-1)
+    kind = np.where(slew, _SLEW, np.where(clamp, _CLAMP, _PLAIN))
+    sec4[:, :, _KIND // _WIDTH, :] = kind[:, :, np.newaxis]
 
 
 def _aligned_zeros(size: int) -> np.ndarray:
@@ -526,6 +818,11 @@ class CascadeRunner:
     clip_levels : sequence of array_like, optional
         Per chain, one level per section in full-scale units: that section's output is
         clamped to +/- level (``np.inf`` means no limit). Default: no limits.
+    slew_steps : sequence of array_like, optional
+        Per chain, one step per section in full-scale units per sample: that section's output
+        changes by at most this much from one sample to the next (a slew rate in full-scale
+        units per second divided by the rate; ``np.inf`` means no limit). See the module
+        docstring for the model. Default: no limits.
     dtype : {numpy.float64, numpy.float32}
         Sample type of input and output blocks. The filter always computes in float64.
 
@@ -542,6 +839,8 @@ class CascadeRunner:
         property).
     clip_counts : numpy.ndarray
         int64 ``(n_chains, max_sections)``, samples clamped so far (see the property).
+    slew_counts : numpy.ndarray
+        int64 ``(n_chains, max_sections)``, samples whose step was limited so far.
     nonfinite_resets : int
         Blocks found non-finite (NaN or inf in the input or in a chain's state) so far.
 
@@ -554,6 +853,8 @@ class CascadeRunner:
     ----------
     scipy.signal.sosfilt: the filter structure (transposed direct form II) and its order of
     operations, reproduced exactly.
+    P. Horowitz, W. Hill, The Art of Electronics, 3rd ed., chapter 4 (op-amp slew rate and
+    full-power bandwidth): the output's rate of change is limited to the slew rate.
 
     Examples
     --------
@@ -573,6 +874,7 @@ class CascadeRunner:
         max_frames: int,
         clip_levels: Sequence[np.ndarray] | None = None,
         dtype: type[np.floating] | np.dtype = np.float64,
+        slew_steps: Sequence[np.ndarray] | None = None,
     ) -> None:
         sos_list = [validate_sos(sos) for sos in chains]
         if not sos_list:
@@ -584,21 +886,13 @@ class CascadeRunner:
             raise ValueError(f"dtype must be float32 or float64, got {self.dtype}")
         self.n_chains = len(sos_list)
         self.n_sections = tuple(sos.shape[0] for sos in sos_list)
-        if clip_levels is None:
-            clip_levels = [np.full(n, np.inf) for n in self.n_sections]
-        if len(clip_levels) != self.n_chains:
-            raise ValueError(
-                f"clip_levels must have one array per chain ({self.n_chains}), "
-                f"got {len(clip_levels)}"
-            )
-        levels = [
-            _validate_levels(level, n, chain)
-            for chain, (level, n) in enumerate(zip(clip_levels, self.n_sections, strict=True))
-        ]
+        levels = _per_chain(clip_levels, self.n_sections, "clip_levels", "clip levels")
+        steps = _per_chain(slew_steps, self.n_sections, "slew_steps", "slew steps")
         warm_up()
         self._allocate()
-        for chain, (sos, level) in enumerate(zip(sos_list, levels, strict=True)):
-            self._write_chain(self._sec4, chain, sos, level)
+        for chain, (sos, level, step) in enumerate(zip(sos_list, levels, steps, strict=True)):
+            self._write_chain(self._sec4, chain, sos, level, step)
+        _mark_kinds(self._sec4)
         self.nonfinite_resets = 0
 
     def _allocate(self) -> None:
@@ -610,29 +904,38 @@ class CascadeRunner:
 
         self._sec = _aligned_zeros(n_groups * n_sec * _SEC_BLOCK)
         self._spare = _aligned_zeros(self._sec.size)
-        self._sec4 = self._sec.reshape(n_groups, n_sec, 6, _WIDTH)
-        self._spare4 = self._spare.reshape(n_groups, n_sec, 6, _WIDTH)
+        self._sec4 = self._sec.reshape(n_groups, n_sec, _SEC_ROWS, _WIDTH)
+        self._spare4 = self._spare.reshape(n_groups, n_sec, _SEC_ROWS, _WIDTH)
         self._sec4[:, :, 0, :] = 1.0  # pass-through sections pad short chains and spare lanes
-        self._sec4[:, :, 5, :] = np.inf
+        self._sec4[:, :, _LEVEL // _WIDTH : _KIND // _WIDTH, :] = np.inf
 
         n_state, _, size = _memory_layout(self.n_chains, n_sec, self.channels)
         self._mem = _aligned_zeros(size)
         self._state = self._mem[:n_state].reshape(self.n_chains, n_sec, self.channels, 2)
-        self._counts = self._mem[n_state : n_state + self.n_chains * n_sec]
-        self._counts = self._counts.reshape(self.n_chains, n_sec)
+        n_counts = self.n_chains * n_sec
+        counts = self._mem[n_state : n_state + 2 * n_counts]
+        self._counts = counts[:n_counts].reshape(self.n_chains, n_sec)
+        self._slews = counts[n_counts:].reshape(self.n_chains, n_sec)
+        self._recall = n_state + 2 * n_counts
 
         self._out = np.zeros((self.n_chains, self.max_frames, self.channels), dtype=self.dtype)
         self._views: dict[int, np.ndarray] = {}
 
     def _write_chain(
-        self, sec4: np.ndarray, chain: int, sos: np.ndarray, level: np.ndarray
+        self, sec4: np.ndarray, chain: int, sos: np.ndarray, level: np.ndarray, step: np.ndarray
     ) -> None:
         g = self._group[chain][:, None]
         w = self._lane[chain][:, None]
         s = np.arange(sos.shape[0])[None, :]
         for row, column in enumerate((0, 1, 2, 4, 5)):
             sec4[g, s, row, w] = sos[:, column]
-        sec4[g, s, 5, w] = level
+        sec4[g, s, _LEVEL // _WIDTH, w] = level
+        sec4[g, s, _STEP // _WIDTH, w] = step
+
+    def _chain_row(self, index: int, row: int) -> np.ndarray:
+        """A copy of one coefficient row (level or step) of a chain, one value per section."""
+        return self._sec4[self._group[index, 0], : self.n_sections[index], row // _WIDTH,
+                          self._lane[index, 0]].copy()  # fmt: skip
 
     @property
     def state(self) -> np.ndarray:
@@ -648,6 +951,12 @@ class CascadeRunner:
     def clip_counts(self) -> np.ndarray:
         """int64 ``(n_chains, max_sections)``: samples clamped so far, summed over channels."""
         return self._counts.astype(np.int64)
+
+    @property
+    def slew_counts(self) -> np.ndarray:
+        """int64 ``(n_chains, max_sections)``: samples whose step was limited to the slew
+        step so far, summed over channels."""
+        return self._slews.astype(np.int64)
 
     def process(self, block: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
         """Filter one block through every chain, carrying the state to the next call.
@@ -697,8 +1006,14 @@ class CascadeRunner:
             )
         self.process(block, block[np.newaxis])
 
-    def set_chain(self, index: int, sos: np.ndarray, clip_levels: np.ndarray | None = None) -> None:
-        """Swap one chain's coefficients (and optionally clip levels), keeping its state.
+    def set_chain(
+        self,
+        index: int,
+        sos: np.ndarray,
+        clip_levels: np.ndarray | None = None,
+        slew_steps: np.ndarray | None = None,
+    ) -> None:
+        """Swap one chain's coefficients (and optionally its limits), keeping its state.
 
         The swap takes effect whole between two blocks, never within one: the new values go to
         a spare buffer that replaces the active one in a single attribute store, and the
@@ -713,12 +1028,14 @@ class CascadeRunner:
             New sections, the same count as the chain had at construction.
         clip_levels : array_like, optional
             New per-section levels; None keeps the chain's current levels.
+        slew_steps : array_like, optional
+            New per-section slew steps; None keeps the chain's current steps.
 
         Raises
         ------
         ValueError
             If ``index`` is out of range, ``sos`` is invalid or has another section count,
-            or ``clip_levels`` is invalid.
+            or ``clip_levels`` or ``slew_steps`` is invalid.
         """
         if not 0 <= index < self.n_chains:
             raise ValueError(f"index must be 0 <= index < {self.n_chains}, got {index}")
@@ -730,18 +1047,68 @@ class CascadeRunner:
                 f"got {new.shape[0]}; build a new runner to change the section count"
             )
         if clip_levels is None:
-            level = self._sec4[self._group[index, 0], :n, 5, self._lane[index, 0]].copy()
+            level = self._chain_row(index, _LEVEL)
         else:
             level = _validate_levels(clip_levels, n, index)
+        if slew_steps is None:
+            step = self._chain_row(index, _STEP)
+        else:
+            step = _validate_levels(slew_steps, n, index, "slew steps")
         np.copyto(self._spare4, self._sec4)
-        self._write_chain(self._spare4, index, new, level)
+        self._write_chain(self._spare4, index, new, level, step)
+        _mark_kinds(self._spare4)
         # one attribute store: a block sees either the old or the new coefficients, whole
         self._sec, self._spare = self._spare, self._sec
         self._sec4, self._spare4 = self._spare4, self._sec4
 
+    def _output_rows(self) -> tuple[np.ndarray, int]:
+        """The work rows as (groups, sections + 1, rows, lanes), and the row holding each
+        section's previous output (``_PREV``, or the next slot's input row the marker names;
+        -1: zero)."""
+        n_sec = max(self.n_sections)
+        _, start, _ = _memory_layout(self.n_chains, n_sec, self.channels)
+        n_groups = self._sec4.shape[0]
+        rows = self._mem[start : start + n_groups * (n_sec + 1) * _MEM_BLOCK]
+        marker = int(self._mem[self._recall])
+        row = (
+            _PREV // _WIDTH if marker == 0 else -1 if marker < 0 else _INPUT // _WIDTH + marker - 1
+        )
+        return rows.reshape(n_groups, n_sec + 1, _MEM_BLOCK // _WIDTH, _WIDTH), row
+
+    @property
+    def last_outputs(self) -> np.ndarray:
+        """float64 ``(n_chains, max_sections, channels)``: every section's last output, which
+        a slew limit moves from (a copy). With :attr:`state`, what a new runner needs to
+        continue a chain; write it with :meth:`set_last_outputs`."""
+        rows, row = self._output_rows()
+        n_sec = max(self.n_sections)
+        out = np.zeros((self.n_chains, n_sec, self.channels))
+        if row < 0:
+            return out
+        slot = 1 if row != _PREV // _WIDTH else 0  # outputs sit in the next slot's input rows
+        for chain in range(self.n_chains):
+            g, w = self._group[chain], self._lane[chain]
+            out[chain] = rows[g[None, :], np.arange(n_sec)[:, None] + slot, row, w[None, :]]
+        return out
+
+    def set_last_outputs(self, values: np.ndarray) -> None:
+        """Set every section's last output (as :attr:`last_outputs` gives it), before the
+        runner is in use by another thread."""
+        current = self.last_outputs
+        current[...] = values
+        rows, _ = self._output_rows()
+        n_sec = max(self.n_sections)
+        for chain in range(self.n_chains):
+            g, w = self._group[chain], self._lane[chain]
+            rows[g[None, :], np.arange(n_sec)[:, None], _PREV // _WIDTH, w[None, :]] = current[
+                chain
+            ]
+        self._mem[self._recall] = 0.0
+
     def reset(self) -> None:
-        """Set every section's state to zero (the clip counts are kept)."""
+        """Set every section's state and previous output to zero (the counts are kept)."""
         self._state[...] = 0.0
+        self._mem[self._recall] = -1.0
 
     def _make_view(self, block: np.ndarray) -> np.ndarray:
         frames = np.shape(block)[0]

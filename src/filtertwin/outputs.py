@@ -9,9 +9,11 @@ was. Every writer refuses a target that is one of the inputs it is given to prot
 from __future__ import annotations
 
 import contextlib
+import errno
 import os
 import re
 import secrets
+import tempfile
 from collections.abc import Iterable, Iterator
 from pathlib import Path
 from typing import Any, Self
@@ -21,7 +23,16 @@ import soundfile as sf
 
 from filtertwin.errors import UserInputError
 
-__all__ = ["SafeWriter", "atomic_path", "write_csv", "write_npy"]
+__all__ = [
+    "OutputRun",
+    "SafeWriter",
+    "atomic_path",
+    "cannot_write",
+    "prepare_folder",
+    "remove_empty",
+    "write_csv",
+    "write_npy",
+]
 
 _CSV_WRITE_ROWS = 65536
 """Rows formatted at a time by :func:`write_csv`."""
@@ -29,6 +40,123 @@ _CSV_WRITE_ROWS = 65536
 _FORMAT_BY_SUFFIX = {".wav": "WAV", ".flac": "FLAC", ".aif": "AIFF", ".aiff": "AIFF"}
 _DEFAULT_SUBTYPE = {"WAV": "FLOAT", "FLAC": "PCM_24", "AIFF": "PCM_24"}
 _SFC_SET_ADD_PEAK_CHUNK = 0x1050  # libsndfile sndfile.h; the PEAK chunk holds a wall-clock time
+
+
+_WHY = {
+    errno.EACCES: "permission denied",
+    errno.EPERM: "permission denied",
+    errno.EROFS: "the file system is read-only",
+    errno.ENOSPC: "no space left on the device",
+    errno.EDQUOT: "disk quota exceeded",
+    errno.ENOTDIR: "part of the path is a file, not a folder",
+    errno.ENOENT: "a folder cannot be created there",
+    errno.EEXIST: "a file is in the way",
+}
+
+
+def cannot_write(
+    path: str | os.PathLike[str], exc: BaseException, option: str = ""
+) -> UserInputError:
+    """The one line for an output that cannot be written: what, where, why, and one fix."""
+    code = getattr(exc, "errno", None)
+    why = _WHY.get(code) if isinstance(code, int) else None
+    if why is None:
+        why = str(getattr(exc, "strerror", None) or exc).strip().splitlines()[0]
+    if code in (errno.ENOSPC, errno.EDQUOT):
+        fix = "free some space or choose a folder on another disk"
+    elif code in (errno.ENOTDIR, errno.ENOENT, errno.EEXIST):
+        fix = "give a path whose folders exist or can be created"
+    else:
+        fix = "choose a folder you can write to, e.g. one under your home folder"
+    where = f"{option} " if option else ""
+    return UserInputError(f"cannot write {where}{path}: {why}; {fix}")
+
+
+def prepare_folder(path: str | os.PathLike[str], option: str = "--out") -> list[Path]:
+    """Create an output folder (and missing parents) and check that files can be written in it.
+
+    Parameters
+    ----------
+    path : path-like
+        The folder.
+    option : str
+        How the user gave it, for the message (``"--out"``).
+
+    Returns
+    -------
+    list of Path
+        The folders this call created, deepest first (for :func:`remove_empty`).
+
+    Raises
+    ------
+    UserInputError
+        A file is in the way, or the folder cannot be created or written; nothing is left.
+    """
+    folder = Path(path)
+    missing = []
+    probe = folder
+    while not probe.exists() and probe != probe.parent:
+        missing.append(probe)
+        probe = probe.parent
+    if probe.exists() and not probe.is_dir():
+        if probe == folder:
+            raise UserInputError(f"{option} {folder}: is a file, not a folder; give a folder name")
+        raise UserInputError(
+            f"cannot write {option} {folder}: {probe} is a file, not a folder; give a path "
+            "through folders"
+        )
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        with tempfile.TemporaryFile(dir=folder):
+            pass
+    except OSError as exc:
+        remove_empty(missing)
+        raise cannot_write(folder, exc, option) from None
+    return missing
+
+
+def remove_empty(folders: Iterable[Path]) -> None:
+    """Remove each of ``folders`` (give them deepest first) that exists and is empty."""
+    for folder in folders:
+        with contextlib.suppress(OSError):
+            if folder.is_dir() and not any(folder.iterdir()):
+                folder.rmdir()
+
+
+class OutputRun:
+    """The outputs of one command run: a folder created if missing, and the files written.
+
+    Leaving the ``with`` block by an exception (Ctrl-C included) removes every file noted with
+    :meth:`add` and the folders this run created, so a failed run leaves nothing behind.
+
+    Examples
+    --------
+    >>> with OutputRun("plots") as run:  # doctest: +SKIP
+    ...     run.add(draw(run.folder / "a.png"))
+    """
+
+    def __init__(self, folder: str | os.PathLike[str], option: str = "--out") -> None:
+        self.folder = Path(folder)
+        self.option = option
+        self.files: list[Path] = []
+        self.made: list[Path] = []
+
+    def __enter__(self) -> Self:
+        self.made = prepare_folder(self.folder, self.option)
+        return self
+
+    def add(self, path: str | os.PathLike[str]) -> Path:
+        """Note a file this run has written (never before: a refused target may be an
+        input); returns it as a Path."""
+        self.files.append(Path(path))
+        return Path(path)
+
+    def __exit__(self, exc_type: object, exc: object, traceback: object) -> None:
+        if exc_type is not None:
+            for path in self.files:
+                with contextlib.suppress(OSError):
+                    path.unlink(missing_ok=True)
+            remove_empty(self.made)
 
 
 def _refuse_protected(target: Path, protect: Iterable[str | os.PathLike[str]]) -> None:
@@ -89,10 +217,13 @@ def atomic_path(
     temporary = _temporary_path(final)
     try:
         yield temporary
-    except BaseException:
-        temporary.unlink(missing_ok=True)
+        os.replace(temporary, final)
+    except BaseException as exc:
+        with contextlib.suppress(OSError):
+            temporary.unlink(missing_ok=True)
+        if isinstance(exc, OSError) and exc.filename in (str(temporary), str(final)):
+            raise cannot_write(final, exc) from None
         raise
-    os.replace(temporary, final)
 
 
 class _TemporaryFileWriter:
@@ -189,10 +320,14 @@ class SafeWriter(_TemporaryFileWriter):
         self.frames = 0
         self._float32_as_is = self.subtype == "FLOAT"
         self._temporary = _temporary_path(self.path)
-        self._handle = sf.SoundFile(
-            self._temporary, "w", int(round(rate_hz)), self.channels, self.subtype,
-            format=major,
-        )  # fmt: skip
+        try:
+            self._handle = sf.SoundFile(
+                self._temporary, "w", int(round(rate_hz)), self.channels, self.subtype,
+                format=major,
+            )  # fmt: skip
+        except (OSError, RuntimeError) as exc:  # libsndfile's error is a RuntimeError
+            self._temporary.unlink(missing_ok=True)
+            raise cannot_write(self.path, _as_os_error(exc, self._temporary)) from None
         _drop_peak_chunk(self._handle)
 
     def write(self, block: np.ndarray) -> None:
@@ -212,6 +347,21 @@ class SafeWriter(_TemporaryFileWriter):
             raise ValueError(f"block shape {block.shape} does not fit {self.channels} channels")
         self._handle.write(block)
         self.frames += len(block)
+
+
+def _as_os_error(exc: BaseException, temporary: Path) -> BaseException:
+    """libsndfile says only "System error" for a file it cannot open: find out why."""
+    if isinstance(exc, OSError):
+        return exc
+    try:
+        with open(temporary, "wb"):
+            pass
+    except OSError as why:
+        return why
+    finally:
+        with contextlib.suppress(OSError):
+            temporary.unlink(missing_ok=True)
+    return exc
 
 
 def _drop_peak_chunk(file: sf.SoundFile) -> None:
@@ -266,7 +416,10 @@ class CsvWriter(_TemporaryFileWriter):
         self._formats = ["%.9f"] + ["%.9g"] * len(self.names)
         _refuse_protected(self.path, protect)
         self._temporary = _temporary_path(self.path)
-        self._handle = open(self._temporary, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
+        try:
+            self._handle = open(self._temporary, "w", encoding="utf-8", newline="\n")  # noqa: SIM115
+        except OSError as exc:
+            raise cannot_write(self.path, exc) from None
         self._handle.write(",".join(("time_s", *self.names)) + "\n")
 
     def write(self, block: np.ndarray) -> None:

@@ -444,3 +444,43 @@ def nearest_alignment(given: Sequence[Section]) -> AlignmentMatch:
         consider("linkwitz-riley")
     assert best is not None
     return best
+
+
+NEAR_FLAT_RIPPLE_DB = 0.1
+"""A Chebyshev match with less ripple than this is reported as close to Butterworth: its
+ripple is smaller than what 1 % parts move a stage's peak by, and a builder reads "Chebyshev"
+as a filter chosen for its ripple (common practice, no source)."""
+
+
+def q_deviation_pct(given: Sequence[Section], alignment: str = "butterworth") -> list[float]:
+    """How far each second-order section's Q is from the alignment's, in percent.
+
+    Sections are compared in canonical order (first-order first, then ascending Q), as
+    :func:`nearest_alignment` matches them.
+
+    Parameters
+    ----------
+    given : sequence of Section
+        Low-pass sections, total order 1 to 10.
+    alignment : str
+        ``"butterworth"``, ``"bessel"`` or ``"linkwitz-riley"`` (no options needed).
+
+    Returns
+    -------
+    list of float
+        ``100 * (Q / Q_alignment - 1)`` per second-order section, in canonical order.
+
+    Examples
+    --------
+    >>> [round(d, 1) for d in q_deviation_pct([Section(2, 1.0, 0.729)])]
+    [3.1]
+    """
+    order = sum(s.order for s in given)
+    if not 1 <= order <= MAX_ORDER:
+        raise ValueError(f"total order of the sections must be 1 to {MAX_ORDER} (got {order})")
+    reference = sections(alignment, order)
+    return [
+        100 * (g.q / c.q - 1)
+        for g, c in zip(_canonical(given), reference, strict=True)
+        if c.order == 2
+    ]

@@ -48,10 +48,14 @@ class CsvLayout:
         Field separator; ``None`` means runs of whitespace.
     skip_lines : int
         Lines before the first data row (comments, blank lines, the header row).
+    decimal_comma : bool
+        Numbers are written with a decimal comma (``0,25``; fields then split by ``;``,
+        tabs or spaces).
     """
 
     delimiter: str | None
     skip_lines: int
+    decimal_comma: bool = False
 
 
 @dataclass(frozen=True)

@@ -79,7 +79,8 @@ class TwinStream:
     max_frames : int
         Largest block that will be passed to :meth:`process`.
     clip : bool
-        Model the amplifier output swing (the twin's clip levels); False runs linear.
+        Model the amplifier output swing and slew rate (the twin's clip levels and slew
+        steps); False runs linear.
 
     Attributes
     ----------
@@ -100,8 +101,9 @@ class TwinStream:
         self.max_frames = max_frames
         factor = twin.oversampling
         levels = twin.clip_levels() if clip else None
+        steps = twin.slew_steps() if clip else None
         self._runner = CascadeRunner(
-            twin.chains(), channels, max_frames * factor, clip_levels=levels
+            twin.chains(), channels, max_frames * factor, clip_levels=levels, slew_steps=steps
         )
         self._up: Upsampler | None = None
         self._down: Downsampler | None = None
@@ -119,6 +121,12 @@ class TwinStream:
     def clip_counts(self) -> np.ndarray:
         """Samples limited to the amplifier swing, ``(n_filters, max_sections)``, cumulative."""
         return np.array(self._runner.clip_counts)
+
+    @property
+    def slew_counts(self) -> np.ndarray:
+        """Samples limited to the amplifier slew rate, ``(n_filters, max_sections)``, at the
+        twin's rate, cumulative."""
+        return np.array(self._runner.slew_counts)
 
     def process(self, block: np.ndarray) -> np.ndarray:
         """Filter ``(frames, channels)``; returns ``(n_filters, frames_out, channels)``.
@@ -328,7 +336,8 @@ class WrittenFile:
 
 @dataclass(frozen=True)
 class StageClip:
-    """Samples the amplifier model limited at one stage output (summed over channels)."""
+    """Samples the amplifier model limited at one stage output (summed over channels): to
+    its swing (clipping) or to its slew rate (slewing, counted at the twin's rate)."""
 
     filter: str
     stage: int
@@ -353,6 +362,9 @@ class RenderResult:
         Every output, in plan order.
     clips : tuple of StageClip
         Stages whose output reached the amplifier swing (empty: no clipping).
+    slews : tuple of StageClip
+        Stages whose output reached the amplifier slew rate, samples at the twin's rate
+        (empty: no slewing).
     spectra : tuple of Spectrum
         Welch PSD of each file, in the order of ``files`` (empty when not accumulated).
     elapsed_s : float
@@ -368,6 +380,7 @@ class RenderResult:
     clips: tuple[StageClip, ...]
     spectra: tuple[Spectrum, ...] = ()
     elapsed_s: float = 0.0
+    slews: tuple[StageClip, ...] = ()
 
 
 _WRITE_QUEUE_BLOCKS = 4  # blocks waiting per output file: bounded memory
@@ -518,6 +531,7 @@ def render(
         info.path, info.rate_hz, info.frames, info.channels, twin.oversampling,
         tuple(out.written() for out in outputs), _stage_clips(twin, stream.clip_counts),
         tuple(acc.result() for acc in spectra), time.perf_counter() - started,
+        _stage_clips(twin, stream.slew_counts),
     )  # fmt: skip
 
 

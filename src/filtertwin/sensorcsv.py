@@ -1,8 +1,10 @@
 """Sensor tables: CSV (also ``.tsv`` and ``.txt``) captures validated and read in batches.
 
 A table has one row per sample, optionally a header row (and a row of units under it) and
-``#`` comment lines; fields are separated by commas, semicolons, tabs or runs of spaces. The
-sample rate comes from a time column (seconds, or ``ms``/``us`` by its name) or is given.
+``#`` comment lines; fields are separated by commas, semicolons, tabs or runs of spaces, and
+numbers may use a decimal comma when fields are not separated by commas. The sample rate
+comes from a time column (seconds, or ``ms``/``us`` by its name, or ISO-8601 date and time
+stamps, :mod:`filtertwin.timestamps`) or is given.
 :func:`inspect_csv` checks every row once; :func:`csv_blocks` then reads the chosen columns
 in blocks, parsing :data:`CSV_BATCH_LINES` lines at a time. Users reach both through
 :func:`filtertwin.recordings.inspect` and :func:`filtertwin.recordings.read_blocks`.
@@ -11,7 +13,7 @@ in blocks, parsing :data:`CSV_BATCH_LINES` lines at a time. Users reach both thr
 from __future__ import annotations
 
 import re
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from itertools import islice
 from pathlib import Path
 from typing import TextIO
@@ -28,6 +30,7 @@ from filtertwin.recordinginfo import (
     head_bytes,
     is_text,
 )
+from filtertwin.timestamps import is_iso_time, parse_iso_time
 
 __all__ = ["CSV_BATCH_LINES", "CSV_SUFFIXES", "csv_blocks", "inspect_csv"]
 
@@ -38,6 +41,7 @@ CSV_SUFFIXES = frozenset({".csv", ".tsv", ".txt"})
 
 _TIME_SCALES_S = {
     **dict.fromkeys(("t", "time", "time_s", "t_s", "seconds", "sec", "s", "timestamp"), 1.0),
+    **dict.fromkeys(("datetime", "date_time", "time_utc", "utc"), 1.0),
     **dict.fromkeys(("time_ms", "t_ms", "ms", "milliseconds"), 1e-3),
     **dict.fromkeys(("time_us", "t_us", "us", "microseconds"), 1e-6),
 }
@@ -78,13 +82,15 @@ def inspect_csv(
         One line naming file, line and column and the fix.
     """
     _check_text(path)
-    layout, names, numeric = _csv_head(path)
+    layout, names, numeric, first = _csv_head(path)
     every = range(len(names))
     if time_column is not None:
         found = list(choose_indices(path, names, time_column, every, "time column"))
     else:
         found = [j for j in every if _time_key(names[j]) in _TIME_SCALES_S][:1]
+        found = found or [j for j in every if j < len(first) and is_iso_time(first[j])][:1]
     tcol = found[0] if found else None
+    iso = tcol is not None and tcol < len(first) and is_iso_time(first[tcol])
     scale = _TIME_SCALES_S.get(_time_key(names[found[0]]), 1.0) if found else 1.0
     data = [j for j in every if j != tcol and (column is not None or numeric[j])]
     chosen = choose_indices(path, names, column, data, "column")
@@ -96,7 +102,10 @@ def inspect_csv(
             " sample rate was given; give the rate with --rate HZ or add a time column"
         )
     usecols = chosen if tcol is None else (tcol, *chosen)
-    frames, time_rate_hz = _scan_csv(path, layout, names, usecols, tcol, scale, jitter_limit)
+    frames, time_rate_hz = _scan_csv(
+        path, layout, names, usecols, tcol, 1.0 if iso else scale, jitter_limit,
+        first[tcol] if iso and tcol is not None else None,
+    )  # fmt: skip
     rate_hz = _csv_rate(path, frames, rate_hz, time_rate_hz, jitter_limit)
     return RecordingInfo(
         path, "csv", rate_hz, len(chosen), frames, tuple(names[j] for j in chosen), None,
@@ -131,8 +140,9 @@ def _check_text(path: Path) -> None:
         fail(f"{path} is binary, not a UTF-8 text table; export the capture as CSV text")
 
 
-def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool]]:
-    """Find delimiter, header names and which fields of the first data row are numbers.
+def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool], list[str]]:
+    """Find delimiter, header names, which fields of the first data row are numbers, and
+    that row's fields.
 
     The first row is a header if it has text where the row below has a number; a row of text
     right under the header (units, such as ``s,g``) is skipped as well.
@@ -148,9 +158,8 @@ def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool]]:
         fail(f"{path} has no data rows; export the capture again")
     delimiter = next((d for d in (",", ";", "\t") if d in content[0][1]), None)
     rows = [_split(line, delimiter) for _, line in content]
-    for (index, _), row in zip(content, rows, strict=True):
-        _refuse_decimal_commas(path, index, row, delimiter)
-    numbers = [[_is_number(field) for field in row] for row in rows]
+    comma = delimiter != "," and any(_DECIMAL_COMMA.match(f) for row in rows for f in row)
+    numbers = [[_is_number(field, comma) for field in row] for row in rows]
 
     def labels_over(i: int) -> bool:
         return any(not a and b for a, b in zip(numbers[0], numbers[i], strict=False))
@@ -166,22 +175,7 @@ def _csv_head(path: Path) -> tuple[CsvLayout, tuple[str, ...], list[bool]]:
     labels = rows[0] if header_rows else [""] * len(data_row)
     names = tuple(label or f"col{j}" for j, label in enumerate(labels))
     numeric = numbers[header_rows] + [False] * (len(names) - len(data_row))
-    return CsvLayout(delimiter, content[header_rows][0]), names, numeric
-
-
-_DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+([eE][+-]?\d+)?$")
-
-
-def _refuse_decimal_commas(path: Path, index: int, row: list[str], delimiter: str | None) -> None:
-    """Refuse numbers written with a decimal comma ("0,25" in a table split by ";" or tabs)."""
-    if delimiter == ",":
-        return
-    for field in row:
-        if _DECIMAL_COMMA.match(field):
-            fail(
-                f"{path} line {index + 1}: {field!r} is written with a decimal comma; export "
-                "the table with a decimal point (or replace ',' by '.' in the numbers)"
-            )
+    return CsvLayout(delimiter, content[header_rows][0], comma), names, numeric, data_row
 
 
 def _scan_csv(
@@ -192,11 +186,15 @@ def _scan_csv(
     tcol: int | None,
     scale: float,
     jitter_limit: float,
+    iso_first: str | None = None,
 ) -> tuple[int, float | None]:
-    """Count the rows and check the time stamps; return (frames, rate from time column)."""
+    """Count the rows and check the time stamps; return (frames, rate from time column).
+
+    ``iso_first`` is the first ISO-8601 stamp of an ISO time column (None for seconds)."""
     frames = 0
     t_first = t_last = typical = None
-    for lines, values in _csv_batches(path, layout, names, usecols):
+    iso = None if iso_first is None or tcol is None else (tcol, _iso_seconds(path, iso_first))
+    for lines, values in _csv_batches(path, layout, names, usecols, iso):
         frames += len(values)
         if tcol is None:
             continue
@@ -259,8 +257,28 @@ def _csv_pieces(info: RecordingInfo) -> Iterator[np.ndarray]:
         yield values
 
 
+Converter = tuple[int, Callable[[str], float]]
+
+
+def _iso_seconds(path: Path, first: str) -> Callable[[str], float]:
+    """A converter of ISO-8601 stamps to seconds since ``first``."""
+    ref = parse_iso_time(first)
+
+    def seconds(text: str) -> float:
+        try:
+            return parse_iso_time(text).since(ref)
+        except ValueError:
+            fail(f"{path}: time stamp {text[:40]!r} is not ISO-8601 like {first!r}; fix the row")
+
+    return seconds
+
+
 def _csv_batches(
-    path: Path, layout: CsvLayout, names: tuple[str, ...], usecols: tuple[int, ...]
+    path: Path,
+    layout: CsvLayout,
+    names: tuple[str, ...],
+    usecols: tuple[int, ...],
+    convert: Converter | None = None,
 ) -> Iterator[tuple[np.ndarray, np.ndarray]]:
     """Yield (1-based line numbers, values of ``usecols``) for batches of data rows."""
     with _open_text(path) as fh:
@@ -282,7 +300,7 @@ def _csv_batches(
             line_no += len(batch)
             if rows:
                 lines = np.array(numbers)
-                yield lines, _parse_rows(path, rows, lines, layout, names, usecols)
+                yield lines, _parse_rows(path, rows, lines, layout, names, usecols, convert)
 
 
 def _parse_rows(
@@ -292,11 +310,17 @@ def _parse_rows(
     layout: CsvLayout,
     names: tuple[str, ...],
     usecols: tuple[int, ...],
+    convert: Converter | None = None,
 ) -> np.ndarray:
+    if layout.decimal_comma:
+        rows = [row.replace(",", ".") for row in rows]
+    converters: dict[int | str, Callable[[str], float]] | None = None
+    if convert is not None:
+        converters = {convert[0]: convert[1]}
     try:
         values = np.loadtxt(
             rows, delimiter=layout.delimiter, quotechar='"', comments=None, usecols=usecols,
-            dtype=np.float64, ndmin=2,
+            dtype=np.float64, ndmin=2, converters=converters,
         )  # fmt: skip
     except ValueError as exc:
         _explain_row_error(path, rows, lines, layout, names, usecols)
@@ -328,7 +352,7 @@ def _explain_row_error(
                     f"{path} line {line} has {len(fields)} fields, so column {names[j]!r}"
                     f" (index {j}) is missing; complete or drop the row"
                 )
-            if not _is_number(fields[j]):
+            if not _is_number(fields[j], layout.decimal_comma):
                 fail(
                     f"{path} line {line}, column {names[j]!r} (index {j}): {fields[j][:20]!r}"
                     " is not a number; fix the value or choose another column"
@@ -345,9 +369,13 @@ def _split(line: str, delimiter: str | None) -> list[str]:
     return [field.strip().strip('"').strip() for field in line.split(delimiter)]
 
 
-def _is_number(text: str) -> bool:
+_DECIMAL_COMMA = re.compile(r"^[-+]?\d*,\d+(?:[eE][-+]?\d+)?$")
+"""A number written with a decimal comma: ``0,25``, ``,5``, ``-1,5e-3``."""
+
+
+def _is_number(text: str, decimal_comma: bool = False) -> bool:
     try:
-        float(text)
+        float(text.replace(",", ".") if decimal_comma else text)
     except ValueError:
         return False
     return True

@@ -134,6 +134,8 @@ def _choice(value: Any, choices: tuple[str, ...], ctx: _Ctx) -> str:
 def _quantity(value: Any, unit: str, ctx: _Ctx, example: str) -> float:
     try:
         number = units.parse_quantity(value, unit)
+    except units.ValueTextError as exc:  # one fix: the field's own example
+        raise ctx.fail(exc.problem, f"write it like {example}") from None
     except (ValueError, TypeError) as exc:
         raise ctx.fail(f"{exc}", f"write it like {example}") from None
     if not math.isfinite(number) or number <= 0:

@@ -10,6 +10,7 @@ combination wins. The search is vectorised over all candidates at once.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -114,6 +115,7 @@ def _solve_r1(response: str, c1, c2, t: float, q: float, k: float) -> np.ndarray
     return np.where(roots > 0, roots, np.nan)
 
 
+@functools.lru_cache(maxsize=256)  # a live edit rebuilds the whole design: reuse the rest
 def synthesize(
     response: str,
     order: int,

@@ -29,6 +29,13 @@ OVERSAMPLING_FACTORS = (1, 2, 4, 8)
 # the twin counts as faithful within these (magnitude dB, phase degrees) over the band
 FIDELITY_TOL_DB = 0.1
 FIDELITY_TOL_DEG = 1.0
+# The slew limit acts on each sample's step; a sine's step, 2 A sin(pi f / fs), falls short of
+# its slope times the sample period, 2 pi f A / fs, by 1 - sinc. A design near its slew limit
+# runs where that shortfall is at most SLEW_SLOPE_TOL at the top of the band.
+SLEW_SLOPE_TOL = 0.01
+# near its slew limit: a full-scale sine in the band needs at least this fraction of the slew
+# rate at some stage output (a signal within 6 dB of full scale would slew)
+SLEW_NEAR = 0.5
 RESAMPLING_WORDS = {
     "linear": "linear-phase resampling (delay removed)",
     "causal": "causal minimum-phase resampling (no output before the input)",
@@ -91,6 +98,12 @@ class FilterTwin:
     stage_of_section : tuple of int
         1-based stage number of each section.
     fidelity : Fidelity
+    slew_fs : ndarray (n,) or None
+        Largest step per sample of the stage output ending at each section, in full-scale
+        units: the amplifier's slew rate / (full scale x ``rate_hz``) (inf where a section
+        is not a stage output; None: no amplifier modelled).
+    slew_note : str
+        How the slew limit is modelled at this rate when a stage is near it ("" otherwise).
     """
 
     name: str
@@ -99,6 +112,8 @@ class FilterTwin:
     clip_fs: np.ndarray
     stage_of_section: tuple[int, ...]
     fidelity: Fidelity
+    slew_fs: np.ndarray | None = None
+    slew_note: str = ""
 
 
 @dataclass(frozen=True)
@@ -139,6 +154,24 @@ class Twin:
 
     def clip_levels(self) -> list[np.ndarray]:
         return [f.clip_fs for f in self.filters]
+
+    def slew_steps(self) -> list[np.ndarray]:
+        """Per filter, the largest step per sample of each section's output (full-scale
+        units; inf: no limit), for :class:`filtertwin.engine.CascadeRunner`."""
+        return [
+            np.full(len(f.sos), np.inf) if f.slew_fs is None else f.slew_fs for f in self.filters
+        ]
+
+
+def slew_rate_needed_hz(top_hz: float, tol: float = SLEW_SLOPE_TOL) -> float:
+    """Lowest twin rate at which a sine's step per sample, up to ``top_hz``, is within
+    ``tol`` of its slope times the sample period (1 - sin(x)/x <= tol, x = pi f / rate)."""
+    x = math.sqrt(6 * tol)  # sin(x)/x = 1 - x^2/6 + x^4/120 ...: refine by Newton's method
+    for _ in range(20):
+        g = math.sin(x) / x - (1 - tol)
+        dg = (x * math.cos(x) - math.sin(x)) / (x * x)
+        x -= g / dg
+    return math.pi * top_hz / x
 
 
 def characteristic_hz(b: np.ndarray, a: np.ndarray) -> float:
@@ -334,6 +367,8 @@ def build_twin(
             "give --resampling linear or causal"
         )
     factors = OVERSAMPLING_FACTORS if oversampling == "auto" else (int(oversampling),)
+    near = _near_slew(design, chosen, band)
+    slew_rate_hz = slew_rate_needed_hz(band[1]) if near else 0.0
     result: Twin | None = None
     refused: UserInputError | None = None
     for factor in factors:
@@ -344,12 +379,15 @@ def build_twin(
                 sos, stage_of = _filter_sos(f, run_rate, use_amp, band[1], design.spec.source)
                 fid = measure_fidelity(f, sos, run_rate, band, use_amp, factor, resampling)
                 levels = _clip_levels(design, stage_of)
-                twins.append(FilterTwin(f.name, run_rate, sos, levels, stage_of, fid))
+                steps = _slew_steps(design, stage_of, run_rate)
+                note = _slew_note(near.get(f.name, ()), run_rate, slew_rate_hz, band[1])
+                twin = FilterTwin(f.name, run_rate, sos, levels, stage_of, fid, steps, note)
+                twins.append(twin)
         except UserInputError as error:  # a corner above this rate's Nyquist: try a higher one
             refused = error
             continue
         result = Twin(rate_hz, factor, tuple(twins), resampling)
-        if all(t.fidelity.within(tol_db, tol_deg) for t in twins):
+        if all(t.fidelity.within(tol_db, tol_deg) for t in twins) and run_rate >= slew_rate_hz:
             break
     if result is None:
         assert refused is not None
@@ -357,13 +395,64 @@ def build_twin(
     return result
 
 
+def _stage_outputs(stage_of: tuple[int, ...]) -> np.ndarray:
+    """True at each stage's last section: where the stage's amplifier output is."""
+    return np.array([i == len(stage_of) - 1 or stage_of[i + 1] != stage
+                     for i, stage in enumerate(stage_of)], dtype=bool)  # fmt: skip
+
+
 def _clip_levels(design: Design, stage_of: tuple[int, ...]) -> np.ndarray:
     levels = np.full(len(stage_of), np.inf)
     if design.amplifier is None:
         return levels
-    limit = design.amplifier.swing_v / design.spec.full_scale_v
-    for i, stage in enumerate(stage_of):
-        last = i == len(stage_of) - 1 or stage_of[i + 1] != stage
-        if last:
-            levels[i] = limit
+    levels[_stage_outputs(stage_of)] = design.amplifier.swing_v / design.spec.full_scale_v
     return levels
+
+
+def _slew_steps(design: Design, stage_of: tuple[int, ...], rate_hz: float) -> np.ndarray | None:
+    """Slew rate in full-scale units per sample at each stage output (the same volts-to-full-
+    scale mapping as the clip levels), inf elsewhere; None without an amplifier."""
+    if design.amplifier is None:
+        return None
+    steps = np.full(len(stage_of), np.inf)
+    per_sample_v = design.amplifier.slew_v_per_s / rate_hz
+    steps[_stage_outputs(stage_of)] = per_sample_v / design.spec.full_scale_v
+    return steps
+
+
+def _near_slew(
+    design: Design, chosen: list[Filter], band: tuple[float, float]
+) -> dict[str, tuple[int, ...]]:
+    """Filter name -> stages that a sine within 6 dB of full scale in the band makes slew."""
+    amp = design.amplifier
+    if amp is None:
+        return {}
+    near = {}
+    for f in chosen:
+        stages = tuple(
+            s.stage
+            for s in f.slew_demands(amp, design.spec.full_scale_v, band)
+            if s.demand >= SLEW_NEAR
+        )
+        if stages:
+            near[f.name] = stages
+    return near
+
+
+def _slew_note(stages: tuple[int, ...], rate_hz: float, needed_hz: float, top_hz: float) -> str:
+    if not stages:
+        return ""
+    which = "stage " + ", ".join(str(s) for s in stages)
+    x = math.pi * top_hz / rate_hz
+    short = 100 * (1 - math.sin(x) / x) if x < math.pi else 100.0
+    if rate_hz >= needed_hz:
+        return (
+            f"{which} near the slew limit: modelled at {rate_hz / 1e3:.4g} kHz, where a sine's "
+            f"step per sample is within {short:.1f} % of its slope up to {top_hz / 1e3:.4g} kHz"
+        )
+    return (
+        f"{which} near the slew limit: at {rate_hz / 1e3:.4g} kHz a sine's step per sample "
+        f"falls {short:.1f} % short of its slope at {top_hz / 1e3:.4g} kHz, so slewing there is "
+        f"under-reported; --oversample auto picks a rate that models it within "
+        f"{100 * SLEW_SLOPE_TOL:g} %"
+    )

@@ -53,6 +53,12 @@ _UNIT_SPELLINGS = {
     "s": "s",
 }
 UNITS = ("F", "ohm", "Hz", "V", "A", "s")
+# Unit letters in the wrong case that can only mean one thing ("kHZ", "OHM", "v"). A lone
+# "f", "a" or "S" could be a prefix (femto, atto) or another unit (siemens): "f" and "a" are
+# read as farad and ampere only after a prefix ("10 nf", "2 ma"); "mf" stays refused, since
+# old drawings write "mf" for microfarads. Prefixes keep their case: "m" and "M" differ.
+_UNIT_ANY_CASE = {"hz": "Hz", "ohm": "ohm", "ohms": "ohm", "v": "V"}
+_UNIT_AFTER_PREFIX = {"f": "F", "a": "A"}
 
 _PREFIXES = "".join(_PREFIX_EXPONENT)
 _NUMBER = r"(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
@@ -65,6 +71,25 @@ _CODE_FORM = re.compile(
 _TWO_MARKERS = re.compile(rf"[+-]?[\d.]*[{_PREFIXES}RF][\d.]*\s*[^\d\s.+-]*")
 
 _ACCEPTED = "write e.g. 4700, 4.7k, 4k7, 2n2, R47, 4R7, 2.2nF, 47kohm or 1.5 MHz"
+_EXAMPLES = {
+    "F": "write e.g. 2n2, 2.2nF, 100n or 1u",
+    "ohm": "write e.g. 4k7, 4.7k, 47kohm or 4700",
+    "Hz": "write e.g. 1.5 kHz, 1k5, 48k or 48000",
+    "V": "write e.g. 2 V, 500 mV or 0.5",
+    "A": "write e.g. 1 mA or 0.001",
+    "s": "write e.g. 0.5, 500 ms or 2 s",
+}
+
+
+class ValueTextError(ValueError):
+    """Text that is not a value: ``problem`` says what is wrong, ``fix`` the one way to write
+    it; ``str()`` joins them. A caller with a better example replaces ``fix``."""
+
+    def __init__(self, problem: str, fix: str = _ACCEPTED) -> None:
+        super().__init__(f"{problem}; {fix}")
+        self.problem = problem
+        self.fix = fix
+
 
 # Letter-code prefixes by decimal exponent, per kind of part.
 _CODE_LETTERS = {
@@ -74,21 +99,44 @@ _CODE_LETTERS = {
 _SI_LETTERS = {-12: "p", -9: "n", -6: "\u00b5", -3: "m", 0: "", 3: "k", 6: "M", 9: "G"}
 
 
-def _unit_of(spelling: str, text: str) -> str:
-    try:
+def _unit_of(spelling: str, text: str, prefixed: bool) -> str:
+    if spelling in _UNIT_SPELLINGS:
         return _UNIT_SPELLINGS[spelling]
-    except KeyError:
-        raise ValueError(
-            f"cannot read {text!r} as a value: unknown suffix {spelling!r} "
-            f"(units: {', '.join(UNITS)}); {_ACCEPTED}"
-        ) from None
+    folded = spelling.lower()
+    if folded in _UNIT_ANY_CASE:
+        return _UNIT_ANY_CASE[folded]
+    if prefixed and folded in _UNIT_AFTER_PREFIX and not text.rstrip().lower().endswith("mf"):
+        return _UNIT_AFTER_PREFIX[folded]
+    if not prefixed and folded in _UNIT_AFTER_PREFIX:
+        unit = _UNIT_AFTER_PREFIX[folded]
+        raise ValueTextError(
+            f"cannot read {text!r} as a value: a lone {spelling!r} could be a prefix "
+            f"({'femto' if folded == 'f' else 'atto'}) rather than {unit}",
+            f"write {unit} for {'farads' if unit == 'F' else 'amperes'}",
+        )
+    head = spelling[:1]
+    if head and head not in _PREFIX_EXPONENT and head.lower() in _PREFIX_EXPONENT:
+        raise ValueTextError(
+            f"cannot read {text!r} as a value: {head!r} is not a prefix (prefixes keep their "
+            "case: m milli, M mega)",
+            f"write {head.lower()}{spelling[1:]}",
+        )
+    if text.rstrip().lower().endswith("mf"):
+        raise ValueTextError(
+            f"cannot read {text!r} as a value: 'mf' could mean millifarads or (on old "
+            "drawings) microfarads",
+            "write mF for millifarads or uF for microfarads",
+        )
+    raise ValueTextError(
+        f"cannot read {text!r} as a value: unknown suffix {spelling!r} (units: {', '.join(UNITS)})"
+    )
 
 
 def _parse_text(text: str) -> tuple[float, str | None]:
     """Value in the base unit and the unit the text names (None when it names none)."""
     stripped = text.strip()
     if not stripped:
-        raise ValueError(f"cannot read {text!r} as a value: it is empty; {_ACCEPTED}")
+        raise ValueTextError(f"cannot read {text!r} as a value: it is empty")
     code = _CODE_FORM.fullmatch(stripped)
     decimal = _DECIMAL_FORM.fullmatch(stripped)
     if code is not None:
@@ -98,20 +146,20 @@ def _parse_text(text: str) -> tuple[float, str | None]:
         digits = decimal["number"]
         letter, sign, spelling = decimal["letter"], decimal["sign"], decimal["unit"]
     elif _TWO_MARKERS.fullmatch(stripped) and "." in stripped:
-        raise ValueError(
+        raise ValueTextError(
             f"cannot read {text!r} as a value: it has two decimal markers "
-            f"(a point and a code letter); {_ACCEPTED}"
+            "(a point and a code letter)"
         )
     else:
-        raise ValueError(f"cannot read {text!r} as a value: not a number; {_ACCEPTED}")
+        raise ValueTextError(f"cannot read {text!r} as a value: not a number")
     # Decimal keeps 4.7 * 1e-9 the float nearest 4.7e-9 (a float product may be 1 ulp off).
     value = float(Decimal(digits).scaleb(_PREFIX_EXPONENT.get(letter, 0)))
     implied = _UNIT_MARKERS.get(letter)
-    named = _unit_of(spelling, text) if spelling else None
+    named = _unit_of(spelling, text, letter in _PREFIX_EXPONENT) if spelling else None
     if implied is not None and named is not None and named != implied:
-        raise ValueError(
+        raise ValueTextError(
             f"cannot read {text!r} as a value: the letter {letter!r} means {implied} "
-            f"but the unit is {named}; {_ACCEPTED}"
+            f"but the unit is {named}"
         )
     return (-value if sign == "-" else value), named or implied
 
@@ -164,7 +212,12 @@ def parse_quantity(
     if unit is not None and unit not in UNITS:
         raise ValueError(f"unit must be one of {', '.join(UNITS)} or None (got {unit!r})")
     if isinstance(text_or_number, str):
-        value, named = _parse_text(text_or_number)
+        try:
+            value, named = _parse_text(text_or_number)
+        except ValueTextError as exc:
+            if unit is None or exc.fix != _ACCEPTED:
+                raise
+            raise ValueTextError(exc.problem, _EXAMPLES[unit]) from None
     elif isinstance(text_or_number, numbers.Real) and not isinstance(text_or_number, bool):
         value, named = float(text_or_number), None
     else:
@@ -173,18 +226,19 @@ def parse_quantity(
             f"{text_or_number!r})"
         )
     if not math.isfinite(value):
-        raise ValueError(
-            f"cannot read {text_or_number!r} as a value: it is not finite; {_ACCEPTED}"
+        raise ValueTextError(
+            f"cannot read {text_or_number!r} as a value: it is not finite",
+            _EXAMPLES.get(unit or "", _ACCEPTED),
         )
     if unit is not None and named is not None and named != unit:
-        raise ValueError(
-            f"cannot read {text_or_number!r} as a value in {unit}: it is written in {named}; "
-            f"write it in {unit} or without a unit"
+        raise ValueTextError(
+            f"cannot read {text_or_number!r} as a value in {unit}: it is written in {named}",
+            f"write it in {unit} or without a unit",
         )
     if value < 0.0 and not allow_negative:
-        raise ValueError(
-            f"cannot read {text_or_number!r} as a value: it is negative; "
-            "write a value of zero or more"
+        raise ValueTextError(
+            f"cannot read {text_or_number!r} as a value: it is negative",
+            "write a value of zero or more",
         )
     return value + 0.0  # no negative zero
 

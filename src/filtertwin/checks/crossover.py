@@ -45,6 +45,10 @@ SEARCH_SPAN = 10.0
 """Crossover frequencies are searched from band low / 10 to band high x 10."""
 ADVICE_THRESHOLD_DB = 0.1
 """A polarity change is advised only when it improves the largest deviation this much."""
+SMALLEST_REPORTED_DB = 0.001
+"""A smaller improvement from the other polarity is not worth a word (numerical noise)."""
+QUADRATURE_TOL_DEG = 5.0
+"""Ways this close to 90 degrees apart at every crossover are in quadrature."""
 FLOOR_DB = -300.0
 POLARITY_WORDS = {1: "normal", -1: "inverted"}
 _RANK = {"lowpass": 0, "bandpass": 1, "highpass": 2}
@@ -91,6 +95,9 @@ class PolarityAdvice:
     invert : tuple of str
         Ways whose polarity should change (empty when the current choice is best, within
         0.1 dB).
+    quadrature : bool
+        The ways meet 90 degrees apart at every crossover (odd-order Butterworth ways): both
+        polarities then sum to a flat magnitude (Linkwitz 1976).
     """
 
     ways: tuple[str, ...]
@@ -100,15 +107,28 @@ class PolarityAdvice:
     best_dev_db: float
     improvement_db: float
     invert: tuple[str, ...]
+    quadrature: bool = False
 
     def advice(self) -> str:
-        """The advice in one sentence."""
+        """The advice in one sentence; any improvement is reported, however small."""
+        note = (
+            "; the ways meet 90 degrees apart, so both polarities sum flat (odd order)"
+            if self.quadrature
+            else ""
+        )
+        flatter = [n for n, a, b in zip(self.ways, self.current, self.best, strict=True) if a != b]
+        if not self.invert and (not flatter or self.improvement_db < SMALLEST_REPORTED_DB):
+            return f"keep the polarities as they are: no other choice gives a flatter sum{note}"
         if not self.invert:
-            return "keep the polarities as they are: no other choice gives a flatter sum"
+            names = " and ".join(f"'{n}'" for n in flatter)
+            return (
+                f"keep the polarities, or invert {names} for a slightly flatter sum (largest "
+                f"deviation {self.current_dev_db:.3f} -> {self.best_dev_db:.3f} dB){note}"
+            )
         names = " and ".join(f"'{n}'" for n in self.invert)
         return (
             f"invert the polarity of {names}: the largest deviation drops from "
-            f"{self.current_dev_db:.2f} dB to {self.best_dev_db:.2f} dB"
+            f"{self.current_dev_db:.2f} dB to {self.best_dev_db:.2f} dB{note}"
         )
 
     def in_words(self, polarities: Sequence[int]) -> dict[str, str]:
@@ -318,12 +338,11 @@ def analyse_ways(
         if dev < best_dev - 1e-12:
             best, best_dev = tuple(int(v) for v in s * signs), dev
     cur_dev, cur_at = _max_dev(h_band.sum(axis=0), reference_db, band_grid)
-    if cur_dev - best_dev < ADVICE_THRESHOLD_DB:
+    if cur_dev <= best_dev:
         best, best_dev = current, cur_dev
-    invert = tuple(n for n, a, b in zip(names, current, best, strict=True) if a != b)
-    advice = PolarityAdvice(
-        tuple(names), current, best, cur_dev, best_dev, cur_dev - best_dev, invert
-    )
+    invert: tuple[str, ...] = ()  # advised only when it helps by ADVICE_THRESHOLD_DB or more
+    if cur_dev - best_dev >= ADVICE_THRESHOLD_DB:
+        invert = tuple(n for n, a, b in zip(names, current, best, strict=True) if a != b)
 
     h_points = np.array([r(np.array(points)) for r in responses])  # (ways, crossovers)
     crossings = []
@@ -340,6 +359,10 @@ def analyse_ways(
                 float(np.degrees(np.angle(h_lo / h_hi))),
             )
         )
+    quadrature = all(abs(abs(c.phase_diff_deg) - 90.0) < QUADRATURE_TOL_DEG for c in crossings)
+    advice = PolarityAdvice(
+        tuple(names), current, best, cur_dev, best_dev, cur_dev - best_dev, invert, quadrature
+    )
     return CrossoverCheck(
         ways=tuple(names),
         f_hz=plot_grid,

@@ -110,6 +110,8 @@ class StopbandPlan:
         Largest magnitude and phase difference over the band of interest.
     reached : bool
         ``stopband_db`` is within :data:`TOLERANCE_DB`.
+    largest_factor : int
+        The largest factor tried.
     """
 
     factor: int
@@ -121,6 +123,7 @@ class StopbandPlan:
     passband_db: float
     passband_deg: float
     reached: bool
+    largest_factor: int = MAX_FACTOR
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -132,6 +135,7 @@ class StopbandPlan:
                 "down_to_db": -self.level_db,
                 "tolerance_db": TOLERANCE_DB,
                 "within": self.reached,
+                "largest_factor_tried": self.largest_factor,
             },
             "passband": {
                 "max_deviation_db": self.passband_db,
@@ -145,9 +149,10 @@ class StopbandPlan:
             f"stopband within {self.stopband_db:.2f} dB of the analog model down to "
             f"-{self.level_db:.0f} dB"
             if self.reached
-            else f"NO factor up to {MAX_FACTOR}x keeps the stopband within {TOLERANCE_DB:g} dB "
-            f"down to -{self.level_db:.0f} dB: off by {self.stopband_db:.1f} dB at "
-            f"{self.stopband_at_hz:.5g} Hz, so 'with filter' figures there are not the circuit's"
+            else f"NO factor up to {self.largest_factor}x keeps the stopband within "
+            f"{TOLERANCE_DB:g} dB down to -{self.level_db:.0f} dB: off by "
+            f"{self.stopband_db:.1f} dB at {self.stopband_at_hz:.5g} Hz, so 'with filter' "
+            "figures there are not the circuit's"
         )
         return (
             f"twin at {self.factor}x: {where}; band of interest within "
@@ -237,6 +242,7 @@ def plan_oversampling(
                 passband_db=float(np.max(np.abs(20 * np.log10(np.abs(ratio))))),
                 passband_deg=float(np.max(np.abs(np.degrees(np.angle(ratio))))),
                 reached=worst <= TOLERANCE_DB,
+                largest_factor=max(factors),
             )
             if plan.reached:
                 return plan

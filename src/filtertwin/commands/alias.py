@@ -10,12 +10,12 @@ import json
 from pathlib import Path
 from typing import Any
 
+from filtertwin.commands import alias_archive
 from filtertwin.commands.options import (
     add_max_jitter,
     column,
     frequency_hz,
     hz,
-    out_folder,
     positive,
 )
 from filtertwin.errors import UserInputError
@@ -43,7 +43,11 @@ def register(subparsers: Any) -> None:
         ),
     )
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
-    p.add_argument("recording", help="WAV/FLAC, CSV (time column or --rate) or NPY (--rate)")
+    p.add_argument(
+        "recording", nargs="+",
+        help="WAV/FLAC, CSV (time column or --rate) or NPY (--rate); several files, folders or "
+        "patterns check a whole archive",
+    )  # fmt: skip
     p.add_argument(
         "--adc-rate", required=True, type=frequency_hz, metavar="HZ", help="the ADC's sample rate"
     )
@@ -99,6 +103,7 @@ def register(subparsers: Any) -> None:
         "--save-suggestion", metavar="FILE",
         help="write the first suggested design to FILE (a new design file, never overwritten)",
     )  # fmt: skip
+    alias_archive.add_options(p)
     p.set_defaults(func=run)
 
 
@@ -108,10 +113,12 @@ def run(args: argparse.Namespace) -> int:
     from filtertwin.design import load
     from filtertwin.report.check_figures import alias_figure
 
+    if alias_archive.wants_archive(args):
+        return alias_archive.run(args)
     design = load(args.design)
     adc_rate, band = args.adc_rate, args.band
     info = recordings.inspect(
-        args.recording, rate_hz=args.rate, column=column(args.column),
+        args.recording[0], rate_hz=args.rate, column=column(args.column),
         jitter_limit=args.max_jitter / 100,
     )  # fmt: skip
     if info.channels != 1:
@@ -126,23 +133,26 @@ def run(args: argparse.Namespace) -> int:
         max_droop_db=args.max_droop,
     )  # fmt: skip
 
-    out = out_folder(args.out)
     protect = [info.path, Path(design.spec.source)]
     stem = info.path.stem
     files = {}
-    for label, data in (("without_filter", captures.without_filter),
-                        ("with_filter", captures.with_filter)):  # fmt: skip
-        name = f"{stem}-adc-{label.replace('_', '-')}"
-        if info.kind == "csv":
-            path = out / f"{name}.csv"
-            outputs.write_csv(path, data, captures.rate_hz, info.channel_names, protect=protect)
-        else:
-            path = out / f"{name}.wav"
-            with outputs.SafeWriter(path, captures.rate_hz, 1, subtype="FLOAT",
-                                    protect=protect) as writer:  # fmt: skip
-                writer.write(data)
-        files[label] = str(path)
-    files["figure"] = str(alias_figure(check, out / f"{stem}-alias.png", protect=protect))
+    with outputs.OutputRun(args.out) as written:  # a failure or Ctrl-C leaves nothing behind
+        out = written.folder
+        for label, data in (("without_filter", captures.without_filter),
+                            ("with_filter", captures.with_filter)):  # fmt: skip
+            name = f"{stem}-adc-{label.replace('_', '-')}"
+            if info.kind == "csv":
+                path = out / f"{name}.csv"
+                outputs.write_csv(path, data, captures.rate_hz, info.channel_names,
+                                  protect=protect)  # fmt: skip
+            else:
+                path = out / f"{name}.wav"
+                with outputs.SafeWriter(path, captures.rate_hz, 1, subtype="FLOAT",
+                                        protect=protect) as writer:  # fmt: skip
+                    writer.write(data)
+            files[label] = str(written.add(path))  # noted once written: never an input
+        figure = alias_figure(check, out / f"{stem}-alias.png", protect=protect)
+        files["figure"] = str(written.add(figure))
 
     suggestions = _suggest(args, design, check, protect) if args.suggest else None
     if args.json:

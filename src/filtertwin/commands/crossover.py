@@ -11,7 +11,7 @@ import json
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import frequency_hz, hz, out_folder
+from filtertwin.commands.options import frequency_hz, hz
 
 # the defaults of filtertwin.checks.crossover, repeated: every start registers every command,
 # and importing the check (design, scipy) would add about 0.7 s to each; a test checks that
@@ -56,11 +56,13 @@ def run(args: argparse.Namespace) -> int:
     check = check_crossover(design, band_hz=(lo, hi), tolerance_db=args.tolerance_db)
     files = {}
     if args.out:
+        from filtertwin import outputs
         from filtertwin.report.check_figures import crossover_figure
 
-        target = out_folder(args.out) / f"{Path(design.spec.source).stem}-crossover.png"
-        path = crossover_figure(check, target, protect=[design.spec.source])
-        files["figure"] = str(path)
+        with outputs.OutputRun(args.out) as written:  # a failure leaves nothing behind
+            target = written.folder / f"{Path(design.spec.source).stem}-crossover.png"
+            path = crossover_figure(check, target, protect=[design.spec.source])
+            files["figure"] = str(written.add(path))
     if args.json:
         print(json.dumps(check.to_dict() | {"design": design.spec.source, "files": files},
                          indent=2))  # fmt: skip

@@ -9,6 +9,7 @@ open and what to listen to.
 from __future__ import annotations
 
 import argparse
+import shutil
 import time
 from pathlib import Path
 from typing import Any
@@ -18,6 +19,15 @@ ANTIALIAS_EXAMPLE = "vibration-antialias"
 LOGGER_ADC_RATE_HZ = "8000"
 LOGGER_BITS = "16"
 TOLERANCE_BUILDS = "1000"
+LISTENING_CAUTIONS = (
+    "caution, hearing: start playback quiet and raise it slowly; loud levels, in headphones "
+    "above all, harm hearing for good.",
+    "caution, tweeters: play before.wav, woofer.wav and sum.wav only on full-range speakers "
+    "or headphones, never straight into a tweeter: full-range and low-frequency signal "
+    "destroys it.",
+    "caution, mains: a mains-powered build follows your local electrical codes; leave mains "
+    "wiring to people licensed for it.",
+)
 
 
 def register(subparsers: Any) -> None:
@@ -72,10 +82,22 @@ def _audio_device_present() -> bool:
 
 
 def run(args: argparse.Namespace) -> int:
+    from filtertwin.outputs import prepare_folder
+
+    out = Path(args.out)
+    made = prepare_folder(out, "--out")  # one line, exit 2, when it cannot be written
+    try:
+        return _run_demo(out)
+    except BaseException:  # a failure or Ctrl-C: remove what this run created
+        if made:
+            shutil.rmtree(made[-1], ignore_errors=True)
+        raise
+
+
+def _run_demo(out: Path) -> int:
     from filtertwin import samples
 
     start = time.perf_counter()
-    out = Path(args.out)
     inputs = out / "inputs"
     print(
         f"filtertwin demo: invented example designs and invented recordings -> {out}/\n"
@@ -133,6 +155,7 @@ def run(args: argparse.Namespace) -> int:
         )
     else:
         print("  live   no audio device found; with one, `filtertwin listen` compares designs live")
-    print("  Start playback quiet: loud levels harm hearing and drivers.")
+    for line in LISTENING_CAUTIONS:
+        print(f"  {line}")
     print(f"\ndemo finished in {time.perf_counter() - start:.1f} s")
     return 0

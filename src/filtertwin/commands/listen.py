@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from contextlib import ExitStack
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import frequency_hz, positive
+from filtertwin.commands.options import RESAMPLING_HELP, frequency_hz, positive
 from filtertwin.errors import UserInputError
 
 SAFETY_EPILOG = """\
@@ -22,10 +23,22 @@ again within 3 s (a script writes 'confirm'). Never connect a tweeter without it
 protection while you try things out.
 
 Keys: 1-9 candidate, 0 bypass, s/l/m/h solo sum/low/mid/high, L/M/H mute a way, + and -
-level, c ADC capture on/off (--adc-rate), n circuit noise on/off, e type a command (part
-low 2 C1 +1, corner low 2.5k), ? all keys, q quit.
-Blind trials: a/b/x listen, A/B answer (ABX); 1/2 listen, Enter answers (preference).
+level, c ADC capture on/off (--adc-rate), n circuit noise on/off, e type a command (Enter
+runs it, Esc cancels), u/r undo/redo an edit, ? all keys and commands, q quit.
+Typed commands: select N|LABEL, solo WAY, mute WAY, level DB, part [WAY] [STAGE] PART
+CHANGE (part low 2 C1 +1), corner [WAY] HZ [HZ], undo, redo, edits, save FILE, capture
+on|off, noise on|off, confirm, bypass, louder, quieter, quit. WAY is low, mid, high, sum or
+a filter's name from the design.
+Blind trials (--abx N or --prefer N): a/b/x listen, A/B answer (ABX); 1/2 listen, Enter
+answers (preference); t repeats the trial and its keys.
 A script has lines 'TIME_S COMMAND [ARGS]', e.g. '2.5 select 2', '5 part low 2 C1 +1'."""
+
+CAUTION_LINES = (
+    "caution: loud playback harms hearing; start with the volume low and raise it slowly",
+    "caution: a tweeter fed full-range or low-frequency signal (bypass, a low way, a wrong "
+    "channel) can burn out; keep its protection in place while you try things out",
+)
+"""Printed before any sound at every start of ``listen``."""
 
 
 def _latency(text: str) -> str | float:
@@ -96,6 +109,8 @@ def register(subparsers: Any) -> None:
     add("--circuit-noise", action="store_true",
         help="start with each way's circuit noise (resistors and amplifier, at its computed "
         "density and true level against full scale) added; key n switches it")  # fmt: skip
+    add("--resampling", choices=("linear", "causal"), default="linear",
+        help="candidates run at the oversampling render picks; " + RESAMPLING_HELP)  # fmt: skip
     trials = p.add_argument_group("blind trials (two designs)")
     kind = trials.add_mutually_exclusive_group()
     kind.add_argument("--abx", type=positive(int, "--abx"), metavar="N",
@@ -146,6 +161,7 @@ def _options(args: argparse.Namespace) -> Any:
         log_path=Path(args.log) if args.log else None,
         adc_rate_hz=args.adc_rate,
         circuit_noise=args.circuit_noise,
+        resampling=args.resampling,
     )
     check_options(options, len(args.designs))
     return options
@@ -161,10 +177,15 @@ def _introduce(player: Any, console: Any, interactive: bool) -> None:
     from filtertwin.live import keys, matching, routing
 
     session = player.session
+    for line in CAUTION_LINES:
+        console.say(line)
     console.say(player.describe())
     if session.blind is None:
         for c in session.candidates:
-            console.say(f"  {c.label}: {c.name} ({c.design.title}); ways {', '.join(c.ways)}")
+            ways = ", ".join(
+                n if n == w else f"{n} ({w})" for w, n in zip(c.ways, c.filter_names, strict=True)
+            )
+            console.say(f"  {c.label}: {c.name} ({c.design.title}); ways {ways}")
             for warning in c.design.warnings:
                 console.say(f"     design warning: {warning}")
         console.say(matching.describe(session.match, [c.label for c in session.candidates]))
@@ -191,6 +212,20 @@ def _introduce(player: Any, console: Any, interactive: bool) -> None:
         console.say(keys.help_text())
 
 
+def _check_script_ways(script: Any, named: list[tuple[str, Any]]) -> None:
+    """Refuse a script line whose way no design has, before anything is played."""
+    from filtertwin.live.candidates import make_candidates
+
+    candidates = make_candidates(named)
+    known = {"sum"} | {w for c in candidates for w in (*c.ways, *c.filter_names)}
+    for timed in script:
+        if timed.command.name in ("solo", "mute") and timed.command.args[0] not in known:
+            raise UserInputError(
+                f"script line {timed.line}: no design has a way {timed.command.args[0]!r}; "
+                f"the ways are {', '.join(sorted(known))}"
+            )
+
+
 def _finish(player: Any, console: Any, reason: str) -> None:
     from filtertwin.live import matching
     from filtertwin.live.blind import describe_score
@@ -202,6 +237,7 @@ def _finish(player: Any, console: Any, reason: str) -> None:
         console.say(line)
     blind = session.blind
     if blind is not None:
+        blind.end()
         if not blind.finished:
             console.say(
                 f"blind trials stopped after {len(blind.answers)} of {blind.plan.n_trials}: "
@@ -211,20 +247,48 @@ def _finish(player: Any, console: Any, reason: str) -> None:
         console.say(matching.describe(session.match, [c.name for c in session.candidates]))
 
 
+CLOSE_TIMEOUT_S = 3.0
+"""Longest wait for PortAudio to stop and close the stream before leaving without it."""
+LOST_CLOSE_TIMEOUT_S = 1.0
+"""The same once the stream is known to be lost (closing it then usually blocks)."""
+
+
+def _leave_without_stream(player: Any, console: Any, message: str) -> None:
+    """The stream is lost or will not close: say so in one line and exit at once.
+
+    PortAudio may still hold a lock inside the library, and its clean-up at exit could wait
+    on it forever, so the process ends with ``os._exit`` after flushing what was said.
+    """
+    from filtertwin.live.watchdog import EXIT_STREAM_LOST
+
+    blind = player.session.blind
+    if blind is not None:
+        blind.end()
+    console.end()
+    sys.stdout.flush()
+    print(f"filtertwin: {message}", file=sys.stderr, flush=True)
+    os._exit(EXIT_STREAM_LOST)
+
+
 def cmd_listen(args: argparse.Namespace) -> int:
-    """Run a listening session; exit 0 when it ends normally."""
+    """Run a listening session; exit 0 when it ends normally, 130 on Ctrl-C, 3 when the
+    audio stream was lost."""
     from filtertwin.live import console as live_console
     from filtertwin.live import keys
     from filtertwin.live.player import prepare
+    from filtertwin.live.watchdog import StreamLost, call_within
 
     options = _options(args)
     script = keys.read_script(args.script) if args.script else ()
     named = _designs(args.designs)
+    if script:
+        _check_script_ways(script, named)
     console = live_console.Console(sys.stdout)
     player = prepare(named, options, console.say)
     interactive = sys.stdin.isatty() and args.script != "-"
     _introduce(player, console, interactive)
     reason = "interrupted"
+    lost: StreamLost | None = None
     with ExitStack() as stack:
         key_source = stack.enter_context(keys.TerminalKeys()) if interactive else None
         if args.window:
@@ -238,9 +302,21 @@ def cmd_listen(args: argparse.Namespace) -> int:
             reason = live_console.run(player, console, script, key_source, args.duration)
         except KeyboardInterrupt:
             reason = "interrupted"
+        except StreamLost as error:
+            lost = error
         finally:
             console.end()
-            player.fade_out()
-            player.close()
+            if lost is None:
+                player.fade_out()
+            closed = call_within(player.close, LOST_CLOSE_TIMEOUT_S if lost else CLOSE_TIMEOUT_S)
+    # the terminal is restored here (the key reader's context has closed)
+    if lost is not None:
+        _leave_without_stream(player, console, str(lost))
+    if not closed:
+        _leave_without_stream(
+            player, console,
+            f"the audio stream did not close within {CLOSE_TIMEOUT_S:g} s (the audio server "
+            "stopped answering); left without it",
+        )  # fmt: skip
     _finish(player, console, reason)
-    return 0
+    return 130 if reason == "interrupted" else 0

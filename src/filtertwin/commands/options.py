@@ -14,8 +14,6 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-from filtertwin.errors import UserInputError
-
 
 def frequency_hz(text: str) -> float:
     """A positive frequency or rate: "48000", "8k", "2.2 kHz"."""
@@ -96,11 +94,10 @@ def out_folder(text: str) -> Path:
     UserInputError
         ``text`` names a file.
     """
-    out = Path(text)
-    if out.exists() and not out.is_dir():
-        raise UserInputError(f"--out {text}: is a file, not a folder; give a folder name")
-    out.mkdir(parents=True, exist_ok=True)
-    return out
+    from filtertwin.outputs import prepare_folder
+
+    prepare_folder(text, "--out")
+    return Path(text)
 
 
 def hz(value_hz: float) -> str:

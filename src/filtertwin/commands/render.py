@@ -44,7 +44,11 @@ def register(subparsers: Any) -> None:
         ),
     )
     p.add_argument("design", help="design file (TOML) or the name of a packaged example")
-    p.add_argument("input", help="recording: WAV/FLAC audio, or a CSV/NPY sensor capture")
+    p.add_argument(
+        "input", nargs="+",
+        help="recording: WAV/FLAC audio, or a CSV/NPY sensor capture; several files, folders "
+        "or patterns render each into its own sub-folder of --out",
+    )  # fmt: skip
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (created if missing)")
     p.add_argument("--format", choices=("wav", "flac"), default="wav", help="audio output format")
     p.add_argument(
@@ -148,10 +152,16 @@ class _ProgressBar:
 
 
 def cmd_render(args: argparse.Namespace) -> int:
-    """Run ``filtertwin render``; returns the exit status (0, or 1 when a filter's twin is
-    outside the fidelity tolerance, resampling filters included)."""
+    """Run ``filtertwin render``; returns the exit status (0, or 1 when a verdict of
+    :func:`filtertwin.verdicts.render_verdicts` fails: fidelity, amplifier swing, PCM clip)."""
     from filtertwin import recordings
 
+    if isinstance(args.input, list):
+        if len(args.input) > 1 or not Path(args.input[0]).is_file():
+            from filtertwin.commands.alias_archive import render_each
+
+            return render_each(args, cmd_render)
+        args.input = args.input[0]
     info = recordings.inspect(
         args.input, rate_hz=args.rate, column=column(args.column),
         jitter_limit=args.max_jitter / 100,
@@ -189,8 +199,10 @@ def cmd_render(args: argparse.Namespace) -> int:
     ]
     render.refuse_input_overwrite([p.path for p in plan] + reported, info.path)
 
-    made = [p for p in (figure_dir, folder, *folder.parents) if not p.exists()]  # deepest first
-    folder.mkdir(parents=True, exist_ok=True)
+    from filtertwin.outputs import prepare_folder
+
+    made = [figure_dir] if not figure_dir.exists() else []  # deepest first
+    made += prepare_folder(folder, "--out")  # one line, exit 2, when it cannot be written
     audio: list[Path] = []
     extra: list[Path] = []  # figures of the checks, drawn here
     try:
@@ -232,24 +244,21 @@ def cmd_render(args: argparse.Namespace) -> int:
             "circuit noise: added to every filter output at its computed level (see the "
             "report's 'Circuit noise' table)"
         )
-    return 0 if _print_fidelity(twin) else 1
+    return _print_verdicts(result, twin)
 
 
-def _print_fidelity(twin: Any) -> bool:
-    """Print each filter's fidelity with its verdict; True when all are within tolerance."""
+def _print_verdicts(result: Any, twin: Any) -> int:
+    """Print each filter's fidelity, then every verdict of the render; the exit status."""
+    from filtertwin import verdicts
     from filtertwin.report.design_text import fidelity_line
-    from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG
 
-    passed = True
     for ft in twin.filters:
-        ok = ft.fidelity.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG)
-        passed = passed and ok
-        verdict = (
-            "PASS" if ok else f"FAIL (tolerance {FIDELITY_TOL_DB:g} dB, {FIDELITY_TOL_DEG:g} deg)"
-        )
-        print(f"fidelity: filter '{ft.name}' {verdict}")
+        print(f"fidelity of filter '{ft.name}':")
         print(fidelity_line(ft, twin))
-    return passed
+    found = verdicts.render_verdicts(result, twin)
+    for line in verdicts.lines(found):
+        print(line)
+    return verdicts.exit_status(found)
 
 
 def _remove(files: list[Path], folders: list[Path]) -> None:
@@ -322,4 +331,12 @@ def _print_summary(result: Any, twin: Any, design: Any, folder: Path, written: l
             )
     else:
         print("clipping: none in the amplifier model")
+    rate = f"{twin.rate_hz / 1e3:g} kHz"
+    for c in result.slews:
+        print(
+            f"slewing: filter '{c.filter}' stage {c.stage}: {c.samples} samples (at {rate}) "
+            "limited to the amplifier slew rate"
+        )
+    if not result.slews:
+        print("slewing: none in the amplifier model")
     print(SAFETY_LINE)

@@ -1,7 +1,8 @@
 """`filtertwin tolerance`: build the design many times with parts drawn within tolerance.
 
 Prints each stage's f0 and Q spread, the yield against a mask and the worst build's parts.
-With --out, writes a figure of the envelope. Exit 0 (2 on bad input).
+With --out, writes a figure of the envelope. Verdict: the yield against --min-yield
+(default 90 %); exit 0 PASS, 1 FAIL, 2 bad input.
 """
 
 from __future__ import annotations
@@ -11,7 +12,7 @@ import json
 from pathlib import Path
 from typing import Any
 
-from filtertwin.commands.options import frequency_hz, hz, out_folder
+from filtertwin.commands.options import frequency_hz, hz
 from filtertwin.errors import UserInputError
 
 # the choices and defaults of filtertwin.checks.tolerance, repeated: every start registers
@@ -19,6 +20,7 @@ from filtertwin.errors import UserInputError
 # checks that they agree
 DISTRIBUTIONS = ("uniform", "gaussian")
 DEFAULT_RIPPLE_DB = 1.0
+DEFAULT_YIELD_PCT = 90.0  # filtertwin.verdicts.DEFAULT_YIELD_TARGET, in percent
 
 
 def register(subparsers: Any) -> None:
@@ -48,12 +50,28 @@ def register(subparsers: Any) -> None:
     p.add_argument("--stop-hz", type=frequency_hz, metavar="F", help="stopband edge frequency")
     p.add_argument("--stop-db", type=float, metavar="Y", help="least stopband attenuation, dB")
     p.add_argument("--filter", metavar="NAME", help="only this filter of the design")
+    p.add_argument(
+        "--min-yield", type=_percent, default=DEFAULT_YIELD_PCT, metavar="PCT",
+        help="verdict: PASS when at least this percentage of builds is inside every mask "
+        f"(default {DEFAULT_YIELD_PCT:g})",
+    )  # fmt: skip
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.add_argument("--out", metavar="DIR", help="write a figure of the envelope here")
     p.set_defaults(func=run)
 
 
+def _percent(text: str) -> float:
+    try:
+        value = float(text.strip().rstrip("%"))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be a percentage, got {text!r}; e.g. 95") from None
+    if not 0 < value <= 100:
+        raise argparse.ArgumentTypeError(f"must be above 0 and at most 100, got {text!r}")
+    return value
+
+
 def run(args: argparse.Namespace) -> int:
+    from filtertwin import outputs, verdicts
     from filtertwin.checks.tolerance import run_tolerance
     from filtertwin.design import load
 
@@ -69,14 +87,21 @@ def run(args: argparse.Namespace) -> int:
     if args.out:
         from filtertwin.report.check_figures import tolerance_figure
 
-        target = out_folder(args.out) / f"{Path(design.spec.source).stem}-tolerance.png"
-        files["figure"] = str(tolerance_figure(result, target, protect=[design.spec.source]))
+        with outputs.OutputRun(args.out) as written:  # a failure leaves nothing behind
+            target = written.folder / f"{Path(design.spec.source).stem}-tolerance.png"
+            figure = tolerance_figure(result, target, protect=[design.spec.source])
+            files["figure"] = str(written.add(figure))
+    found = verdicts.tolerance_verdicts(result.yield_fraction, result.builds, args.min_yield / 100)
     if args.json:
-        print(json.dumps(result.to_dict() | {"design": design.spec.source, "files": files},
-                         indent=2))  # fmt: skip
+        extra = {
+            "design": design.spec.source, "files": files,
+            "min_yield": args.min_yield / 100, "verdict": verdicts.overall(found),
+        }  # fmt: skip
+        print(json.dumps(result.to_dict() | extra, indent=2))
     else:
         print(_text(result, design, files))
-    return 0
+        print("\n".join(verdicts.lines(found)))
+    return verdicts.exit_status(found)
 
 
 def _spread(s: Any, fmt: Any) -> str:
@@ -123,7 +148,10 @@ def _text(result: Any, design: Any, files: dict[str, str]) -> str:
         f"worst build: number {result.worst_build}, deviating {result.worst_deviation_db:.2f} dB "
         "from nominal; its parts (nominal -> drawn):",
     ]
+    checked = {ft.name for ft in result.filters}  # --filter: only that filter's parts
     for filt, parts in zip(design.filters, result.worst_parts, strict=True):
+        if filt.name not in checked:
+            continue
         for stage, drawn in zip(filt.stages, parts, strict=True):
             nominal = stage.circuit.parts()
             text = "  ".join(

@@ -8,6 +8,11 @@ from pathlib import Path
 
 from filtertwin.errors import UserInputError
 
+INVENTED_NOTE = (
+    "packaged example designs (every one an invented scenario: no real product, board or "
+    "recording):"
+)
+
 
 def _folder() -> Path:
     return Path(str(resources.files(__package__)))
@@ -41,12 +46,15 @@ def resolve(arg: str) -> Path:
 
 
 def copy_to(folder: Path) -> list[Path]:
-    folder.mkdir(parents=True, exist_ok=True)
-    out = []
-    for name in names():
-        target = folder / f"{name}.toml"
-        if target.exists():
-            raise UserInputError(f"{target}: already exists; choose an empty folder")
-        shutil.copyfile(path_of(name), target)
-        out.append(target)
-    return out
+    """Copy every example into ``folder`` (created if missing); all or nothing."""
+    from filtertwin.outputs import OutputRun, atomic_path
+
+    with OutputRun(folder, "--copy") as written:
+        for name in names():
+            target = folder / f"{name}.toml"
+            if target.exists():
+                raise UserInputError(f"{target}: already exists; choose an empty folder")
+            with atomic_path(target) as temporary:
+                shutil.copyfile(path_of(name), temporary)
+            written.add(target)
+    return written.files

@@ -16,7 +16,8 @@ Modules (import the one you need; none imports sounddevice at import time):
   way is heard (stereo mix or one channel pair per way), level matching.
 - ``stream`` (audio callback, read-ahead thread), ``ring``: the real-time path (rate changes
   come from ``filtertwin.resample``).
-- ``session``, ``edits``, ``chains``: what commands do, live part and corner edits, swapping
-  rebuilt chains into the running runner.
+- ``session``, ``edits``, ``chains``: what commands do (the session API), live part and
+  corner edits with undo and redo, crossfading rebuilt chains in through a warm spare.
+- ``watchdog``: noticing a stream whose audio server quit, and closing without waiting on it.
 - ``status``, ``console``, ``player``: status line and summary, the control loop, assembly.
 """

@@ -11,7 +11,11 @@ listener answers which they prefer. Score: how often the first design was prefer
 the exact two-sided binomial p-value (no direction is expected beforehand).
 
 Plans are drawn from a seed, so a session can be repeated exactly. The log is rewritten
-after every answer, to a temporary name that is then renamed, so it is always complete.
+after every answer, to a temporary name that is then renamed, so it is always complete; but
+until the trials end (or stop) it holds only the answers and their times: the hidden columns
+(which design sat behind each button, whether an answer was right) stay empty, so nothing a
+listener can open during the session tells X apart or how earlier answers fared.
+:meth:`TrialLog.reveal` fills them in at the end.
 
 References
 ----------
@@ -36,6 +40,8 @@ from filtertwin.errors import UserInputError
 Kind = Literal["abx", "preference"]
 ABX_ANSWERS = ("A", "B")
 PREFERENCE_ANSWERS = ("1", "2")
+HIDDEN_COLUMNS = ("first_design", "second_design", "x_design", "answered_design", "correct")
+"""Log columns left empty until the trials end (they would tell X apart)."""
 LOG_COLUMNS = (
     "trial",
     "kind",
@@ -236,7 +242,7 @@ def log_row(plan: TrialPlan, answer: Answer) -> dict[str, str]:
 
 class TrialLog:
     """CSV log of a blind session, rewritten completely (temporary name, then rename)
-    after every answer.
+    after every answer, with the hidden columns empty until :meth:`reveal`.
 
     Raises
     ------
@@ -253,15 +259,27 @@ class TrialLog:
         if not self.path.parent.is_dir():
             raise UserInputError(f"folder {self.path.parent} for the trial log does not exist")
         self.plan = plan
+        self.revealed = False
         self._rows: list[dict[str, str]] = []
 
     def record(self, answer: Answer) -> None:
-        """Add one answer and write the whole log again."""
+        """Add one answer and write the log again (hidden columns empty)."""
         self._rows.append(log_row(self.plan, answer))
+        self._write()
+
+    def reveal(self) -> None:
+        """Write the log again with every column (at the end of the trials; safe twice)."""
+        self.revealed = True
+        self._write()
+
+    def _write(self) -> None:
+        rows = self._rows
+        if not self.revealed:
+            rows = [{**row, **dict.fromkeys(HIDDEN_COLUMNS, "")} for row in rows]
         text = io.StringIO()
         writer = csv.DictWriter(text, fieldnames=LOG_COLUMNS, lineterminator="\n")
         writer.writeheader()
-        writer.writerows(self._rows)
+        writer.writerows(rows)
         temporary = self.path.with_name(f".{self.path.name}.{os.getpid()}.part")
         temporary.write_text(text.getvalue(), encoding="utf-8")
         os.replace(temporary, self.path)
@@ -322,3 +340,8 @@ class BlindSession:
     def score(self) -> Score:
         """Score of the answers so far."""
         return score(self.plan, self.answers)
+
+    def end(self) -> None:
+        """The trials are over (all answered or stopped): reveal the log (safe twice)."""
+        if self.log is not None and self.answers:
+            self.log.reveal()

@@ -50,6 +50,11 @@ class ListenCandidate:
     design: Design
     ways: tuple[str, ...]
 
+    @property
+    def filter_names(self) -> tuple[str, ...]:
+        """The design's name of each way's filter (what the status line shows)."""
+        return tuple(f.name for f in self.design.filters)
+
     def filter_of(self, way: str) -> str:
         """Name of the design's filter that is ``way`` (a way name or a filter name).
 
@@ -113,9 +118,41 @@ def make_candidates(named_designs: Sequence[tuple[str, Design]]) -> tuple[Listen
     return tuple(result)
 
 
-def build_twins(candidates: Sequence[ListenCandidate], rate_hz: float) -> tuple[Twin, ...]:
-    """Each candidate's digital twin at ``rate_hz`` (no oversampling: it runs live)."""
-    return tuple(build_twin(c.design, rate_hz) for c in candidates)
+def build_twins(
+    candidates: Sequence[ListenCandidate], rate_hz: float, resampling: str = "linear"
+) -> tuple[Twin, ...]:
+    """Each candidate's digital twin at ``rate_hz``, oversampled as render would.
+
+    Every candidate gets the factor the offline rule picks for it (``oversampling="auto"``,
+    :func:`filtertwin.twin.build_twin`); one runner filters them all in the stream, so all
+    run at the largest of those factors (a higher factor only brings a twin closer to its
+    analog model), with the same resampling filters as render.
+    """
+    twins = [build_twin(c.design, rate_hz, oversampling="auto", resampling=resampling)
+             for c in candidates]  # fmt: skip
+    factor = max(t.oversampling for t in twins)
+    return tuple(
+        t if t.oversampling == factor
+        else build_twin(c.design, rate_hz, oversampling=factor, resampling=resampling)
+        for c, t in zip(candidates, twins, strict=True)
+    )  # fmt: skip
+
+
+def fidelity_lines(
+    candidates: Sequence[ListenCandidate], twins: Sequence[Twin], blind: bool = False
+) -> list[str]:
+    """What each candidate plays: every way's fidelity line, as ``design --rate`` shows it.
+
+    With ``blind`` the lines name the candidate's letter and way number only (blind trials
+    keep the designs' names and way names out of sight until they end)."""
+    from filtertwin.report.design_text import fidelity_line
+
+    lines = []
+    for c, twin in zip(candidates, twins, strict=True):
+        for k, ft in enumerate(twin.filters, 1):
+            who = f"{c.label} way {k}" if blind else f"{c.label} {c.name} '{ft.name}'"
+            lines.append(f"{who}:" + fidelity_line(ft, twin)[1:])
+    return lines
 
 
 def chains(twins: Sequence[Twin]) -> tuple[list[np.ndarray], list[np.ndarray]]:
@@ -126,6 +163,11 @@ def chains(twins: Sequence[Twin]) -> tuple[list[np.ndarray], list[np.ndarray]]:
         sos += twin.chains()
         levels += twin.clip_levels()
     return sos, levels
+
+
+def slew_steps(twins: Sequence[Twin]) -> list[np.ndarray]:
+    """Slew steps of every chain, in the order of :func:`chains`."""
+    return [step for twin in twins for step in twin.slew_steps()]
 
 
 def chain_index(candidates: Sequence[ListenCandidate], candidate: int, way: int) -> int:

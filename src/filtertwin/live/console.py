@@ -11,6 +11,7 @@ written every two seconds instead, so logs stay readable.
 
 from __future__ import annotations
 
+import shutil
 import sys
 import time
 from collections.abc import Sequence
@@ -20,6 +21,7 @@ from filtertwin.errors import UserInputError
 from filtertwin.live import keys
 from filtertwin.live.player import Player
 from filtertwin.live.status import StatusReader, status_line
+from filtertwin.live.watchdog import StreamWatchdog
 
 TICK_S = 0.1
 PIPE_STATUS_EVERY_S = 2.0
@@ -52,6 +54,10 @@ class Console:
         self._clear()
         self.out.write(message + "\n")
         self.out.flush()
+
+    def width(self) -> int | None:
+        """Columns of the terminal (None into a pipe or a file: lines are not cut)."""
+        return shutil.get_terminal_size().columns if self.live else None
 
     def status(self, text: str, now_s: float) -> None:
         """Show the status line (in place on a terminal, now and then into a pipe)."""
@@ -138,11 +144,15 @@ def run(
 
     Raises
     ------
+    StreamLost
+        When the callback stopped coming (the audio server quit): see
+        :mod:`filtertwin.live.watchdog`.
     BaseException
         An error of the read-ahead thread (e.g. the recording changed while playing).
     """
     session = player.session
     reader = StatusReader(session, player.cpu_load)
+    watchdog = StreamWatchdog(player.core.blocks_done, player.core.period_s)
     editor = LineEditor()
     escapes = EscapeFilter()
     pending = list(script)
@@ -159,10 +169,12 @@ def run(
             return "duration"
         if player.feeder is not None and player.feeder.error is not None:
             raise player.feeder.error
+        watchdog.check()
+        session.poll()
         if editor.active:
-            console.status(f"edit> {editor.text}", now_s)
+            console.status(f"edit (Enter runs, Esc cancels)> {editor.text}", now_s)
         else:
-            console.status(status_line(reader.facts()), now_s)
+            console.status(status_line(reader.facts(), console.width()), now_s)
         wait_s = TICK_S
         if pending:
             wait_s = min(wait_s, max(0.0, pending[0].time_s - elapsed_s))

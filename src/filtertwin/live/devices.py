@@ -21,8 +21,8 @@ from filtertwin.errors import UserInputError
 Direction = Literal["output", "input", "duplex"]
 
 NO_DEVICES_HINT = (
-    "no audio devices found: start an audio server (JACK, PipeWire or PulseAudio) or "
-    "connect a sound card; 'filtertwin devices' lists what is there"
+    "no audio devices found: start an audio server (JACK, PipeWire or PulseAudio; with no "
+    "sound card, 'jackd -d dummy -r 48000' gives one) or connect a sound card, then try again"
 )
 MISSING_LIBRARY_HINT = (
     "the PortAudio library is missing: install Debian's libportaudio2 "
@@ -211,7 +211,8 @@ def check_settings(
             if "sample rate" in str(error).lower():
                 raise UserInputError(
                     f"device {device.describe()} cannot run at {rate_hz:g} Hz; "
-                    f"use --rate {device.default_rate_hz:g} or resample the recording"
+                    f"use --rate {device.default_rate_hz:g} or leave --rate out (a recording at "
+                    "another rate is resampled as it plays)"
                 ) from None
             raise audio_error(error, device) from None
 

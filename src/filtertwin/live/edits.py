@@ -67,6 +67,16 @@ def parse_part(args: Sequence[str]) -> PartEdit:
         raise UserInputError("use 'part [WAY] [STAGE] PART CHANGE', e.g. 'part low 2 C1 +1'")
     change = words.pop()
     part = words.pop().upper()
+    if part not in PART_NAMES and change.upper() in PART_NAMES:
+        raise UserInputError(
+            f"the change of {change.upper()} is missing: add a step (+1, -2) or a value "
+            f"(22n, 10k), e.g. 'part low 2 {change.upper()} +1'"
+        )
+    if part not in PART_NAMES and len(args) == 2 and args[1].isdigit():
+        raise UserInputError(
+            f"'part {' '.join(args)}' names no part: use 'part [WAY] [STAGE] PART CHANGE' "
+            f"with PART one of {', '.join(PART_NAMES)}, e.g. 'part low 2 C1 +1'"
+        )
     if part not in PART_NAMES:
         raise UserInputError(
             f"{part!r} is not a part name; use one of {', '.join(PART_NAMES)} "
@@ -186,8 +196,19 @@ def edit_part(design: Design, filter_name: str, edit: PartEdit) -> tuple[Design,
     return with_built_filters(design, {f.name: new_parts}), stage, value
 
 
-def edit_corner(design: Design, filter_name: str, corners_hz: tuple[float, ...]) -> Design:
+def edit_corner(
+    design: Design,
+    filter_name: str,
+    corners_hz: tuple[float, ...],
+    original: FilterSpec | None = None,
+) -> Design:
     """Rebuild the design with a filter's corner moved (parts chosen again).
+
+    Parameters
+    ----------
+    original : FilterSpec, optional
+        The filter as first loaded: a filter given by an alignment whose parts were edited
+        since is designed again from it (the part edits are replaced).
 
     Raises
     ------
@@ -195,11 +216,14 @@ def edit_corner(design: Design, filter_name: str, corners_hz: tuple[float, ...])
         If the filter is not given by an alignment, or the number of corners is wrong.
     """
     f = design.filter(filter_name)
-    if f.spec.kind != "alignment":
-        how = "its parts" if f.spec.kind == "built" else "its sections"
+    spec = f.spec
+    if spec.kind == "built" and original is not None and original.kind == "alignment":
+        spec = original
+    if spec.kind != "alignment":
+        how = "its parts" if spec.kind == "built" else "its sections"
         raise UserInputError(
             f"filter '{f.name}' is given by {how}, so it has no corner to move; "
-            "corner works on filters given by an alignment (and before any part edit)"
+            "corner works on filters given by an alignment"
         )
     wanted = 2 if f.response == "bandpass" else 1
     if len(corners_hz) != wanted:
@@ -210,7 +234,7 @@ def edit_corner(design: Design, filter_name: str, corners_hz: tuple[float, ...])
         )
     if wanted == 2 and not corners_hz[0] < corners_hz[1]:
         raise UserInputError("a band-pass takes its lower corner first, e.g. 'corner mid 350 2.8k'")
-    return _replace_filter(design, dataclasses.replace(f.spec, corner_hz=tuple(corners_hz)))
+    return _replace_filter(design, dataclasses.replace(spec, corner_hz=tuple(corners_hz)))
 
 
 def describe_stage(stage: Stage) -> str:

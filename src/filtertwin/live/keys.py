@@ -36,7 +36,7 @@ LEVEL_STEP_DB = 1.0
 WAYS = ("low", "mid", "high", "sum")
 LISTEN_CHOICES = ("A", "B", "X", "1", "2")
 CAPTURE_CHOICES = ("on", "off")
-LOWER_CASE_ARGS = ("solo", "mute", "capture", "noise")
+LOWER_CASE_ARGS = ("capture", "noise")
 ANSWER_CHOICES = ("A", "B", "1", "2")
 
 
@@ -72,8 +72,8 @@ _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)$")
 RULES: dict[str, CommandRule] = {
     "select": CommandRule("select N|LABEL", (1,)),
     "bypass": CommandRule("bypass", (0,)),
-    "solo": CommandRule("solo WAY", (1,), WAYS),
-    "mute": CommandRule("mute WAY", (1,), WAYS[:3]),
+    "solo": CommandRule("solo WAY", (1,)),
+    "mute": CommandRule("mute WAY", (1,)),
     "level": CommandRule("level DB", (1,)),
     "louder": CommandRule("louder", (0,)),
     "quieter": CommandRule("quieter", (0,)),
@@ -82,6 +82,10 @@ RULES: dict[str, CommandRule] = {
     "answer": CommandRule("answer [A|B|1|2]", (0, 1), ANSWER_CHOICES),
     "part": CommandRule("part [WAY] [STAGE] PART CHANGE", (2, 3, 4)),
     "corner": CommandRule("corner [WAY] HZ [HZ]", (1, 2, 3)),
+    "undo": CommandRule("undo", (0,)),
+    "redo": CommandRule("redo", (0,)),
+    "edits": CommandRule("edits", (0,)),
+    "save": CommandRule("save FILE", (1,)),
     "capture": CommandRule("capture [on|off]", (0, 1), CAPTURE_CHOICES),
     "noise": CommandRule("noise [on|off]", (0, 1), CAPTURE_CHOICES),
     "confirm": CommandRule("confirm", (0,)),
@@ -114,7 +118,7 @@ KEY_BINDINGS: tuple[KeyBinding, ...] = (
     KeyBinding("-", Command("quieter"), f"output level down {LEVEL_STEP_DB:g} dB"),
     KeyBinding("c", Command("capture"), "with --adc-rate: ADC capture on or off (aliases)"),
     KeyBinding("n", Command("noise"), "the circuit's own noise on or off (its true level)"),
-    KeyBinding("t", Command("trials"), "in blind trials: say the trial and its keys"),
+    KeyBinding("t", Command("trials"), "with --abx or --prefer: say the trial and its keys"),
     KeyBinding("a", Command("listen", ("A",)), "in a trial: hear A"),
     KeyBinding("b", Command("listen", ("B",)), "in a trial: hear B"),
     KeyBinding("x", Command("listen", ("X",)), "in a trial: hear the unknown X"),
@@ -122,7 +126,9 @@ KEY_BINDINGS: tuple[KeyBinding, ...] = (
     KeyBinding("B", Command("answer", ("B",)), "in a trial: answer 'X is B'"),
     KeyBinding("\n", Command("answer"), "in a trial: answer with the one you hear now"),
     KeyBinding("\r", Command("answer"), ""),
-    KeyBinding("e", Command("edit"), "type a command, e.g. 'part low 2 C1 +1', 'corner 2.5k'"),
+    KeyBinding("e", Command("edit"), "type a command (below); Enter runs it, Esc cancels it"),
+    KeyBinding("u", Command("undo"), "take back the last part or corner edit"),
+    KeyBinding("r", Command("redo"), "make the last undone edit again"),
     KeyBinding("?", Command("help"), "show these keys"),
     KeyBinding("q", Command("quit"), "fade out and stop"),
 )
@@ -136,13 +142,33 @@ def command_for_key(key: str) -> Command | None:
     return KEYS.get(key)
 
 
+TYPED_HELP: tuple[tuple[str, str], ...] = (
+    ("select N|LABEL", "hear a candidate: select 2, select B"),
+    ("solo WAY / mute WAY", "a way alone / out of the sum (again: in)"),
+    ("level DB", "output level -60 to +12 dB (ceiling stays)"),
+    ("part [WAY] [STAGE] PART CHANGE", "part low 2 C1 +1, part 1 R1 10k"),
+    ("corner [WAY] HZ [HZ]", "move a corner, new parts: corner low 2.5k"),
+    ("undo / redo / edits", "take an edit back, make it again, list them"),
+    ("save FILE", "the heard candidate as a new design file"),
+    ("capture on|off", "with --adc-rate: hear the ADC capture"),
+    ("noise on|off", "the circuit's own noise added, at its true level"),
+    ("confirm", "confirm a bypass that asks for it"),
+    ("listen A|B|X|1|2, answer A|B|1|2", "blind trials (--abx N, --prefer N)"),
+    ("bypass, louder, quieter, quit", "as the keys 0, +, -, q"),
+)
+"""Commands typed after the key ``e`` (or written in a script), with a line of help."""
+
+
 def help_text() -> str:
-    """A table of the keys and what they do."""
+    """A table of the keys and of the typed commands, and what they do."""
     lines = ["keys:", "  1-9    hear candidate 1-9 (A, B, C ... in the order given)"]
     for binding in KEY_BINDINGS:
         if binding.help:
             name = "Enter" if binding.key == "\n" else binding.key
             lines.append(f"  {name:<6} {binding.help}")
+    lines.append("commands, typed after e (Enter runs, Esc cancels) or in a script:")
+    lines += [f"  {usage:<32} {text}" for usage, text in TYPED_HELP]
+    lines.append("  WAY: low, mid, high, sum, or the design's name of a filter (topcut, woofer)")
     return "\n".join(lines)
 
 
@@ -177,6 +203,12 @@ def parse_command(text: str) -> Command:
         args = (args[0].upper(),)
     if name == "level" and not _NUMBER.match(args[0]):
         raise UserInputError(f"level takes a number of dB, e.g. 'level -6', not {args[0]!r}")
+    if name in ("solo", "mute") and args[0].lower() in WAYS:
+        args = (args[0].lower(),)  # way roles in any case; a filter's name as written
+    if name in ("part", "corner"):
+        from filtertwin.live import edits  # the design machinery: only when it is needed
+
+        (edits.parse_part if name == "part" else edits.parse_corner)(args)
     return Command(name, args)
 
 

@@ -21,9 +21,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from filtertwin.design import Design
-from filtertwin.engine import CascadeRunner
 from filtertwin.errors import UserInputError
 from filtertwin.live.loudness import integrated_loudness, matching_gain
+from filtertwin.render import render_array
 from filtertwin.twin import Twin
 
 MATCH_MODES = ("loudness", "gain", "off")
@@ -89,29 +89,23 @@ def match_by_gain(designs: Sequence[Design]) -> LevelMatch:
 
 
 def twin_output(program: np.ndarray, twin: Twin) -> np.ndarray:
-    """The program through a twin, its ways summed, clipping at the amplifier swing included.
+    """The program through a twin, its ways summed, the amplifier swing and slew included.
 
     Parameters
     ----------
     program : numpy.ndarray
-        ``(frames, channels)`` float64 samples at ``twin.rate_hz``.
+        ``(frames, channels)`` float64 samples at ``twin.input_rate_hz``.
     twin : Twin
-        The candidate's twin (oversampling 1).
+        The candidate's twin (oversampled as it plays: :func:`filtertwin.render.render_array`).
 
     Returns
     -------
     numpy.ndarray
         ``(frames, channels)`` float64.
     """
-    frames, channels = program.shape
-    runner = CascadeRunner(
-        twin.chains(), channels, min(BLOCK_FRAMES, max(frames, 1)), twin.clip_levels()
-    )
-    out = np.zeros_like(program)
-    for start in range(0, frames, BLOCK_FRAMES):
-        block = np.ascontiguousarray(program[start : start + BLOCK_FRAMES])
-        out[start : start + len(block)] = runner.process(block).sum(axis=0)
-    return out
+    frames = program.shape[0]
+    block = min(BLOCK_FRAMES, max(frames, 1))
+    return render_array(twin, program, block).sum(axis=0)
 
 
 def match_by_loudness(program: np.ndarray, rate_hz: float, twins: Sequence[Twin]) -> LevelMatch:

@@ -77,7 +77,7 @@ class Selection:
 
     ``candidate`` is a 0-based candidate number, or None for bypass (the dry input).
     ``solo`` is a way name to hear alone (or :data:`SUM` for all ways); ``muted`` are way
-    names left out of the sum.
+    names left out of the sum (a muted way the candidate lacks does not apply to it).
     """
 
     candidate: int | None = 0
@@ -115,12 +115,11 @@ def target_gains(layout: Layout, selection: Selection) -> np.ndarray:
             f"there is no candidate number {selection.candidate + 1}; the candidates are {labels}"
         )
     candidate = layout.candidates[selection.candidate]
-    for name in sorted({selection.solo, *selection.muted} - {SUM}):
-        if name not in candidate.ways:
-            raise UserInputError(
-                f"candidate {candidate.label} has no {name!r} way; "
-                f"its ways are {', '.join(candidate.ways)}"
-            )
+    if selection.solo != SUM and selection.solo not in candidate.ways:
+        raise UserInputError(
+            f"candidate {candidate.label} has no {selection.solo!r} way; "
+            f"its ways are {', '.join(candidate.ways)}"
+        )
     first = layout.first_chain(selection.candidate)
     for offset, way in enumerate(candidate.ways):
         heard = way == selection.solo if selection.solo != SUM else way not in selection.muted

@@ -9,13 +9,20 @@ stream's ports in between).
 
 Two paths, chosen by the input:
 
-* *in the callback*: live input, or a recording at the stream's rate. The twins run at the
-  stream rate, in the audio callback, on the block just read.
-* *read ahead*: a recording at another rate (a sensor recording, say), or any recording
-  with ``--adc-rate``. The twins run at the recording's own rate in the read-ahead thread,
-  and every chain's output and the dry input are resampled to the stream rate there (with
+* *in the callback*: live input, or a recording at the stream's rate whose twins need no
+  oversampling. The twins run in the audio callback, on the block just read; for live input
+  at the stream rate times the oversampling render would pick (the largest any candidate
+  needs), raised and lowered again there by the allocation-free resamplers render uses
+  (:class:`~filtertwin.live.stream.Oversampling`).
+* *read ahead*: a recording at another rate (a sensor recording, say), a recording whose
+  twins run oversampled, or any recording with ``--adc-rate``. The twins run at the
+  recording's own rate (times their oversampling) in the read-ahead thread, and every
+  chain's output and the dry input are resampled to the stream rate there (with
   ``--adc-rate`` also what an ideal ADC captures of each, :mod:`filtertwin.live.capture`);
-  the callback only mixes.
+  the callback only mixes. Oversampled twins are resampled around the runner there too.
+
+Each candidate's fidelity line (resampling filters included) is printed before the stream
+starts.
 """
 
 from __future__ import annotations
@@ -36,6 +43,7 @@ from filtertwin.design import Design
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture as capture_mod
+from filtertwin.live import chains as chain_swaps
 from filtertwin.live import devices, hiss, matching, mixer, ring, routing, safety, stream
 from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
@@ -96,6 +104,8 @@ class ListenOptions:
         sampled faster than it only).
     circuit_noise : bool
         Start with every candidate's circuit noise on (``noise on|off``, key n, switch it).
+    resampling : str
+        Phase of the resampling filters around oversampled twins: "linear" or "causal".
     """
 
     input_path: Path | None = None
@@ -119,6 +129,7 @@ class ListenOptions:
     log_path: Path | None = None
     adc_rate_hz: float | None = None
     circuit_noise: bool = False
+    resampling: str = "linear"
 
 
 def warm_up() -> None:
@@ -128,6 +139,7 @@ def warm_up() -> None:
     mixer.warm_up()
     ring.warm_up()
     stream.warm_up()
+    chain_swaps.warm_up()
     hiss.warm_up()
 
 
@@ -360,6 +372,8 @@ def _prefilter(
     rate_hz: float,
     chains: tuple[list[np.ndarray], list[np.ndarray]],
     say: Callable[[str], None],
+    over: stream.Oversampling | None = None,
+    steps: list[np.ndarray] | None = None,
 ) -> tuple[stream.PreFilter, capture_mod.CapturePlan | None]:
     """The twins (and the ADC capture) at the recording's rate, for the read-ahead thread."""
     sos, levels = chains
@@ -370,7 +384,10 @@ def _prefilter(
     if options.adc_rate_hz is not None:
         plan = capture_mod.plan_capture(options.adc_rate_hz, info.rate_hz, rate_hz, str(info.path))
         adc = capture_mod.AdcCapture(plan, width, capture_mod.lag_s(resampler, info.rate_hz))
-    runner = engine.CascadeRunner(sos, info.channels, CHUNK_FRAMES, levels)
+    factor = over.factor if over is not None else 1
+    runner = engine.CascadeRunner(
+        sos, info.channels, CHUNK_FRAMES * factor, levels, slew_steps=steps
+    )
     if resampler is not None:
         say(
             f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
@@ -382,7 +399,7 @@ def _prefilter(
             f"{plan.adc_rate_hz:g} Hz with no filter of its own, played back band-limited at "
             f"{rate_hz:g} Hz"
         )
-    return stream.PreFilter(runner, resampler, adc), plan
+    return stream.PreFilter(runner, resampler, adc, over), plan
 
 
 def prepare(
@@ -419,10 +436,16 @@ def prepare(
     blind = _blind(options, candidates)
 
     same_rate = info is None or abs(info.rate_hz - rate_hz) <= 1e-6 * rate_hz
-    in_callback = same_rate and options.adc_rate_hz is None
-    processing_rate_hz = rate_hz if in_callback else info.rate_hz  # type: ignore[union-attr]
-    twins = cands.build_twins(candidates, processing_rate_hz)
+    processing_rate_hz = rate_hz if info is None else info.rate_hz
+    twins = cands.build_twins(candidates, processing_rate_hz, options.resampling)
+    for line in cands.fidelity_lines(candidates, twins, blind=blind is not None):
+        say(line)
+    factor = twins[0].oversampling
+    # a recording's oversampled twins run in the read-ahead thread (the callback only mixes);
+    # live input has no read-ahead, so its twins are resampled in the callback
+    in_callback = info is None or (same_rate and options.adc_rate_hz is None and factor == 1)
     sos, levels = cands.chains(twins)
+    steps = cands.slew_steps(twins)
     program = None
     if info is not None and options.match in (None, "loudness"):
         program = _read_excerpt(info, options.match_seconds, in_channels)
@@ -430,15 +453,23 @@ def prepare(
 
     warm_up()
     block = options.block_frames
-    runner = prefilter = plan = feeder = None
+    runner = prefilter = plan = feeder = over = None
     captures = 0
     if in_callback:
-        runner = engine.CascadeRunner(sos, in_channels, block, levels, dtype=np.float32)
+        runner = engine.CascadeRunner(
+            sos, in_channels, block * factor, levels, dtype=np.float32, slew_steps=steps
+        )
+        if factor > 1:
+            over = stream.Oversampling(factor, len(sos), in_channels, block, options.resampling)
         if info is not None:
             feeder = _feeder(options, info, rate_hz, 1)
     else:
         assert info is not None
-        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say)
+        if factor > 1:
+            over = stream.Oversampling(
+                factor, len(sos), in_channels, CHUNK_FRAMES, options.resampling, np.float64
+            )
+        prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say, over, steps)
         if plan is not None:
             for c in candidates:
                 for note in capture_mod.stopband_notes(c.label, c.design, info.rate_hz,
@@ -455,7 +486,8 @@ def prepare(
         n_chains=len(sos), channels=in_channels, block_frames=block, rate_hz=rate_hz,
         runner=runner, ring=None if feeder is None else feeder.ring,
         safety=safety.OutputSafety(rate_hz, options.level_db, options.ceiling_dbfs, options.ramp_s),
-        pairs=out_channels // 2, fade_s=options.fade_s, captures=captures, noise=noise,
+        pairs=out_channels // 2, fade_s=options.fade_s, captures=captures,
+        oversampling=over if in_callback else None, noise=noise,
     )  # fmt: skip
     core.prime()
     host: ChainHost = core if prefilter is None else prefilter

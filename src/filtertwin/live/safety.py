@@ -172,6 +172,11 @@ class OutputSafety:
         return float(self._state[_GAIN])
 
     @property
+    def limiter_gain(self) -> float:
+        """The ceiling limiter's gain at the end of the last block (1.0: not limiting)."""
+        return float(self._state[_LIMIT])
+
+    @property
     def nonfinite_samples(self) -> int:
         """How many NaN or infinite input samples were replaced by silence."""
         return int(self._counters[_NONFINITE])

@@ -4,15 +4,27 @@
 :class:`~filtertwin.live.keys.Command` into a new mix for the stream (a crossfade, via
 :meth:`StreamCore.request <filtertwin.live.stream.StreamCore.request>`), a level change of
 the output safety, a step of the blind session, or a live edit: the design is rebuilt and
-its twin made here, then the chains are swapped into the runner that the audio thread uses
-(:mod:`filtertwin.live.chains`). Every outcome is one line handed to ``say``.
+its twin made here, then each changed chain is crossfaded to its new sections through a
+warm spare (:class:`~filtertwin.live.chains.BlendedSwap`, moved on by :meth:`poll`). Edits
+can be undone and redone, listed and saved to a new design file. Every outcome is one line
+handed to ``say``.
+
+Ways: ``solo WAY`` hears that way alone (``solo sum``: every way) and clears the mutes;
+``mute WAY`` leaves a way out of the sum (again: back in), ends a solo, and is refused when
+it would leave nothing to hear. A way is named by its role (low, mid, high: the keys l, m,
+h) or by the design's filter name (``topcut``, ``woofer``). Switching to a candidate
+without the soloed way hears all its ways; mutes of ways it lacks do not apply to it.
 """
 
 from __future__ import annotations
 
 import math
+import threading
+import time
+from collections import deque
 from collections.abc import Callable, Sequence
-from dataclasses import replace
+from dataclasses import dataclass, replace
+from pathlib import Path
 
 import numpy as np
 
@@ -20,7 +32,7 @@ from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture, edits, keys, matching, routing
 from filtertwin.live.blind import BlindSession, buttons, describe_score
-from filtertwin.live.chains import ChainHost, ChainSwapper
+from filtertwin.live.chains import BlendedSwap, ChainHost, ChainSwapper
 from filtertwin.live.hiss import LiveNoise
 from filtertwin.live.mixer import SUM, Selection
 from filtertwin.live.safety import MAX_LEVEL_DB, MIN_LEVEL_DB, OutputSafety
@@ -28,6 +40,9 @@ from filtertwin.live.stream import StreamCore
 from filtertwin.twin import Twin, build_twin
 
 CONFIRM_WINDOW_S = 3.0
+POLL_EVERY_S = 0.005
+POLL_GIVE_UP_S = 10.0
+"""The edit thread stops after this (a stalled stream); the control loop polls on."""
 
 
 class ListenSession:
@@ -100,6 +115,17 @@ class ListenSession:
         self.noise = noise
         self.noise_at_start = noise_on
         self.layout = cands.layout(self.candidates, match.gains, match.bypass_gain)
+        self.original_designs = [c.design for c in self.candidates]
+        self.history: list[EditRecord] = []
+        self.undone: list[EditRecord] = []
+        self.queued: deque[tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = deque()
+        self.swapping: BlendedSwap | None = None
+        self.fade_frames = max(
+            1, round(core.mixers[0].fade_frames / core.rate_hz * self._runner_rate_hz())
+        )
+        self.lock = threading.RLock()
+        """Held by every command: the console and a preview window may both call in."""
+        self._poller: threading.Thread | None = None
 
     @property
     def safety(self) -> OutputSafety:
@@ -129,6 +155,11 @@ class ListenSession:
         self.selection = selection
         self._apply()
 
+    @property
+    def blind_active(self) -> bool:
+        """True while blind trials run (nothing shown may tell the designs apart)."""
+        return self.blind is not None and not self.blind.finished
+
     def now_hearing(self) -> str:
         """What is heard now, for the status line (hidden names in blind trials)."""
         if self.blind is not None and not self.blind.finished:
@@ -142,10 +173,11 @@ class ListenSession:
 
     def handle(self, command: keys.Command, now_s: float) -> None:
         """Carry out one command; a problem is said, never raised."""
-        try:
-            self._dispatch(command, now_s)
-        except UserInputError as error:
-            self.say(f"{command.name}: {error}")
+        with self.lock:
+            try:
+                self._dispatch(command, now_s)
+            except UserInputError as error:
+                self.say(f"{command.name}: {error}")
 
     def _dispatch(self, command: keys.Command, now_s: float) -> None:
         handler = getattr(self, f"_do_{command.name}", None)
@@ -174,8 +206,54 @@ class ListenSession:
             raise UserInputError(
                 f"there is no candidate {choice}; the candidates are {', '.join(labels)}"
             )
-        self._select(replace(self.selection, candidate=index))
-        self.say(self._describe_selection())
+        selection, note = self._fitted(replace(self.selection, candidate=index))
+        self._select(selection)
+        self.say(self._describe_selection() + note)
+
+    def _fitted(self, selection: Selection) -> tuple[Selection, str]:
+        """The selection made possible for its candidate, and a note on what changed."""
+        if selection.candidate is None:
+            return selection, ""
+        candidate = self.candidates[selection.candidate]
+        if selection.solo != SUM and selection.solo not in candidate.ways:
+            note = f" ({candidate.label} has no {selection.solo} way: all its ways are heard)"
+            return replace(selection, solo=SUM, muted=frozenset()), note
+        if selection.solo == SUM and all(w in selection.muted for w in candidate.ways):
+            note = f" (every way of {candidate.label} was muted: all its ways are heard)"
+            return replace(selection, muted=frozenset()), note
+        return selection, ""
+
+    def _way_listing(self, index: int) -> str:
+        c = self.candidates[index]
+        return ", ".join(
+            w if n == w else f"{n} ({w})" for w, n in zip(c.ways, c.filter_names, strict=True)
+        )
+
+    def _resolve_way(self, word: str) -> str:
+        """The way role (low, mid, high or sum) a word names for the candidate heard."""
+        if word == SUM:
+            return SUM
+        if self.blind_active:
+            assert self.blind is not None
+            common = [w for w in self.candidates[0].ways if w in self.candidates[1].ways]
+            if word not in common:
+                raise UserInputError(
+                    f"during blind trials solo and mute take a way both designs have: "
+                    f"{', '.join(common)}"
+                )
+            return word
+        index = self.selection.candidate
+        if index is None:
+            raise UserInputError("bypass has no ways; select a candidate first")
+        candidate = self.candidates[index]
+        if word in candidate.ways:
+            return word
+        if word in candidate.filter_names:
+            return candidate.ways[candidate.filter_names.index(word)]
+        raise UserInputError(
+            f"candidate {candidate.label} has no {word!r} way; "
+            f"its ways are {self._way_listing(index)}"
+        )
 
     def _do_bypass(self, command: keys.Command, now_s: float) -> None:
         warning = routing.bypass_warning(self.pair_ways)
@@ -199,14 +277,53 @@ class ListenSession:
         self._dispatch(self.pending[0], now_s)
 
     def _do_solo(self, command: keys.Command, now_s: float) -> None:
-        self._select(replace(self.selection, solo=command.args[0]))
+        way = self._resolve_way(command.args[0])
+        self._select(replace(self.selection, solo=way, muted=frozenset()))
         self.say(self._describe_selection())
 
     def _do_mute(self, command: keys.Command, now_s: float) -> None:
-        way = command.args[0]
-        muted = self.selection.muted ^ {way}
-        self._select(replace(self.selection, muted=frozenset(muted)))
+        way = self._resolve_way(command.args[0])
+        if way == SUM:
+            raise UserInputError("mute takes one way; to hear nothing, lower the level")
+        muted = frozenset(self.selection.muted ^ {way})
+        selection = replace(self.selection, solo=SUM, muted=muted)
+        if not self._heard_ways(selection):
+            raise UserInputError(
+                f"muting {command.args[0]} would leave nothing to hear; press s to hear every way"
+            )
+        self._select(selection)
         self.say(self._describe_selection())
+
+    def _heard_ways(self, selection: Selection) -> list[str]:
+        """The ways a selection plays (role names), for the candidate it selects."""
+        if selection.candidate is None:
+            return []
+        ways = self.candidates[selection.candidate].ways
+        if self.blind_active:  # the same words for both designs (only common ways allowed)
+            ways = tuple(w for w in ways if w in self.candidates[1 - selection.candidate].ways)
+        if selection.solo != SUM:
+            return [selection.solo]
+        return [w for w in ways if w not in selection.muted]
+
+    def ways_heard(self) -> str:
+        """What the ways are doing, for the status line: "all ways", "solo woofer",
+        "without mid" (role names during blind trials)."""
+        s = self.selection
+        if s.candidate is None:
+            return ""
+        c = self.candidates[s.candidate]
+
+        def name(way: str) -> str:
+            return way if self.blind_active else c.filter_names[c.ways.index(way)]
+
+        if s.solo != SUM:
+            return f"solo {name(s.solo)}"
+        muted = [w for w in c.ways if w in s.muted]
+        if self.blind_active:
+            muted = [w for w in muted if w in self.candidates[1 - s.candidate].ways]
+        if not muted:
+            return "all ways" if len(c.ways) > 1 else ""
+        return "without " + "+".join(name(w) for w in muted)
 
     def _do_level(self, command: keys.Command, now_s: float) -> None:
         self._set_level(float(command.args[0]))
@@ -274,12 +391,13 @@ class ListenSession:
         if s.candidate is None:
             return "now: bypass"
         c = self.candidates[s.candidate]
-        heard = s.solo if s.solo != SUM else "+".join(w for w in c.ways if w not in s.muted)
+        heard = self._heard_ways(s)
+        if self.blind_active:
+            return f"now: {self.heard}, ways {'+'.join(heard)}"
+        ways = "ways " + "+".join(c.filter_names[c.ways.index(w)] for w in heard)
         offset = 20 * math.log10(self.layout.candidates[s.candidate].level_gain)
-        if self.blind is not None and not self.blind.finished:
-            return f"now: {self.heard}, ways {heard or 'none'}"
         match_db = round(offset, 1) + 0.0
-        return f"now: {c.label} ({c.name}), ways {heard or 'none'}, level match {match_db:+.1f} dB"
+        return f"now: {c.label} ({c.name}), {ways}, level match {match_db:+.1f} dB"
 
     # --- blind trials ---------------------------------------------------------------------
 
@@ -333,6 +451,7 @@ class ListenSession:
         blind.answer(given, now_s)
         self.say(f"trial {blind.trial - 1} answered: {given}")
         if blind.finished:
+            blind.end()
             self.say(describe_score(blind.plan, blind.score()))
             if blind.log is not None:
                 self.say(f"trial log written to {blind.log.path}")
@@ -342,9 +461,13 @@ class ListenSession:
         self._trial_prompt()
 
     # --- live edits -----------------------------------------------------------------------
+    #
+    # The session API (also used by the preview window): step_part, set_part, set_corner,
+    # undo, redo, edit_lines, save_as. Each returns the line it said; a problem is raised
+    # as UserInputError. The audio follows within about half a second (see poll).
 
     def _edited_candidate(self) -> int:
-        if self.blind is not None and not self.blind.finished:
+        if self.blind_active:
             raise UserInputError("no edits during blind trials (they would give the names away)")
         if self.selection.candidate is None:
             raise UserInputError("select a candidate first: an edit changes the one you hear")
@@ -355,53 +478,249 @@ class ListenSession:
         if way is None:
             if len(candidate.ways) != 1:
                 raise UserInputError(
-                    f"candidate {candidate.label} has ways {', '.join(candidate.ways)}; "
-                    "say which, e.g. 'part low 2 C1 +1'"
+                    f"candidate {candidate.label} has ways {self._way_listing(index)}; "
+                    f"say which, e.g. 'part {candidate.ways[0]} 2 C1 +1'"
                 )
             way = candidate.ways[0]
         return candidate.filter_of(way)
 
-    def _do_part(self, command: keys.Command, now_s: float) -> None:
-        index = self._edited_candidate()
-        edit = edits.parse_part(command.args)
-        name = self._way_filter(index, edit.way)
-        old_design = self.candidates[index].design
-        design, old_stage, value = edits.edit_part(old_design, name, edit)
-        new_stage = design.filter(name).stages[old_stage.index - 1]
+    def edit_part(self, edit: edits.PartEdit) -> str:
+        """Change one part of the candidate heard (``part [WAY] [STAGE] PART CHANGE``)."""
+        with self.lock:
+            index = self._edited_candidate()
+            name = self._way_filter(index, edit.way)
+            old_design = self.candidates[index].design
+            design, old_stage, value = edits.edit_part(old_design, name, edit)
+            new_stage = design.filter(name).stages[old_stage.index - 1]
+            old_value = old_stage.circuit.parts()[edit.part]
+            line = (
+                f"{self.candidates[index].label} {name} stage {old_stage.index}: "
+                f"{edits.format_part(edit.part, value)} (was "
+                f"{edits.format_part(edit.part, old_value).split(' = ')[1]}); as built "
+                f"{edits.describe_stage(new_stage)} (was {edits.describe_stage(old_stage)})"
+            )
+            self._record(index, name, design, line)
+            return line
+
+    def step_part(self, way: str | None, stage: int | None, part: str, steps: int) -> str:
+        """Step a part ``steps`` values along its E-series (the session API)."""
+        return self.edit_part(edits.PartEdit(way, stage, part.upper(), f"{steps:+d}"))
+
+    def set_part(self, way: str | None, stage: int | None, part: str, value: str) -> str:
+        """Set a part to a value such as "22n" or "10k2" (the session API)."""
+        return self.edit_part(edits.PartEdit(way, stage, part.upper(), value))
+
+    def set_corner(self, way: str | None, *corners_hz: float) -> str:
+        """Move a filter's corner; its parts are chosen again (the session API).
+
+        A filter given by an alignment keeps working after part edits: its parts are then
+        chosen again from the alignment for the new corner (the part edits are replaced).
+        """
+        with self.lock:
+            index = self._edited_candidate()
+            name = self._way_filter(index, way)
+            original = self.original_designs[index].filter(name).spec
+            design = edits.edit_corner(
+                self.candidates[index].design, name, tuple(corners_hz), original
+            )
+            stages = "; ".join(
+                f"stage {s.index} {edits.describe_stage(s)}" for s in design.filter(name).stages
+            )
+            replaced = (
+                " (its part edits are replaced: parts chosen again for the new corner)"
+                if self.candidates[index].design.filter(name).spec.kind == "built"
+                else ""
+            )
+            line = (
+                f"{self.candidates[index].label} {name}: corner moved{replaced}; as built {stages}"
+            )
+            self._record(index, name, design, line)
+            return line
+
+    def undo(self) -> str:
+        """Take back the last edit (the session API)."""
+        with self.lock:
+            if self.blind_active:
+                raise UserInputError("no edits during blind trials")
+            if not self.history:
+                raise UserInputError("nothing to undo: no edit was made")
+            record = self.history.pop()
+            self.undone.append(record)
+            self._install(record.index, record.before)
+            line = f"undone: {record.line}"
+            self.say(line)
+            self._rematch()
+            return line
+
+    def redo(self) -> str:
+        """Make the last undone edit again (the session API)."""
+        with self.lock:
+            if self.blind_active:
+                raise UserInputError("no edits during blind trials")
+            if not self.undone:
+                raise UserInputError("nothing to redo: no edit was undone since the last edit")
+            record = self.undone.pop()
+            self.history.append(record)
+            self._install(record.index, record.after)
+            line = f"redone: {record.line}"
+            self.say(line)
+            self._rematch()
+            return line
+
+    def _record(self, index: int, name: str, design: cands.Design, line: str) -> None:
+        before = self.candidates[index].design
         self._install(index, design)
-        old_value = old_stage.circuit.parts()[edit.part]
-        self.say(
-            f"{self.candidates[index].label} {name} stage {old_stage.index}: "
-            f"{edits.format_part(edit.part, value)} (was "
-            f"{edits.format_part(edit.part, old_value).split(' = ')[1]}); as built "
-            f"{edits.describe_stage(new_stage)} (was {edits.describe_stage(old_stage)})"
-        )
+        self.history.append(EditRecord(index, name, before, design, line))
+        self.undone.clear()
+        self.say(line)
         self._rematch()
+
+    def edited(self, index: int) -> bool:
+        """True when candidate ``index`` is not as loaded (an edit is in force)."""
+        return self.candidates[index].design is not self.original_designs[index]
+
+    def edited_filters(self, index: int) -> list[str]:
+        """Names of the filters of candidate ``index`` that differ from the loaded design."""
+        now, was = self.candidates[index].design, self.original_designs[index]
+        if now is was:
+            return []
+        return [f.name for f, o in zip(now.filters, was.filters, strict=True) if f.spec != o.spec]
+
+    def edit_lines(self) -> list[str]:
+        """Every edit in force, then the final parts of every edited filter."""
+        lines = [f"edit {n}: {r.line}" for n, r in enumerate(self.history, start=1)]
+        for index, candidate in enumerate(self.candidates):
+            for name in self.edited_filters(index):
+                for stage in candidate.design.filter(name).stages:
+                    parts = ", ".join(
+                        edits.format_part(k, v) for k, v in stage.circuit.parts().items()
+                    )
+                    lines.append(
+                        f"{candidate.label} {name} stage {stage.index}: {parts} "
+                        f"({edits.describe_stage(stage)})"
+                    )
+        return lines
+
+    def save_as(self, path: str | Path) -> Path:
+        """Save the heard candidate, as edited, as a new design file (the session API).
+
+        The file is written by :func:`filtertwin.live.window.savefile.save_design`: never
+        over an existing file, read back before it is kept.
+        """
+        from filtertwin.live.window import savefile
+
+        with self.lock:
+            index = self._edited_candidate()
+            candidate = self.candidates[index]
+            saved = savefile.save_design(candidate.design, Path(path))
+            self.say(f"saved {candidate.label} as {saved}")
+            return saved
+
+    def _do_part(self, command: keys.Command, now_s: float) -> None:
+        self.edit_part(edits.parse_part(command.args))
 
     def _do_corner(self, command: keys.Command, now_s: float) -> None:
-        index = self._edited_candidate()
         edit = edits.parse_corner(command.args)
-        name = self._way_filter(index, edit.way)
-        design = edits.edit_corner(self.candidates[index].design, name, edit.corners_hz)
-        self._install(index, design)
-        stages = "; ".join(
-            f"stage {s.index} {edits.describe_stage(s)}" for s in design.filter(name).stages
-        )
-        self.say(f"{self.candidates[index].label} {name}: corner moved; as built {stages}")
-        self._rematch()
+        self.set_corner(edit.way, *edit.corners_hz)
+
+    def _do_undo(self, command: keys.Command, now_s: float) -> None:
+        self.undo()
+
+    def _do_redo(self, command: keys.Command, now_s: float) -> None:
+        self.redo()
+
+    def _do_edits(self, command: keys.Command, now_s: float) -> None:
+        self.say("\n".join(self.edit_lines()) or "no edits in force")
+
+    def _do_save(self, command: keys.Command, now_s: float) -> None:
+        self.save_as(command.args[0])
+
+    def _runner_rate_hz(self) -> float:
+        """The rate the runner runs the sections at (oversampled twins: a multiple)."""
+        return self.processing_rate_hz * (self.twins[0].oversampling if self.twins else 1)
 
     def _install(self, index: int, design: cands.Design) -> None:
-        """Make the twin of an edited candidate and swap its chains into the runner."""
-        twin = build_twin(design, self.processing_rate_hz)
+        """Make the twin of an edited candidate and crossfade its changed chains in."""
+        kept = self.twins[index]  # the same oversampling: the runner's rate stays
+        twin = build_twin(
+            design, self.processing_rate_hz, oversampling=kept.oversampling,
+            resampling=kept.resampling,
+        )  # fmt: skip
         first = cands.chain_index(self.candidates, index, 0)
-        changes = {first + k: (f.sos, f.clip_fs) for k, f in enumerate(twin.filters)}
-        all_sos, all_levels = cands.chains([*self.twins[:index], twin, *self.twins[index + 1 :]])
-        self.swapper.swap(changes, all_sos, all_levels)
+        old = self.twins[index]
+        steps = twin.slew_steps()
+        old_steps = old.slew_steps()
+        changes = {
+            first + k: (f.sos, f.clip_fs, steps[k])
+            for k, (f, o) in enumerate(zip(twin.filters, old.filters, strict=True))
+            if not (
+                np.array_equal(f.sos, o.sos)
+                and np.array_equal(f.clip_fs, o.clip_fs)
+                and np.array_equal(steps[k], old_steps[k])
+            )
+        }
+        runner = self.swapper.host.runner
+        if all(runner.n_sections[i] == len(c[0]) for i, c in changes.items()):
+            for chain, (sos, levels, chain_steps) in changes.items():
+                old_sos = old.filters[chain - first].sos
+                self.queued.append((chain, sos, levels, chain_steps, old_sos))
+            self.poll()
+            self._keep_polling()
+        else:  # another section count: a new runner (taken up whole at the next block)
+            self.finish_edits()
+            twins = [*self.twins[:index], twin, *self.twins[index + 1 :]]
+            all_sos, all_levels = cands.chains(twins)
+            self.swapper.swap(changes, all_sos, all_levels, cands.slew_steps(twins))
         self.twins[index] = twin
         self.candidates[index] = replace(self.candidates[index], design=design)  # same ways
         if self.noise is not None:
             self.noise.redesign(index, design)
         self.edits_made += 1
+
+    def poll(self) -> None:
+        """Move the edit crossfades on (the control loop calls this every tick)."""
+        with self.lock:
+            while True:
+                if self.swapping is not None:
+                    self.swapping.advance()
+                    if not self.swapping.done:
+                        return
+                    self.swapping = None
+                if not self.queued:
+                    return
+                chain, sos, levels, steps, old_sos = self.queued.popleft()
+                self.swapping = BlendedSwap(
+                    self.swapper.host, chain, sos, levels, steps, old_sos,
+                    self._runner_rate_hz(), self.fade_frames,
+                )  # fmt: skip
+
+    def _keep_polling(self) -> None:
+        """Move the crossfades on from a thread of their own as well, so that an edit
+        completes whoever drives the session (console loop, preview window, a test)."""
+        if self._poller is not None and self._poller.is_alive():
+            return
+
+        def run() -> None:
+            deadline = time.monotonic() + POLL_GIVE_UP_S
+            while self.edits_pending and time.monotonic() < deadline:
+                self.poll()
+                time.sleep(POLL_EVERY_S)
+
+        self._poller = threading.Thread(target=run, name="filtertwin-edit-fades", daemon=True)
+        self._poller.start()
+
+    @property
+    def edits_pending(self) -> bool:
+        """True while an edit's crossfade is still under way."""
+        return self.swapping is not None or bool(self.queued)
+
+    def finish_edits(self, timeout_s: float = 5.0) -> bool:
+        """Wait until every edit crossfade is done (the stream must be running); True if so."""
+        deadline = time.monotonic() + timeout_s
+        while self.edits_pending and time.monotonic() < deadline:
+            self.poll()
+            time.sleep(0.005)
+        return not self.edits_pending
 
     def _rematch(self) -> None:
         if self.match.mode == "loudness" and self.program is not None:
@@ -415,3 +734,14 @@ class ListenSession:
         self.layout = cands.layout(self.candidates, self.match.gains, self.match.bypass_gain)
         self._apply()
         self.say(matching.describe(self.match, [c.label for c in self.candidates]))
+
+
+@dataclass(frozen=True)
+class EditRecord:
+    """One live edit: the candidate, the filter, the designs before and after, its line."""
+
+    index: int
+    filter_name: str
+    before: cands.Design
+    after: cands.Design
+    line: str

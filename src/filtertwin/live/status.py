@@ -20,6 +20,8 @@ from filtertwin.live.session import ListenSession
 from filtertwin.live.stream import BLOCKS, CPU_HISTORY, STARVED_FRAMES, XRUNS
 
 METER_FLOOR_DB = -48.0
+DISPLAY_FLOOR = 1e-6
+"""Peaks at or below -120 dBFS are shown as "-inf" (silence, or the tail of a decay)."""
 CLIP_HOLD_S = 1.0
 
 
@@ -30,17 +32,35 @@ class StatusFacts:
     Attributes
     ----------
     hearing : str
-        What is heard ("A", "bypass", "trial 2/8 X").
+        What is heard ("A", "bypass", "trial 2/8: X").
+    design : str
+        The heard design's name ("" in bypass and during blind trials).
+    edited : bool
+        The heard candidate has a live edit in force.
+    ways : str
+        What the ways do ("all ways", "solo woofer", "without mid"; "" for one way).
+    blind : bool
+        Blind trials run: the meters, the limiter and the clip flags (which differ between
+        the designs) are hidden until the end.
     capture : str
         "ADC 8 kHz" while the ADC capture is heard, "ADC off" when it could be, else "".
+    noise : str
+        "noise on" while the circuit noise is added (``noise on|off``), else "".
     way_peaks : tuple of (str, float)
-        Peak (full-scale units, falling) of each way of the heard candidate.
+        Peak (full-scale units, falling) of each way of the heard candidate, by the design's
+        filter names.
     output_peak : float
         Peak of the output after the ceiling.
+    limiter_db : float
+        Gain reduction of the ceiling limiter now (0.0 when not limiting, else negative).
     limiting : bool
         The ceiling reduced the level since the last redraw.
+    input_over : bool
+        The input went over full scale (a peak above 1.0) within the last second.
     clipping : tuple of str
-        Stages that reached their amplifier's swing within the last second ("low s2").
+        Stages that reached their amplifier's swing within the last second ("woofer s2").
+    slewing : tuple of str
+        Stages limited to their amplifier's slew rate within the last second.
     xruns, starved_frames : int
         Blocks with stream status flags; frames the read-ahead did not deliver in time.
     cpu_load : float or None
@@ -72,11 +92,21 @@ class StatusFacts:
     level_db: float
     ramp_gain: float
     elapsed_s: float
+    slewing: tuple[str, ...] = ()
+    design: str = ""
+    edited: bool = False
+    ways: str = ""
+    blind: bool = False
+    limiter_db: float = 0.0
+    input_over: bool = False
+    noise: str = ""
 
 
 def dbfs(value: float) -> str:
-    """A peak in dBFS with one decimal, or "-inf"."""
-    return f"{20 * math.log10(value):5.1f}" if value > 0 else " -inf"
+    """A peak in dBFS with one decimal, or "-inf" below the display floor."""
+    if value <= DISPLAY_FLOOR:
+        return " -inf"
+    return f"{20 * math.log10(value):5.1f}"
 
 
 def meter_bar(peak: float, width: int = 8) -> str:
@@ -88,9 +118,13 @@ def meter_bar(peak: float, width: int = 8) -> str:
     return "#" * cells + "." * (width - cells)
 
 
-def status_line(facts: StatusFacts) -> str:
-    """The status line, e.g. ``A | low ####.... -18.2 | out -12.0 dBFS | ...``."""
-    ways = " ".join(f"{way} {meter_bar(peak)} {dbfs(peak)}" for way, peak in facts.way_peaks)
+def _fields(facts: StatusFacts) -> list[tuple[int, str]]:
+    """The status line's fields in order, each with its priority (0 is kept longest)."""
+    name = facts.hearing
+    if facts.design:
+        name += f" {facts.design}"
+    if facts.edited:
+        name += " (edited)"
     level = f"level {facts.level_db:+.0f} dB"
     if facts.ramp_gain < 0.999:
         level += f" (ramp {100 * facts.ramp_gain:.0f} %)"
@@ -98,19 +132,57 @@ def status_line(facts: StatusFacts) -> str:
     cpu += f" ({100 * facts.callback_median_s / facts.period_s:.1f} %)"
     if facts.cpu_load is not None:
         cpu += f" load {100 * facts.cpu_load:.0f} %"
-    fields = [
-        facts.hearing,
-        *([facts.capture] if facts.capture else []),
-        ways or "-",
-        f"out {dbfs(facts.output_peak)} dBFS" + (" LIMIT" if facts.limiting else ""),
-        "clip " + (",".join(facts.clipping) if facts.clipping else "-"),
-        f"xruns {facts.xruns}"
-        + (f" starved {facts.starved_frames}" if facts.starved_frames else ""),
-        cpu,
-        level,
-        f"{facts.elapsed_s:.1f} s",
-    ]
-    return " | ".join(fields)
+    fields = [(0, name)]
+    if facts.input_over:
+        fields.append((0, "INPUT OVER 0 dBFS"))
+    if facts.ways:
+        fields.append((1, facts.ways))
+    if facts.capture:
+        fields.append((1, facts.capture))
+    if facts.noise:
+        fields.append((1, facts.noise))
+    if facts.blind:
+        fields.append((2, "meters hidden until the trials end"))
+    else:
+        meters = " ".join(f"{w} {meter_bar(p)} {dbfs(p)}" for w, p in facts.way_peaks)
+        fields.append((4, meters or "-"))
+        out = f"out {dbfs(facts.output_peak)} dBFS"
+        if facts.limiter_db < -0.05:
+            out += f" limit {facts.limiter_db:.1f} dB"
+        elif facts.limiting:
+            out += " limited"
+        fields.append((1, out))
+        clip = "clip " + (",".join(facts.clipping) if facts.clipping else "-")
+        if facts.slewing:
+            clip += " slew " + ",".join(facts.slewing)
+        fields.append((3, clip))
+    xruns = f"xruns {facts.xruns}" + (
+        f" starved {facts.starved_frames}" if facts.starved_frames else ""
+    )
+    fields += [(2, xruns), (6, cpu), (2, level), (5, f"{facts.elapsed_s:.1f} s")]
+    return fields
+
+
+def status_line(facts: StatusFacts, width: int | None = None) -> str:
+    """The status line, e.g. ``A candidate-bessel | topcut ####.... -18.2 | out ...``.
+
+    Parameters
+    ----------
+    facts : StatusFacts
+    width : int, optional
+        Columns available (the terminal's width): fields of lower priority are left out
+        until the line fits in ``width - 1`` columns (a line that still does not fit is cut).
+        Default: no limit.
+    """
+    fields = _fields(facts)
+    if width is not None:
+        room = max(1, width - 1)
+        for priority in range(6, 0, -1):
+            if len(" | ".join(text for _, text in fields)) <= room:
+                break
+            fields = [(p, text) for p, text in fields if p < priority]
+        return " | ".join(text for _, text in fields)[:room]
+    return " | ".join(text for _, text in fields)
 
 
 class StatusReader:
@@ -138,8 +210,12 @@ class StatusReader:
         self.clock = clock
         self.started_s = clock()
         self._limited = 0
-        self._clip_counts = session.swapper.clip_counts().copy()
-        self._clip_seen_s: dict[tuple[int, int], float] = {}
+        self._counts = {
+            "clip": session.swapper.clip_counts().copy(),
+            "slew": session.swapper.slew_counts().copy(),
+        }
+        self._seen_s: dict[str, dict[tuple[int, int], float]] = {"clip": {}, "slew": {}}
+        self._input_over_s = -math.inf
 
     def _recent_callback_s(self) -> tuple[float, float]:
         done = int(self.core.counters[BLOCKS])
@@ -150,24 +226,27 @@ class StatusReader:
         times = self.core.cpu_s[index]
         return float(np.median(times)), float(np.max(times))
 
-    def _clipping(self, now_s: float) -> tuple[str, ...]:
-        counts = self.session.swapper.clip_counts()
-        if counts.shape != self._clip_counts.shape:
-            self._clip_counts = np.zeros_like(counts)
-        grown = np.argwhere(counts > self._clip_counts)
-        self._clip_counts = counts.copy()
+    def _clipping(self, now_s: float, kind: str = "clip") -> tuple[str, ...]:
+        """Stages whose clip (or, with ``kind="slew"``, slew) count grew within a second."""
+        swapper = self.session.swapper
+        counts = swapper.clip_counts() if kind == "clip" else swapper.slew_counts()
+        if counts.shape != self._counts[kind].shape:
+            self._counts[kind] = np.zeros_like(counts)
+        grown = np.argwhere(counts > self._counts[kind])
+        self._counts[kind] = counts.copy()
+        seen_s = self._seen_s[kind]
         for chain, section in grown:
-            self._clip_seen_s[(int(chain), int(section))] = now_s
+            seen_s[(int(chain), int(section))] = now_s
         index = self.session.selection.candidate
         if index is None:
             return ()
         first = chain_index(self.session.candidates, index, 0)
         twin = self.session.twins[index]
         flags = []
-        for k, way in enumerate(self.session.candidates[index].ways):
+        for k, way in enumerate(self.session.candidates[index].filter_names):
             stages = twin.filters[k].stage_of_section
             for section, stage in enumerate(stages):
-                seen = self._clip_seen_s.get((first + k, section))
+                seen = seen_s.get((first + k, section))
                 label = f"{way} s{stage}"
                 if seen is not None and now_s - seen <= CLIP_HOLD_S and label not in flags:
                     flags.append(label)
@@ -178,6 +257,7 @@ class StatusReader:
         now_s = self.clock()
         core, session = self.core, self.session
         index = session.selection.candidate
+        blind = session.blind_active
         plan, captured = session.capture_plan, session.capture_on
         # while the capture is heard, the meters of the captured sources (after the chains)
         offset = core.n_chains if captured else 0
@@ -185,8 +265,8 @@ class StatusReader:
         if index is not None:
             first = offset + chain_index(session.candidates, index, 0)
             peaks = [
-                (way, float(core.meters[first + k]))
-                for k, way in enumerate(session.candidates[index].ways)
+                (name, float(core.meters[first + k]))
+                for k, name in enumerate(session.candidates[index].filter_names)
             ]
         else:
             dry = 2 * core.n_chains if captured else core.dry_meter
@@ -196,13 +276,30 @@ class StatusReader:
         self._limited = limited
         median_s, max_s = self._recent_callback_s()
         target = 10 ** (core.safety.level_db / 20)
+        if float(core.meters[core.dry_meter]) > 1.0:
+            self._input_over_s = now_s
+        clipping: tuple[str, ...] = ()
+        slewing: tuple[str, ...] = ()
+        if blind:  # nothing that differs between the designs is even read
+            peaks, limiting, limiter_db = [], False, 0.0
+        else:
+            clipping, slewing = self._clipping(now_s), self._clipping(now_s, "slew")
+            limiter_db = 20 * math.log10(max(core.safety.limiter_gain, 1e-12))
         return StatusFacts(
-            hearing=" + ".join(filter(None, (session.now_hearing(), session.noise_label()))),
+            design="" if blind or index is None else session.candidates[index].name,
+            edited=not blind and index is not None and session.edited(index),
+            ways=session.ways_heard(),
+            blind=blind,
+            limiter_db=limiter_db,
+            input_over=now_s - self._input_over_s <= CLIP_HOLD_S,
+            hearing=session.now_hearing(),
+            noise=session.noise_label(),
             capture="" if plan is None else plan.label if captured else "ADC off",
             way_peaks=tuple(peaks),
-            output_peak=float(core.meters[core.dry_meter + 1]),
+            output_peak=0.0 if blind else float(core.meters[core.dry_meter + 1]),
             limiting=limiting,
-            clipping=self._clipping(now_s),
+            clipping=clipping,
+            slewing=slewing,
             xruns=int(core.counters[XRUNS]),
             starved_frames=int(core.counters[STARVED_FRAMES]),
             cpu_load=self.cpu_load(),
@@ -239,13 +336,16 @@ def summary_lines(session: ListenSession, played_s: float) -> list[str]:
         f"{safety.nonfinite_samples} non-finite samples silenced"
     )
     lines.append("stage clipping at the amplifier swing: " + _clip_summary(session))
+    slews = _clip_summary(session, session.swapper.slew_counts())
+    lines.append("stage slewing at the amplifier slew rate: " + slews)
     if session.edits_made:
-        lines.append(f"live edits: {session.edits_made}")
+        lines.append(f"live edits: {session.edits_made} made, {len(session.history)} in force")
+        lines += [f"  {line}" for line in session.edit_lines()]
     return lines
 
 
-def _clip_summary(session: ListenSession) -> str:
-    counts = session.swapper.clip_counts()
+def _clip_summary(session: ListenSession, counts: np.ndarray | None = None) -> str:
+    counts = session.swapper.clip_counts() if counts is None else counts
     found = []
     chain = 0
     for candidate, twin in zip(session.candidates, session.twins, strict=True):

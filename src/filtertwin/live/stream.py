@@ -6,6 +6,8 @@ opens. Per block the callback only copies, multiplies and adds into those arrays
 1. the input block: from the read-ahead ring (a recording) or from ``indata`` (live input);
 2. every chain's output: the :class:`~filtertwin.engine.CascadeRunner` filters the block
    (or, when the read-ahead thread already filtered it, the ring carries the outputs);
+   with the circuit noise on, a :class:`~filtertwin.live.hiss.NoiseAdder` adds each chain's
+   own noise to it;
 3. one :class:`~filtertwin.live.mixer.SelectionMixer` per output pair (crossfades), each
    writing straight into its two output columns (a mono input into both);
 4. :class:`~filtertwin.live.safety.OutputSafety` on the whole output, last;
@@ -29,18 +31,20 @@ from __future__ import annotations
 import threading
 import time
 from collections.abc import Callable
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 import numba
 import numpy as np
 
 from filtertwin.engine import CascadeRunner
+from filtertwin.live.chains import ChainBlend
 from filtertwin.live.looping import LoopReader
 from filtertwin.live.mixer import SelectionMixer
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.resample import StreamResampler
+from filtertwin.resample import Downsampler, StreamResampler, Upsampler, delay_frames
 
 if TYPE_CHECKING:
     from filtertwin.live.capture import AdcCapture
@@ -84,6 +88,75 @@ def _meter_kernel(
     meters[n_chains + 1] = max(peak, meters[n_chains + 1] * fall)
 
 
+@numba.njit(cache=True)
+def _delay_kernel(block: np.ndarray, line: np.ndarray, position: int) -> int:
+    """Delay ``block`` in place by ``len(line)`` frames (a ring of the last frames)."""
+    n = line.shape[0]
+    if n == 0:
+        return position
+    p = position
+    for f in range(block.shape[0]):
+        for c in range(block.shape[1]):
+            held = line[p, c]
+            line[p, c] = block[f, c]
+            block[f, c] = held
+        p += 1
+        if p == n:
+            p = 0
+    return p
+
+
+@dataclass(eq=False)
+class Oversampling:
+    """The resamplers around an oversampled runner, and the dry input's matching delay.
+
+    The runner runs at ``factor`` times the stream's rate: each block is raised by ``up``,
+    filtered, and every chain lowered by ``down`` (:mod:`filtertwin.resample`, the filters
+    render uses; compiled, allocation-free). With linear-phase filters the chains come out
+    :func:`~filtertwin.resample.delay_frames` late, so the dry input (bypass and meters) is
+    delayed as much to stay in step; causal filters' outputs are not shifted.
+
+    Parameters
+    ----------
+    factor : int
+    chains, channels, block_frames : int
+        Of the runner and the blocks (frames at the stream's rate).
+    phase : {"linear", "causal"}
+    dtype : numpy dtype
+        The runner's.
+    """
+
+    factor: int
+    chains: int
+    channels: int
+    block_frames: int
+    phase: str = "linear"
+    dtype: Any = np.float32
+    up: Upsampler = field(init=False)
+    down: Downsampler = field(init=False)
+    delay_frames: int = field(init=False)
+
+    def __post_init__(self) -> None:
+        n, f = self.block_frames, self.factor
+        self.up = Upsampler(f, self.channels, n, self.phase, self.dtype)
+        self.down = Downsampler(f, self.chains, self.channels, n * f, self.phase, self.dtype)
+        self.delay_frames = delay_frames(f, self.phase)
+        self._line = np.zeros((self.delay_frames, self.channels), dtype=self.dtype)
+        self._position = 0
+
+    def process(self, runner: CascadeRunner, dry: np.ndarray, blend: Any = None) -> np.ndarray:
+        """Every chain's output for ``dry`` ``(frames, channels)``, which is delayed in place
+        to line up with it; a part edit's :class:`~filtertwin.live.chains.ChainBlend` runs
+        at the runner's rate, between up and down. Allocates nothing."""
+        high_in = self.up.process(dry)
+        high = runner.process(high_in)
+        if blend is not None:
+            blend.process(high_in, high)
+        chains = self.down.process(high)
+        self._position = _delay_kernel(dry, self._line, self._position)
+        return chains
+
+
 class StreamCore:
     """The audio callback and its preallocated arrays.
 
@@ -111,6 +184,9 @@ class StreamCore:
     captures : int
         ADC capture sources the ring carries after the chains (``n_chains + 1`` or 0; see
         :func:`filtertwin.live.capture.source_gains`); the mixer sees them as more chains.
+    oversampling : Oversampling, optional
+        When the runner runs at a multiple of the stream rate (its ``max_frames`` is
+        ``block_frames`` times the factor).
     noise : NoiseAdder, optional
         Adds every chain's circuit noise to its output before the mixer (``noise on``).
     """
@@ -128,6 +204,7 @@ class StreamCore:
         pairs: int = 1,
         fade_s: float = 0.03,
         captures: int = 0,
+        oversampling: Oversampling | None = None,
         noise: NoiseAdder | None = None,
     ) -> None:
         if channels not in (1, 2):
@@ -144,6 +221,7 @@ class StreamCore:
         self.block_frames = block_frames
         self.rate_hz = rate_hz
         self.runner = runner
+        self.oversampling = oversampling
         self.ring = ring
         self.safety = safety
         self.noise = noise
@@ -158,6 +236,8 @@ class StreamCore:
         self._fall = 10.0 ** (-METER_FALL_DB_PER_S * block_frames / rate_hz / 20.0)
         self.counters = np.zeros(4, dtype=np.int64)
         self.cpu_s = np.zeros(CPU_HISTORY)
+        self.blend: ChainBlend | None = None
+        """A chain being crossfaded to new sections (see ``chains.BlendedSwap``)."""
         self._clock = time.perf_counter
         self.tap: SignalTap | None = None
         """Where the preview window's spectrum copies from (set before the stream starts)."""
@@ -214,7 +294,14 @@ class StreamCore:
         else:
             np.copyto(self.dry, indata)
         runner = self.runner
-        chains = self._ring_chains if runner is None else runner.process(self.dry)
+        if runner is None:
+            chains = self._ring_chains
+        elif self.oversampling is None:
+            chains = runner.process(self.dry)
+            if self.blend is not None:
+                self.blend.process(self.dry, chains)
+        else:
+            chains = self.oversampling.process(runner, self.dry, self.blend)
         if self.noise is not None:
             chains = self.noise.add(chains)
         for mixer, column in self._mixer_columns:
@@ -262,6 +349,8 @@ class PreFilter:
         None when the recording is at the stream's rate.
     capture : AdcCapture, optional
         For as many channels: adds what the ADC captures of each (``--adc-rate``).
+    oversampling : Oversampling, optional
+        When the runner runs at a multiple of the recording's rate.
     """
 
     def __init__(
@@ -269,11 +358,14 @@ class PreFilter:
         runner: CascadeRunner,
         resampler: StreamResampler | None,
         capture: AdcCapture | None = None,
+        oversampling: Oversampling | None = None,
     ) -> None:
         self.runner = runner
         self.resampler = resampler
         self.capture = capture
+        self.oversampling = oversampling
         self.blocks = 0
+        self.blend: ChainBlend | None = None
 
     def blocks_done(self) -> int:
         """Blocks filtered so far."""
@@ -284,7 +376,13 @@ class PreFilter:
         float32 at the stream rate: the chains, then (with a capture) the capture of each
         chain and of the dry input, and the dry input last."""
         frames, channels = block.shape
-        chains = self.runner.process(block)
+        if self.oversampling is None:
+            chains = self.runner.process(block)
+            if self.blend is not None:
+                self.blend.process(block, chains)
+        else:
+            block = block.copy()  # delayed in place to line up with the chains
+            chains = self.oversampling.process(self.runner, block, self.blend)
         joined = np.concatenate([chains, block[np.newaxis]])
         flat = joined.transpose(1, 0, 2).reshape(frames, -1)
         out = flat if self.resampler is None else self.resampler.process(flat)

@@ -7,6 +7,7 @@ they are safe to make from any thread.
 
 from __future__ import annotations
 
+import math
 import os
 from collections.abc import Iterable
 from pathlib import Path
@@ -19,7 +20,7 @@ from matplotlib.figure import Figure
 from filtertwin import units
 from filtertwin.checks.alias import AliasCheck
 from filtertwin.checks.crossover import CrossoverCheck
-from filtertwin.checks.tolerance import FilterTolerance, ToleranceResult
+from filtertwin.checks.tolerance import WORST_WINDOW_DB, FilterTolerance, ToleranceResult
 from filtertwin.outputs import atomic_path
 
 __all__ = ["alias_figure", "crossover_figure", "tolerance_figure"]
@@ -148,8 +149,26 @@ def alias_figure(
     return _save(fig, path, protect)
 
 
-def _wrapped_deg(h: np.ndarray) -> np.ndarray:
-    return np.degrees(np.angle(h))
+CROSSOVER_FLOOR_DB = 60.0
+"""The crossover plot's magnitude axis reaches this far below the reference level."""
+
+
+def _unwrapped_deg(h: np.ndarray) -> np.ndarray:
+    """Phase in degrees, unwrapped along frequency, shifted by whole turns so that it starts
+    within (-180, 180] at the lowest frequency."""
+    deg = np.degrees(np.unwrap(np.angle(h)))
+    return deg - 360.0 * np.round(deg[0] / 360.0)
+
+
+def _phase_axis(ax: Axes, curves: list[np.ndarray]) -> None:
+    """Limits on whole multiples of 90 degrees around the curves, ticks every 90 or 180."""
+    arrays = [np.asarray(c, float) for c in curves]
+    values = np.concatenate([a[np.isfinite(a)] for a in arrays])
+    lo = 90.0 * math.floor(float(values.min()) / 90.0 - 0.05)
+    hi = 90.0 * math.ceil(float(values.max()) / 90.0 + 0.05)
+    ax.set_ylim(lo, hi)
+    step = 90.0 if hi - lo <= 720 else 180.0
+    ax.set_yticks(np.arange(lo, hi + 1, step))
 
 
 def crossover_figure(
@@ -175,10 +194,11 @@ def crossover_figure(
         colour = WAY_COLOURS[i % len(WAY_COLOURS)]
         mag.semilogx(f, 20 * np.log10(np.maximum(np.abs(h), 1e-12)), color=colour, lw=1.2,
                      ls="--", label=f"way '{name}'")  # fmt: skip
-        phase.semilogx(f, _wrapped_deg(h), color=colour, lw=1.0, ls="--", label=f"way '{name}'")
+        phase.semilogx(f, _unwrapped_deg(h), color=colour, lw=1.0, ls="--",
+                       label=f"way '{name}'")  # fmt: skip
     mag.semilogx(f, 20 * np.log10(np.maximum(np.abs(check.summed), 1e-12)), color="black",
                  lw=1.8, label="sum")  # fmt: skip
-    phase.semilogx(f, _wrapped_deg(check.summed), color="black", lw=1.5, label="sum")
+    phase.semilogx(f, _unwrapped_deg(check.summed), color="black", lw=1.5, label="sum")
     for c in check.crossovers:
         for ax in (mag, phase):
             ax.axvline(c.f_hz, color="0.5", lw=0.7, ls=":")
@@ -191,24 +211,24 @@ def crossover_figure(
         ax.axvspan(hi, f[-1], color="0.9", zorder=0)
         ax.grid(True, which="both", color="0.9", lw=0.5)
         ax.set_xlim(f[0], f[-1])
-    mag.set_ylim(ref - 30, ref + 8)
+    mag.set_ylim(ref - CROSSOVER_FLOOR_DB, ref + 8)
     mag.set_ylabel("magnitude (dB)")
     mag.set_title("Magnitude: each way (dashed) and their sum (polarity included)")
     mag.legend(fontsize=8, loc="lower left")
-    phase.set_ylim(-185, 185)
-    phase.set_yticks([-180, -90, 0, 90, 180])
-    phase.set_ylabel("phase (degrees, wrapped)")
+    _phase_axis(phase, [line.get_ydata() for line in phase.get_lines()])
+    phase.set_ylabel("phase (degrees, unwrapped)")
     phase.set_xlabel("frequency (Hz)")
     phase.set_title(f"Phase; polarity advice: {check.polarity.advice()}", fontsize=9)
     return _save(fig, path, protect)
 
 
-def _tolerance_panel(ax: Axes, ft: FilterTolerance) -> None:
+def _tolerance_panel(ax: Axes, ft: FilterTolerance, worst_build: int) -> None:
     f = ft.f_hz
     ax.fill_between(f, ft.min_db, ft.max_db, color="tab:blue", alpha=0.25,
                     label="range of all builds")  # fmt: skip
     ax.semilogx(f, ft.median_db, color="tab:blue", lw=1.0, label="median build")
-    ax.semilogx(f, ft.worst_db, color="tab:red", lw=1.0, ls="--", label="worst build")
+    ax.semilogx(f, ft.worst_db, color="tab:red", lw=1.0, ls="--",
+                label=f"worst build overall (no. {worst_build})")  # fmt: skip
     ax.semilogx(f, ft.nominal_db, color="black", lw=1.3, label="nominal parts")
     m, pb = ft.mask, ft.passband_db
     p_lo, p_hi = m.pass_hz
@@ -228,12 +248,28 @@ def _tolerance_panel(ax: Axes, ft: FilterTolerance) -> None:
     ax.legend(fontsize=7, loc="lower left")
 
 
-def _deviation_panel(ax: Axes, ft: FilterTolerance) -> None:
+def worst_here_db(ft: FilterTolerance) -> float:
+    """How far the overall worst build deviates from nominal in this filter, measured where
+    the nominal response is within ``WORST_WINDOW_DB`` of the passband gain (as the check
+    measures every build)."""
+    window = ft.nominal_db >= ft.passband_db - WORST_WINDOW_DB
+    return float(np.max(np.abs(ft.worst_db[window] - ft.nominal_db[window])))
+
+
+def _deviation_panel(ax: Axes, ft: FilterTolerance, worst_build: int) -> None:
     f, nominal = ft.f_hz, ft.nominal_db
     ax.fill_between(f, ft.min_db - nominal, ft.max_db - nominal, color="tab:blue", alpha=0.25,
                     label="range of all builds")  # fmt: skip
     ax.semilogx(f, ft.median_db - nominal, color="tab:blue", lw=1.0, label="median build")
-    ax.semilogx(f, ft.worst_db - nominal, color="tab:red", lw=1.0, ls="--", label="worst build")
+    ax.semilogx(f, ft.worst_db - nominal, color="tab:red", lw=1.0, ls="--",
+                label=f"worst build overall (no. {worst_build}): "
+                      f"{worst_here_db(ft):.2f} dB here")  # fmt: skip
+    outside = nominal < ft.passband_db - WORST_WINDOW_DB  # not measured: shaded
+    if outside.any():
+        ax.fill_between(f, 0, 1, where=outside, color="0.85", alpha=0.6, lw=0,
+                        transform=ax.get_xaxis_transform(),
+                        label=f"more than {WORST_WINDOW_DB:g} dB below the passband "
+                              "(not measured)")  # fmt: skip
     ax.axhline(0.0, color="black", lw=1.0)
     window = nominal >= ft.passband_db - 40
     spread = np.concatenate([(ft.min_db - nominal)[window], (ft.max_db - nominal)[window]])
@@ -242,7 +278,11 @@ def _deviation_panel(ax: Axes, ft: FilterTolerance) -> None:
     ax.set_xlim(f[0], f[-1])
     ax.grid(True, which="both", color="0.9", lw=0.5)
     ax.set_ylabel("deviation from nominal (dB)")
-    ax.set_title(f"worst build deviates up to {ft.worst_deviation_db:.2f} dB", fontsize=10)
+    ax.set_title(
+        f"any build: up to {ft.worst_deviation_db:.2f} dB from nominal "
+        f"(within {WORST_WINDOW_DB:g} dB of the passband)",
+        fontsize=9,
+    )
     ax.legend(fontsize=7, loc="lower left")
 
 
@@ -261,12 +301,14 @@ def tolerance_figure(
     r_pct, c_pct = 100 * result.resistor_tolerance, 100 * result.capacitor_tolerance
     fig.suptitle(
         f"{result.builds} tolerance builds, {dist}, R \u00b1{r_pct:g} %, C \u00b1{c_pct:g} %: "
-        f"yield {100 * result.yield_fraction:.1f} %",
-        fontsize=12,
+        f"yield {100 * result.yield_fraction:.1f} %\nworst build overall (red): no. "
+        f"{result.worst_build}, up to {result.worst_deviation_db:.2f} dB from nominal "
+        f"within {WORST_WINDOW_DB:g} dB of the passband",
+        fontsize=11,
     )
     for (left, right), ft in zip(axes, result.filters, strict=True):
-        _tolerance_panel(left, ft)
-        _deviation_panel(right, ft)
+        _tolerance_panel(left, ft, result.worst_build)
+        _deviation_panel(right, ft, result.worst_build)
     for ax in axes[-1]:
         ax.set_xlabel("frequency (Hz)")
     return _save(fig, path, protect)

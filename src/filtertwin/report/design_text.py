@@ -5,8 +5,10 @@ from __future__ import annotations
 import math
 from typing import Any
 
+import numpy as np
+
 from filtertwin import units
-from filtertwin.design import Design, Filter, Stage, StopbandFloor
+from filtertwin.design import Design, Filter, Stage, StopbandFloor, lowpass_sections
 from filtertwin.noise import DesignNoise, NoiseFigures
 from filtertwin.twin import (
     FIDELITY_TOL_DB,
@@ -54,13 +56,55 @@ def _describe_filter(f: Filter) -> str:
     return f"{name}{extra}, order {s.order}, corner {corner}, {TOPOLOGY_WORDS[s.topology]}"
 
 
+FAR_DISTANCE = 0.5
+"""A match further than this (RMS of relative f0 and Q errors) resembles no alignment."""
+
+
 def resemblance(f: Filter) -> str:
-    """The nearest standard alignment of an as-built filter, with its corner in Hz."""
+    """The standard alignment an as-built filter is closest to, as a builder says it: a
+    near-flat Chebyshev match is "close to Butterworth" with its Q error; the -3 dB point is
+    the filter's own."""
+    from filtertwin.prototypes import NEAR_FLAT_RIPPLE_DB, q_deviation_pct
+
     m = f.resembles
     assert m is not None
+    minus_3 = minus_3db_hz(f)
+    at = f", -3 dB at {units.format_si(minus_3, 'Hz', 4)}" if minus_3 is not None else ""
+    if m.alignment == "chebyshev" and (m.ripple_db or 0.0) < NEAR_FLAT_RIPPLE_DB:
+        dev = q_deviation_pct(lowpass_sections(f.stages))
+        if len(dev) == 1:
+            q_text = f"Q {abs(dev[0]):.0f} % {'high' if dev[0] >= 0 else 'low'}"
+        else:
+            q_text = "stage Qs " + ", ".join(f"{d:+.0f} %" for d in dev) + " from Butterworth's"
+        return f"close to Butterworth, {q_text}{at}"
     corner = m.corner_scale if f.response == "lowpass" else 1.0 / m.corner_scale
     name = m.description.split(", corner")[0]
-    return f"{name} at {units.format_si(corner, 'Hz', 4)} (distance {m.distance:.3f}, 0 = exact)"
+    text = (
+        f"{name} at {units.format_si(corner, 'Hz', 4)}{at} (distance {m.distance:.3f}, 0 = exact)"
+    )
+    if m.distance > FAR_DISTANCE:
+        return f"none is close; the nearest is {text}"
+    return text
+
+
+def minus_3db_hz(f: Filter) -> float | None:
+    """Where a low-pass or high-pass filter's as-built response is 3 dB below its passband
+    gain (the first such point going away from the passband); None for a band-pass."""
+    if f.response not in ("lowpass", "highpass"):
+        return None
+    f0s = [s.built.f0_hz for s in f.stages]
+    grid = np.geomspace(min(f0s) / 100, max(f0s) * 100, 4001)
+    if f.response == "highpass":
+        grid = grid[::-1]
+    level = 20 * np.log10(np.abs(f.frequency_response(grid))) - f.passband_db
+    below = np.nonzero(level < -3.0)[0]
+    if below.size == 0 or below[0] == 0:
+        return None
+    i = int(below[0])
+    # linear interpolation in log frequency between the two grid points around -3 dB
+    x0, x1 = math.log(grid[i - 1]), math.log(grid[i])
+    y0, y1 = level[i - 1] + 3.0, level[i] + 3.0
+    return math.exp(x0 + (x1 - x0) * y0 / (y0 - y1))
 
 
 def design_table(design: Design, twin: Twin | None = None, noise: DesignNoise | None = None) -> str:
@@ -213,6 +257,7 @@ def fidelity_line(ft: FilterTwin, twin: Twin) -> str:
         f"{units.format_si(fid.at_hz, 'Hz', 4)}) and {fid.max_deg:.2f} deg (at "
         f"{units.format_si(fid.at_deg_hz, 'Hz', 4)}) of the analog model{stop}"
         + _fidelity_hint(ft, twin)
+        + (f"\n    {ft.slew_note}" if ft.slew_note else "")
     )
 
 

@@ -11,6 +11,7 @@ import os
 import warnings
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import scipy.signal
@@ -82,6 +83,7 @@ def spectra_figure(
     title: str,
     *,
     unit: str = "FS",
+    twin: Twin | None = None,
 ) -> Path:
     """Welch PSD of the input and of every output, and each output relative to the input.
 
@@ -96,6 +98,9 @@ def spectra_figure(
         Figure title.
     unit : str
         Signal unit for the axis label (``"FS"`` = full scale for audio).
+    twin : Twin, optional
+        The twin the outputs came from: where its resampling filters (or the bilinear
+        transform at 1x) make the outputs fall toward Nyquist is shaded and labelled.
 
     Returns
     -------
@@ -126,6 +131,9 @@ def spectra_figure(
         f" {spectra[0][1].resolution_hz:.3g} Hz resolution",
         fontsize="medium",
     )
+    top.tick_params(labelbottom=True)  # frequency labels on both panels
+    if twin is not None:
+        _mark_nyquist_rolloff((top, bottom), twin, f_hz[1:])
     top.legend(loc="lower left")
     bottom.set_ylim(*RATIO_RANGE_DB)
     _log_axis(bottom, lo_hz, hi_hz, "output / input (dB)")
@@ -134,6 +142,36 @@ def spectra_figure(
     )
     bottom.legend(loc="lower left")
     return save_png(fig, path)
+
+
+ROLLOFF_DB = 0.1
+"""The resampling filters' loss from which the spectra plot shades the band up to Nyquist."""
+
+
+def _mark_nyquist_rolloff(axes: Sequence[Axes], twin: Twin, f_hz: np.ndarray) -> None:
+    """Shade and name what makes every output fall near the input's Nyquist frequency."""
+    nyquist = twin.input_rate_hz / 2
+    if twin.oversampling > 1:
+        loss_db = -20 * np.log10(
+            np.maximum(np.abs(resampling_response(
+                twin.oversampling, f_hz, twin.rate_hz, twin.resampling)), 1e-300)
+        )  # fmt: skip
+        beyond = f_hz[loss_db > ROLLOFF_DB]
+        start = float(beyond[0]) if beyond.size else nyquist
+        label = (
+            f"resampling filters of the {twin.oversampling}x twin roll off toward "
+            f"Nyquist ({nyquist / 1000:g} kHz)"
+        )
+    else:
+        start = 0.9 * nyquist
+        label = (
+            "bilinear transform: a low-pass twin falls to a zero at Nyquist "
+            f"({nyquist / 1000:g} kHz)"
+        )
+    for i, ax in enumerate(axes):
+        ax.axvspan(start, nyquist, color="0.85", alpha=0.6, lw=0, zorder=0,
+                   label=label if i == len(axes) - 1 else None)  # fmt: skip
+        ax.axvline(nyquist, color="0.4", ls=":", lw=1.0)
 
 
 def _style(i: int, label: str) -> tuple[str, str]:
@@ -208,25 +246,27 @@ def response_figure(path: str | os.PathLike[str], design: Design, twin: Twin, ti
         c = _colour(i)
         db_a = 20 * np.log10(np.maximum(np.abs(ha), 1e-300))
         peak_db = max(peak_db, float(np.max(db_a)))
-        mag.plot(f_hz, db_a, color=c, lw=1.4, label=f"{ft.name} analog")
-        mag.plot(f_hz, 20 * np.log10(np.maximum(np.abs(hd), 1e-300)), color=c, ls="--", lw=1.2,
-                 label=f"{ft.name} twin")  # fmt: skip
-        phase.plot(f_hz, np.degrees(np.unwrap(np.angle(ha))), color=c, lw=1.4)
-        phase.plot(f_hz, np.degrees(np.unwrap(np.angle(hd))), color=c, ls="--", lw=1.2)
-        delay.plot(f_hz, 1e3 * f.group_delay_s(f_hz), color=c, lw=1.4)
-        delay.plot(f_hz, 1e3 * gd_d, color=c, ls="--", lw=1.2)
+        # the twin sits on the analog curve: analog wide and pale, twin narrow and dashed
+        mag.plot(f_hz, db_a, color=c, label=ft.name, **_ANALOG)
+        mag.plot(f_hz, 20 * np.log10(np.maximum(np.abs(hd), 1e-300)), color=c, **_TWIN)
+        phase.plot(f_hz, np.degrees(np.unwrap(np.angle(ha))), color=c, **_ANALOG)
+        phase.plot(f_hz, np.degrees(np.unwrap(np.angle(hd))), color=c, **_TWIN)
+        delay.plot(f_hz, 1e3 * f.group_delay_s(f_hz), color=c, **_ANALOG)
+        delay.plot(f_hz, 1e3 * gd_d, color=c, **_TWIN)
         inside = np.abs(ha) >= np.max(np.abs(ha)) * 10 ** (-FIDELITY_WINDOW_DB / 20)
         err = np.where(inside, 20 * np.log10(np.abs(hd) / np.maximum(np.abs(ha), 1e-300)), np.nan)
         error.plot(f_hz, err, color=c, lw=1.2, label=ft.name)
     if len(twin.filters) > 1:
         mag.plot(f_hz, 20 * np.log10(np.maximum(np.abs(total_a), 1e-300)), color=_SUM_COLOUR,
-                 lw=1.4, label="sum analog")  # fmt: skip
+                 label="sum", **_ANALOG)  # fmt: skip
         mag.plot(f_hz, 20 * np.log10(np.maximum(np.abs(total_d), 1e-300)), color=_SUM_COLOUR,
-                 ls="--", lw=1.2, label="sum twin")  # fmt: skip
+                 **_TWIN)  # fmt: skip
+    mag.plot([], [], color="0.3", label="analog model (wide)", **_ANALOG)
+    mag.plot([], [], color="0.3", label="digital twin (dashed)", **_TWIN)
     lo, hi = f_hz[0], f_hz[-1]
     mag.set_ylim(RESPONSE_FLOOR_DB, max(peak_db, 0.0) + 6)
     _log_axis(mag, lo, hi, "magnitude (dB)")
-    mag.set_title("magnitude: analog model solid, twin dashed", fontsize="medium")
+    mag.set_title("magnitude: analog model wide and pale, twin dashed on it", fontsize="medium")
     handles, labels = mag.get_legend_handles_labels()
     phase.legend(handles, labels, loc="lower left", fontsize="small", ncols=2)
     _log_axis(phase, lo, hi, "phase (degrees, unwrapped)")
@@ -236,16 +276,23 @@ def response_figure(path: str | os.PathLike[str], design: Design, twin: Twin, ti
     _limit_delay_axis(delay)
     _log_axis(error, lo, hi, "twin − analog (dB)")
     error.set_title(
-        f"twin error within {FIDELITY_WINDOW_DB:g} dB of the peak ({twin.rate_hz / 1000:g} kHz, "
-        f"{twin.oversampling}x"
-        + (f", {twin.resampling} resampling included)" if twin.oversampling > 1 else ")"),
+        f"twin error within {FIDELITY_WINDOW_DB:g} dB of the peak\n(twin at "
+        f"{twin.rate_hz / 1000:g} kHz, {twin.oversampling}x"
+        + (f", {twin.resampling}-phase resampling included)" if twin.oversampling > 1 else ")"),
         fontsize="medium",
     )
-    _symmetric(error, minimum=0.2)
     top = twin.filters[0].fidelity.band_hz[1]
-    error.axvline(top, color="grey", ls=":", lw=1.0, label="top of the fidelity band")
+    _symmetric(error, minimum=0.2, below_hz=top)  # the fall past the band's top is off-scale
+    label = "top of the fidelity band" + (
+        " (resampling filters roll off above)" if twin.oversampling > 1 else ""
+    )
+    error.axvline(top, color="grey", ls=":", lw=1.0, label=label)
     error.legend(loc="lower left", fontsize="small")
     return save_png(fig, path)
+
+
+_ANALOG: dict[str, Any] = {"lw": 4.0, "alpha": 0.4, "solid_capstyle": "butt"}
+_TWIN: dict[str, Any] = {"lw": 1.2, "ls": "--"}
 
 
 def _limit_delay_axis(ax: Axes) -> None:
@@ -256,8 +303,11 @@ def _limit_delay_axis(ax: Axes) -> None:
         ax.set_ylim(min(0.0, float(values.min())), top * 1.1 if top > 0 else 1.0)
 
 
-def _symmetric(ax: Axes, minimum: float) -> None:
-    values = np.concatenate([line.get_ydata() for line in ax.get_lines()])
+def _symmetric(ax: Axes, minimum: float, below_hz: float = math.inf) -> None:
+    lines = ax.get_lines()
+    values = np.concatenate(
+        [np.asarray(line.get_ydata())[np.asarray(line.get_xdata()) <= below_hz] for line in lines]
+    )
     values = values[np.isfinite(values)]
     span = max(minimum, float(np.max(np.abs(values))) * 1.15 if len(values) else minimum)
     ax.set_ylim(-span, span)

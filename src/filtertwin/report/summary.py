@@ -21,7 +21,7 @@ from filtertwin.outputs import atomic_path
 from filtertwin.recordinginfo import RecordingInfo
 from filtertwin.render import RenderResult, WrittenFile
 from filtertwin.report import figures
-from filtertwin.report.design_text import design_dict, noise_dict
+from filtertwin.report.design_text import BOM_COLUMNS, bom_rows, design_dict, noise_dict
 from filtertwin.report.html import CAUTION, ReportSection, write_html
 from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG, Twin
 
@@ -154,6 +154,10 @@ def summary_dict(
         "clipping": [
             {"filter": c.filter, "stage": c.stage, "samples": c.samples} for c in result.clips
         ],
+        "slewing": [
+            {"filter": c.filter, "stage": c.stage, "samples": c.samples, "at_rate_hz": twin.rate_hz}
+            for c in result.slews
+        ],
         "caution": CAUTION,
     }
     out.update(extra or {})
@@ -177,7 +181,7 @@ def design_sections(design: Design, twin: Twin | None = None) -> list[ReportSect
     shows what ``filtertwin design --json`` prints.
     """
     data = design_dict(design, twin)
-    sections = []
+    sections = [overview_section(design)]
     for f in data["filters"]:
         stage_rows = [_stage_row(s) for s in f["stages"]]
         parts_rows = [
@@ -189,11 +193,6 @@ def design_sections(design: Design, twin: Twin | None = None) -> list[ReportSect
             f"{f['response']}, {f['description']}; passband gain {gain_db:+.2f} dB"
             + (", polarity inverted" if f["polarity"] < 0 else "")
         ]
-        paragraphs += [
-            f"Warning (stage {w['stage'] or '-'}): {w['message']}"
-            for w in data["warnings"]
-            if w["filter"] == f["name"]
-        ]
         sections.append(
             ReportSection(
                 f"Filter '{f['name']}': stages and parts",
@@ -201,7 +200,46 @@ def design_sections(design: Design, twin: Twin | None = None) -> list[ReportSect
                 tables=[(_STAGE_HEADER, stage_rows), (("stage", *_PARTS), parts_rows)],
             )
         )
+    sections.append(parts_list_section(design))
     return sections
+
+
+def overview_section(design: Design) -> ReportSection:
+    """The amplifier, the part series, tolerances and ranges, and every design warning."""
+    amp = design.amplifier
+    sp = design.spec.parts
+    r_lo, r_hi = sp.resistor_range_ohm
+    c_lo, c_hi = sp.capacitor_range_f
+    paragraphs = [
+        "Amplifier: "
+        + (
+            f"{amp.description}, output swing +/-{amp.swing_v:g} V, open-loop output "
+            f"resistance {amp.output_resistance_ohm:g} ohm"
+            if amp
+            else "ideal (no gain-bandwidth, swing or output-resistance limits)"
+        ),
+        f"Parts: resistors {sp.resistor_series} +/-{100 * sp.resistor_tolerance:g} % "
+        f"({units.format_letter_code(r_lo, 'R')} to {units.format_letter_code(r_hi, 'R')}), "
+        f"gain resistors {sp.gain_series}, capacitors {sp.capacitor_series} "
+        f"+/-{100 * sp.capacitor_tolerance:g} % ({units.format_letter_code(c_lo, 'C')} to "
+        f"{units.format_letter_code(c_hi, 'C')}); full scale {design.spec.full_scale_v:g} V.",
+    ]
+    warnings = [f"Warning: {w}" for w in design.warnings] or ["Warnings: none."]
+    return ReportSection("Design: amplifier, parts and warnings", paragraphs + warnings)
+
+
+def parts_list_section(design: Design) -> ReportSection:
+    """The parts list, as ``design --bom`` writes it."""
+    columns = [c for c in BOM_COLUMNS if c != "value_si"]
+    rows = [[row[c] for c in columns] for row in bom_rows(design)]
+    return ReportSection(
+        "Parts list",
+        [
+            "Every part, as `filtertwin design --bom FILE.csv` writes it (designator: filter "
+            "number . stage . part)."
+        ],  # fmt: skip
+        tables=[(tuple(columns), rows)],
+    )
 
 
 _STAGE_HEADER = (
@@ -281,7 +319,8 @@ def render_sections(
         [
             f"Twin fidelity passes within {FIDELITY_TOL_DB:g} dB and {FIDELITY_TOL_DEG:g} degrees"
             " of the analog model where it is within 60 dB of its peak. The amplifier model"
-            " limits each stage output to the amplifier's swing; limited samples are listed.",
+            " limits each stage output to the amplifier's swing and its rate of change to the"
+            " slew rate (counted at the twin's rate); limited samples are listed.",
         ],
         tables=[(("check", "filter", "result", "verdict"), _check_rows(result, twin))],
     )
@@ -311,28 +350,9 @@ def render_sections(
 
 
 def _check_rows(result: RenderResult, twin: Twin) -> list[tuple[str, str, str, str]]:
-    rows = []
-    for ft in twin.filters:
-        fid = ft.fidelity
-        ok = fid.within(FIDELITY_TOL_DB, FIDELITY_TOL_DEG)
-        lo, hi = fid.band_hz
-        rows.append((
-            "twin fidelity", ft.name,
-            f"{fid.max_db:.3f} dB (at {units.format_si(fid.at_hz, 'Hz')}), {fid.max_deg:.2f} deg,"
-            f" {units.format_si(lo, 'Hz', 3)} to {units.format_si(hi, 'Hz', 3)}",
-            "PASS" if ok else "FAIL",
-        ))  # fmt: skip
-    for ft in twin.filters:
-        clips = [c for c in result.clips if c.filter == ft.name]
-        text = "; ".join(f"stage {c.stage}: {c.samples} samples limited" for c in clips)
-        verdict = "FAIL" if clips else "PASS"
-        rows.append(("amplifier swing", ft.name, text or "never reached", verdict))
-    for f in result.files:
-        if f.over_full_scale and f.subtype and f.subtype.startswith("PCM"):
-            rows.append(("file full scale", f.path.name,
-                         f"{f.over_full_scale} samples beyond full scale clipped in the file",
-                         "FAIL"))  # fmt: skip
-    return rows
+    from filtertwin import verdicts  # the same verdicts the terminal prints and exits on
+
+    return verdicts.rows(verdicts.render_verdicts(result, twin))
 
 
 def crossover_section(check: CrossoverCheck, figure: Path | None = None) -> ReportSection:
@@ -516,7 +536,8 @@ def _figures(
         unit = "FS" if info.kind == "audio" else "unit"
         path = figures.spectra_figure(
             where / "spectra.png", list(zip(labels, result.spectra, strict=True)),
-            f"Spectra of {info.path.name} before and after {design.title}", unit=unit,
+            f"Spectra of {info.path.name} before and after\n{design.title}", unit=unit,
+            twin=twin,
         )  # fmt: skip
         written.append(path)
         shown["spectra"] = path

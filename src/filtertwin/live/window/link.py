@@ -10,10 +10,9 @@ offer:
   ``corner``, ``listen``, ``answer``, ``capture``, ``quit``). The link serialises every
   command, from the terminal and from the page alike, with one lock around the session's
   ``handle``, so the two never interleave;
-* undo and redo re-install a candidate's design from before or after an edit (the same
-  rebuild, twin and chain swap as the edit itself);
-* "save as" writes the heard candidate's design as a new design file
-  (:mod:`filtertwin.live.window.savefile`).
+* undo, redo and "save as" are the session's own (:meth:`ListenSession.undo
+  <filtertwin.live.session.ListenSession.undo>`, ``redo``, ``save_as``): one edit history
+  for the terminal and the page, every change crossfaded in.
 
 The page reads a snapshot of the session taken under the same lock (:meth:`SessionLink.view`)
 and the meters the audio callback wrote (:meth:`SessionLink.meters`); nothing here runs in
@@ -27,7 +26,7 @@ import math
 import threading
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -40,20 +39,8 @@ from filtertwin.live.player import Player
 from filtertwin.live.status import StatusReader
 from filtertwin.live.tap import SignalTap
 from filtertwin.live.tap import warm_up as warm_up_tap
-from filtertwin.live.window import savefile
 
-EDIT_COMMANDS = ("part", "corner")
 MESSAGES_KEPT = 40
-
-
-@dataclass
-class EditHistory:
-    """Designs before and after each edit, per candidate, for undo and redo."""
-
-    undo: list[tuple[int, Design, Design]] = field(default_factory=list)
-    redo: list[tuple[int, Design, Design]] = field(default_factory=list)
-    previous: dict[int, Design] = field(default_factory=dict)
-    """The design each candidate had before its latest change (the plot's ghost)."""
 
 
 @dataclass(frozen=True)
@@ -101,7 +88,6 @@ class SessionLink:
         self.clock = clock
         self.lock = threading.RLock()
         self.version = 0
-        self.history = EditHistory()
         self.originals = tuple(c.design for c in self.session.candidates)
         """Each candidate's design as it started (the stage cards' targets)."""
         self.messages: collections.deque[tuple[int, str]] = collections.deque(maxlen=MESSAGES_KEPT)
@@ -124,15 +110,7 @@ class SessionLink:
 
     def _locked_handle(self, command: keys.Command, now_s: float) -> None:
         with self.lock:
-            session = self.session
-            before = [c.design for c in session.candidates]
             self._handle(command, now_s)
-            if command.name in EDIT_COMMANDS:
-                for index, (old, cand) in enumerate(zip(before, session.candidates, strict=True)):
-                    if cand.design is not old:
-                        self.history.undo.append((index, old, cand.design))
-                        self.history.redo.clear()
-                        self.history.previous[index] = old
             self.version += 1
 
     def run(self, name: str, args: tuple[str, ...] = ()) -> None:
@@ -183,44 +161,21 @@ class SessionLink:
             ) from None
         self.version += 1
 
-    def _blind_running(self) -> bool:
-        blind = self.session.blind
-        return blind is not None and not blind.finished
-
-    def _reinstall(self, index: int, design: Design, undoing: Design) -> None:
-        session = self.session
-        session._install(index, design)
-        session._rematch()
-        self.history.previous[index] = undoing
-        self.version += 1
-
     def undo(self) -> None:
         """Take back the latest edit (any candidate); it can be redone."""
-        with self.lock:
-            if self._blind_running():
-                self.session.say("undo: no edits during blind trials")
-                return
-            if not self.history.undo:
-                self.session.say("undo: nothing to undo")
-                return
-            index, before, after = self.history.undo.pop()
-            self._reinstall(index, before, after)
-            self.history.redo.append((index, before, after))
-            self.session.say(f"undo: {self.session.candidates[index].label} back as before")
+        self.run_edit(self.session.undo, "undo")
 
     def redo(self) -> None:
         """Make the latest undone edit again."""
+        self.run_edit(self.session.redo, "redo")
+
+    def run_edit(self, action: Callable[[], Any], name: str) -> None:
         with self.lock:
-            if self._blind_running():
-                self.session.say("redo: no edits during blind trials")
-                return
-            if not self.history.redo:
-                self.session.say("redo: nothing to redo")
-                return
-            index, before, after = self.history.redo.pop()
-            self._reinstall(index, after, before)
-            self.history.undo.append((index, before, after))
-            self.session.say(f"redo: {self.session.candidates[index].label} edited again")
+            try:
+                action()
+            except UserInputError as error:
+                self.session.say(f"{name}: {error}")
+            self.version += 1
 
     def save_as(self, path: str) -> Path:
         """Write the heard candidate's design, as edited, to a new file.
@@ -231,15 +186,7 @@ class SessionLink:
             During blind trials, in bypass, or if the file exists or cannot be written.
         """
         with self.lock:
-            if self._blind_running():
-                raise UserInputError("save as: not during blind trials (it would name X)")
-            index = self.session.selection.candidate
-            if index is None:
-                raise UserInputError("save as: select the candidate to save first (not bypass)")
-            design = self.session.candidates[index].design
-        written = savefile.save_design(design, Path(path))
-        self.session.say(f"saved {self.session.candidates[index].label} as {written}")
-        return written
+            return self.session.save_as(path)
 
     # --- reading ---------------------------------------------------------------------------
 
@@ -263,9 +210,9 @@ class SessionLink:
                 ceiling_dbfs=s.safety.ceiling_dbfs,
                 processing_rate_hz=s.processing_rate_hz,
                 match_offsets_db=offsets,
-                previous=dict(self.history.previous),
-                can_undo=bool(self.history.undo),
-                can_redo=bool(self.history.redo),
+                previous={r.index: r.before for r in s.history},
+                can_undo=bool(s.history),
+                can_redo=bool(s.undone),
                 capture="" if plan is None else ("on" if s.capture_on else "off"),
                 blind=self._blind_view(),
             )
@@ -300,7 +247,6 @@ class SessionLink:
         """Meters and counters of the stream now (read from what the callback wrote)."""
         facts = self._reader.facts()
         core = self.core
-        limit_gain = float(core.safety._state[1])
         stream = self.player.stream
         latency = getattr(stream, "latency", None) if stream is not None else None
         if isinstance(latency, tuple):
@@ -319,7 +265,7 @@ class SessionLink:
         return {
             "way_peaks": [[w, p] for w, p in facts.way_peaks],
             "output_peak": facts.output_peak,
-            "limit_db": 20 * math.log10(max(limit_gain, 1e-12)),
+            "limit_db": facts.limiter_db,  # 0 during blind trials (it differs between designs)
             "limiting": facts.limiting,
             "clipping": list(facts.clipping),
             "xruns": facts.xruns,

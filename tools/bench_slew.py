@@ -1,0 +1,168 @@
+"""Benchmark of the slew-limited cascade runner against the plain one (`filtertwin.engine`).
+
+Not a test: it prints figures for a person to read. Every timing is the median of repeats,
+the runners taken in turns so that a busy machine slows them all, and every figure is also
+given as a ratio to the plain runner (no limits) on the same data in the same run.
+
+Measures, at the rate an 8x oversampled 48 kHz twin runs (384 kHz), on invented signals
+(seeded noise):
+
+1. One stereo cascade of 8 sections (4 stages of 2 sections, the limits on each stage's last
+   section, as a twin places them): plain; swing clamping only (what a render with an
+   amplifier ran before slew limiting); swing clamping and slew limiting with the slew step
+   never reached; slewing now and then (a step near the largest the signal makes, so under
+   1 % of the samples slew); and slewing hard (a tenth to a third of the samples, a grossly
+   distorted signal: the limited loop runs nearly all the time). Target: slew-limited <=
+   1.5x the plain runner's time where the signal slews now and then or not at all.
+2. A 3-way crossover, two candidate designs (6 chains, 12 lanes; the invented chains of
+   tools/bench_runner.py), the same five runners.
+3. One 512-frame stereo block from Python (an 8x oversampled 64-frame live block), plain and
+   slew-limited.
+
+Usage: ``python tools/bench_slew.py [--quick] [--repeats N]`` with the package installed or
+``PYTHONPATH=src``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import os
+import platform
+import sys
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+import scipy.signal
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from bench_runner import Row, crossover_chains, in_turns, per_call, print_table  # noqa: E402
+from filtertwin.engine import CascadeRunner, warm_up  # noqa: E402
+
+RATE_HZ = 384000.0
+CHANNELS = 2
+TARGET = 1.5
+
+
+def stage_limits(n_sections: int, value: float) -> np.ndarray:
+    """``value`` on every second section (each stage's last), inf elsewhere."""
+    limits = np.full(n_sections, np.inf)
+    limits[1::2] = value
+    return limits
+
+
+def runners(
+    chains: list[np.ndarray], frames: int, rare_step: float, hard_step: float
+) -> dict[str, CascadeRunner]:
+    """Plain, clamping only, and clamping with slewing: never, now and then, hard."""
+    levels = [stage_limits(len(sos), 4.0) for sos in chains]
+
+    def build(steps: float | None, clip: bool = True) -> CascadeRunner:
+        return CascadeRunner(
+            chains, CHANNELS, frames,
+            clip_levels=levels if clip else None,
+            slew_steps=None if steps is None else [stage_limits(len(s), steps) for s in chains],
+        )  # fmt: skip
+
+    return {
+        "plain": build(None, clip=False),
+        "clamp": build(None),
+        "slew, never reached": build(7.9),  # < 2 x level: the slewing kernel runs
+        "slewing now and then": build(rare_step),
+        "slewing hard": build(hard_step),
+    }
+
+
+def rare_step(chains: list[np.ndarray], x: np.ndarray) -> float:
+    """A step that the filtered signal exceeds on about 0.2 % of its samples."""
+    steps = [np.abs(np.diff(scipy.signal.sosfilt(sos, x, axis=0), axis=0)) for sos in chains]
+    return float(np.quantile(np.concatenate([s.ravel() for s in steps]), 0.998))
+
+
+def ratio_rows(
+    label: str, t: dict[str, float], slewed_pct: dict[str, float], units: int
+) -> list[Row]:
+    rows = []
+    for name in ("clamp", "slew, never reached", "slewing now and then", "slewing hard"):
+        ratio = t[name] / t["plain"]
+        extra = f" ({slewed_pct[name]:.2g} % slewed)" if name in slewed_pct else ""
+        judged = name not in ("clamp", "slewing hard")
+        target = f"<= {TARGET:g}x" if judged else "(shown)"
+        rows.append(
+            Row(
+                f"{label}, {name}{extra}: ns/section-sample-channel",
+                f"{t[name] / units * 1e9:.3f}",
+                f"{t['plain'] / units * 1e9:.3f}",
+                f"{ratio:.2f}x",
+                target,
+                ratio <= TARGET or not judged,
+            )
+        )
+    return rows
+
+
+def slewed_percent(runner: CascadeRunner, frames: int) -> float:
+    lanes = runner.n_chains * runner.channels
+    stage_outputs = sum(n // 2 for n in runner.n_sections) / runner.n_chains
+    return 100 * float(runner.slew_counts.sum()) / (frames * lanes * stage_outputs)
+
+
+def bench_cascades(label: str, chains: list[np.ndarray], seconds: float, repeats: int) -> list[Row]:
+    frames = int(seconds * RATE_HZ)
+    x = np.random.default_rng(1).standard_normal((frames, CHANNELS)) * 0.5
+    built = runners(chains, 16384, rare_step(chains, x[: frames // 4]), hard_step=0.02)
+    out = np.empty((len(chains), frames, CHANNELS))
+    actions: dict[str, Callable[[], object]] = {
+        name: (lambda r=runner: r.process(x, out=out)) for name, runner in built.items()
+    }
+    t = in_turns(actions, repeats)
+    slewed = {
+        name: slewed_percent(built[name], frames * repeats)
+        for name in ("slewing now and then", "slewing hard")
+    }
+    units = x.size * sum(len(sos) for sos in chains)
+    assert not built["slew, never reached"].slew_counts.any()
+    return ratio_rows(label, t, slewed, units // len(chains) * len(chains))
+
+
+def bench_block(repeats: int, calls: int) -> list[Row]:
+    chains = [scipy.signal.butter(16, 20000.0, fs=RATE_HZ, output="sos")]
+    block = np.random.default_rng(3).standard_normal((512, CHANNELS)) * 0.5
+    built = runners(chains, 512, rare_step(chains, block), hard_step=0.02)
+    plain = per_call(lambda: built["plain"].process(block), calls, repeats)
+    slewing = per_call(lambda: built["slewing now and then"].process(block), calls, repeats)
+    return [
+        Row(
+            "one 512-frame stereo block from Python, 8 sections, slewing now and then: us/call",
+            f"{slewing * 1e6:.2f}",
+            f"{plain * 1e6:.2f}",
+            f"{slewing / plain:.2f}x",
+            f"<= {TARGET:g}x",
+            slewing / plain <= TARGET,
+        )
+    ]
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="short signals, fewer repeats")
+    parser.add_argument("--repeats", type=int, default=None, help="repeats per figure")
+    args = parser.parse_args(argv)
+    repeats = args.repeats or (3 if args.quick else 7)
+    seconds = 2.0 if args.quick else 10.0
+    print(f"date     {datetime.datetime.now().isoformat(timespec='seconds')}")
+    print(f"machine  {platform.system()} {platform.machine()}, {os.cpu_count()} CPUs (shared)")
+    print(f"timing   median of {repeats} repeats, the runners in turns; reference: plain runner\n")
+    warm_up()
+    stereo = [scipy.signal.butter(16, 20000.0, fs=RATE_HZ, output="sos")]
+    crossover = crossover_chains(3)
+    rows = bench_cascades("stereo cascade, 8 sections", stereo, seconds, repeats)
+    rows += bench_cascades("3-way crossover x 2 designs", crossover, seconds / 4, repeats)
+    rows += bench_block(repeats, calls=500 if args.quick else 2000)
+    print_table(rows, reference="plain")
+    return 0 if all(r.met for r in rows) else 1
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
