@@ -121,9 +121,12 @@ def test_solo_applies_to_the_noise_as_to_the_signal():
 def test_the_status_line_and_the_help_show_the_noise():
     core, session, _, _ = setup()
     reader = StatusReader(session)
-    assert status_line(reader.facts()).startswith("A | ")
+    assert "noise on" not in status_line(reader.facts()).split(" | ")
     session.handle(Command("noise"), 1.0)  # no word: switch
-    assert status_line(reader.facts()).startswith("A + noise on | ")
+    facts = reader.facts()
+    assert status_line(facts).split(" | ")[:3] == ["A bookshelf-2way", "all ways", "noise on"]
+    narrow = status_line(facts, width=80)  # meters and timing go first, the noise state stays
+    assert len(narrow) <= 79 and "noise on" in narrow.split(" | ")
     assert "n      the circuit's own noise on or off" in help_text()
     with pytest.raises(Exception, match=r"noise takes on, off, not 'loud'"):
         parse_command("noise loud")
@@ -159,7 +162,9 @@ def test_the_streamed_noise_has_the_computed_density_and_is_zero_when_off(tmp_pa
     wav = write_wav(tmp_path / "silence.wav", np.zeros((RATE_HZ, 2), np.float32))
     actions = [(seconds, Command("noise", ("off",)))]
     player = player_for(["bookshelf-2way"], wav, [], circuit_noise=True)
-    y, xruns, recorder_xruns = record(player, seconds + 1.0, actions)
+    # 3 s after the switch: the recording also holds the time the stream took to start
+    # (the read-ahead and the noise filled first), within a buffer of the length asked + 1 s
+    y, xruns, recorder_xruns = record(player, seconds + 3.0, actions)
     print(f"xruns {xruns} + {recorder_xruns}")
     start = int(np.argmax(np.any(y != 0, axis=1)))
     on = y[start + RATE_HZ // 2 : start + round((seconds - 1.5) * RATE_HZ)].astype(np.float64)

@@ -151,7 +151,7 @@ TYPED_HELP: tuple[tuple[str, str], ...] = (
     ("undo / redo / edits", "take an edit back, make it again, list them"),
     ("save FILE", "the heard candidate as a new design file"),
     ("capture on|off", "with --adc-rate: hear the ADC capture"),
-    ("noise on|off", "the circuit's own noise added, at its true level"),
+    ("noise on|off", "the circuit's own noise, at its true level"),
     ("confirm", "confirm a bypass that asks for it"),
     ("listen A|B|X|1|2, answer A|B|1|2", "blind trials (--abx N, --prefer N)"),
     ("bypass, louder, quieter, quit", "as the keys 0, +, -, q"),
