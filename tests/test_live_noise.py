@@ -9,12 +9,13 @@ import time
 
 import numpy as np
 import pytest
-from scipy import signal
+from scipy import signal, stats
 
 from filtertwin import examples
 from filtertwin.design import build_design
 from filtertwin.engine import CascadeRunner
 from filtertwin.live import candidates as cands
+from filtertwin.live.blind import BlindSession, TrialLog, plan_trials
 from filtertwin.live.hiss import LiveNoise, NoiseAdder, NoiseFeeder, noise_ring
 from filtertwin.live.keys import Command, command_for_key, help_text, parse_command
 from filtertwin.live.matching import LevelMatch
@@ -25,6 +26,7 @@ from filtertwin.live.status import StatusReader, status_line
 from filtertwin.live.stream import StreamCore
 from filtertwin.noise import CircuitNoiseSource, filter_noise
 from filtertwin.spec import load_design
+from filtertwin.twin import build_twin
 
 RATE_HZ = 48000
 BLOCK = 256
@@ -42,11 +44,12 @@ class HandFed(NoiseFeeder):
         self.ready.set()
 
 
-def setup(names=("bookshelf-2way",), gains=None, feeder_kind=HandFed):
-    """A core with a runner (a recording at the stream's rate), its noise ring (filled by
-    hand, or by a real feeder thread) and its session; the input is silent."""
+def setup(names=("bookshelf-2way",), gains=None, feeder_kind=HandFed, blind=None):
+    """A core with a runner (a recording at the stream's rate, twins at 1x: the noise is
+    added after them), its noise ring (filled by hand, or by a real feeder thread) and its
+    session, started (with ``blind`` trials if given); the input is silent."""
     candidates = cands.make_candidates([(n, load(n)) for n in names])
-    twins = cands.build_twins(candidates, RATE_HZ)
+    twins = tuple(build_twin(c.design, RATE_HZ, oversampling=1) for c in candidates)
     sos, levels = cands.chains(twins)
     ring = noise_ring(len(sos), 1)
     adder = NoiseAdder(ring, len(sos), BLOCK, RATE_HZ, FADE_S)
@@ -62,7 +65,7 @@ def setup(names=("bookshelf-2way",), gains=None, feeder_kind=HandFed):
     feeder = feeder_kind([c.design for c in candidates], RATE_HZ, 1, ring)
     said = []
     session = ListenSession(
-        candidates, twins, core, core, RATE_HZ, match, say=said.append,
+        candidates, twins, core, core, RATE_HZ, match, blind=blind, say=said.append,
         noise=LiveNoise(adder, feeder),
     )  # fmt: skip
     session.start(0.0)
@@ -128,6 +131,7 @@ def test_the_status_line_and_the_help_show_the_noise():
     narrow = status_line(facts, width=80)  # meters and timing go first, the noise state stays
     assert len(narrow) <= 79 and "noise on" in narrow.split(" | ")
     assert "n      the circuit's own noise on or off" in help_text()
+    assert "noise on|off" in help_text().split("commands, typed after e")[1]
     with pytest.raises(Exception, match=r"noise takes on, off, not 'loud'"):
         parse_command("noise loud")
 
@@ -191,3 +195,46 @@ def test_the_streamed_noise_has_the_computed_density_and_is_zero_when_off(tmp_pa
     assert np.max(np.abs(error_db)) < 1.0  # filtertwin.noise node equations, as in render
     end = np.flatnonzero(np.any(y != 0, axis=1))[-1]
     assert len(y) - end > RATE_HZ // 2  # after the fade: half a second of exact zeros
+
+
+def test_blind_trials_with_the_noise_on_hear_each_designs_own_noise_and_show_nothing_else(
+    tmp_path,
+):
+    from test_live_listen_blind_reader import screen_guess
+
+    trials = 40
+    names = ("candidate-butterworth", "candidate-bessel")
+    plan = plan_trials(names, trials, 5, "abx")
+    blind = BlindSession(plan, TrialLog(tmp_path / "trials.csv", plan))
+    core, session, ring, said = setup(names, blind=blind)
+    core._clock = lambda: 0.0  # callback times made equal (every chain runs always)
+    now = [0.0]
+    reader = StatusReader(session, lambda: 0.05, clock=lambda: now[0])
+    session.handle(Command("noise", ("on",)), 0.0)
+    # each design's own noise, B's three times A's: what is heard tells them apart
+    rng = np.random.default_rng(8)
+    amplitude = np.array([1e-3, 3e-3])[:, None]
+    rms_heard, screen_hits = {}, 0
+    for trial in range(trials):
+        seen = {}
+        for button in rng.permutation(["A", "B", "X"]):
+            first_line = len(said)
+            session.handle(Command("listen", (button,)), now[0])
+            heard = []
+            for _ in range(3):  # 12 blocks: the crossfade is over after the first 6
+                fill(ring, (amplitude * rng.standard_normal((2, 4 * BLOCK))).astype(np.float32))
+                heard.append(play(core, 4))
+            rms_heard[button] = np.sqrt(np.mean(heard[-1] ** 2))
+            now[0] += 1.0
+            line = status_line(reader.facts()).rsplit(" | ", 1)[0]  # without the clock
+            screen = " ".join(said[first_line:]) + " " + line
+            seen[button] = screen.replace(f": {button}", ":").replace(f"now {button}", "now")
+        x_is = plan.x_is[trial]
+        # X sounds like its own design: the noise is each candidate's (1024 samples: the
+        # rms within 15 % of the hidden design's, 3x apart from the other's)
+        assert abs(rms_heard["X"] / rms_heard[x_is] - 1) < 0.15
+        screen_hits += screen_guess(seen) == x_is
+        session.handle(Command("answer", ("A",)), now[0])
+    assert all("noise on" in s for s in seen.values())  # the same for both designs
+    # exact one-sided binomial test against guessing (Clark 1982; scipy.stats.binomtest)
+    assert stats.binomtest(screen_hits, trials, 0.5, alternative="greater").pvalue > 0.01
