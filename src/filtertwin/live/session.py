@@ -33,6 +33,7 @@ from filtertwin.live import candidates as cands
 from filtertwin.live import capture, edits, keys, matching, routing
 from filtertwin.live.blind import BlindSession, buttons, describe_score
 from filtertwin.live.chains import BlendedSwap, ChainHost, ChainSwapper
+from filtertwin.live.hiss import LiveNoise
 from filtertwin.live.mixer import SUM, Selection
 from filtertwin.live.safety import MAX_LEVEL_DB, MIN_LEVEL_DB, OutputSafety
 from filtertwin.live.stream import StreamCore
@@ -72,6 +73,10 @@ class ListenSession:
     capture_plan : CapturePlan, optional
         The ADC capture (``--adc-rate``): the core then carries a capture of every chain and
         of the dry input, and ``capture on|off`` chooses between them and the signals.
+    noise : LiveNoise, optional
+        Every chain's circuit noise, switched by ``noise on|off``; it follows edits.
+    noise_on : bool
+        Switch the noise on at the start (``--circuit-noise``).
     """
 
     def __init__(
@@ -87,6 +92,8 @@ class ListenSession:
         blind: BlindSession | None = None,
         say: Callable[[str], None] = print,
         capture_plan: capture.CapturePlan | None = None,
+        noise: LiveNoise | None = None,
+        noise_on: bool = False,
     ) -> None:
         self.candidates = list(candidates)
         self.twins = list(twins)
@@ -105,6 +112,8 @@ class ListenSession:
         self.edits_made = 0
         self.capture_plan = capture_plan
         self.capture_on = False
+        self.noise = noise
+        self.noise_at_start = noise_on
         self.layout = cands.layout(self.candidates, match.gains, match.bypass_gain)
         self.original_designs = [c.design for c in self.candidates]
         self.history: list[EditRecord] = []
@@ -132,6 +141,8 @@ class ListenSession:
             self._hear_button(self.blind_buttons()[0])
             self._trial_prompt()
         self._apply()
+        if self.noise is not None and self.noise_at_start:
+            self.noise.switch(True)
 
     def _apply(self) -> None:
         gains = routing.pair_gains(self.layout, self.selection, self.pair_ways)
@@ -345,6 +356,23 @@ class ListenSession:
             )
         else:
             self.say(f"now: {self.now_hearing()} itself (ADC capture off)")
+
+    def noise_label(self) -> str:
+        """For the status line: "noise on" while the circuit noise is heard, else ""."""
+        return "noise on" if self.noise is not None and self.noise.on else ""
+
+    def _do_noise(self, command: keys.Command, now_s: float) -> None:
+        if self.noise is None:
+            raise UserInputError("this session has no circuit noise to add")
+        on = command.args[0] == "on" if command.args else not self.noise.on
+        self.noise.switch(on)
+        if on:
+            self.say(
+                "circuit noise on: each way's computed output noise (resistors and amplifier) "
+                "at its true level against full scale, with the way's own gain"
+            )
+        else:
+            self.say("circuit noise off")
 
     def _do_help(self, command: keys.Command, now_s: float) -> None:
         self.say(keys.help_text())
@@ -645,6 +673,8 @@ class ListenSession:
             self.swapper.swap(changes, all_sos, all_levels, cands.slew_steps(twins))
         self.twins[index] = twin
         self.candidates[index] = replace(self.candidates[index], design=design)  # same ways
+        if self.noise is not None:
+            self.noise.redesign(index, design)
         self.edits_made += 1
 
     def poll(self) -> None:

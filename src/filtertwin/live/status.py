@@ -44,6 +44,8 @@ class StatusFacts:
         the designs) are hidden until the end.
     capture : str
         "ADC 8 kHz" while the ADC capture is heard, "ADC off" when it could be, else "".
+    noise : str
+        "noise on" while the circuit noise is added (``noise on|off``), else "".
     way_peaks : tuple of (str, float)
         Peak (full-scale units, falling) of each way of the heard candidate, by the design's
         filter names.
@@ -97,6 +99,7 @@ class StatusFacts:
     blind: bool = False
     limiter_db: float = 0.0
     input_over: bool = False
+    noise: str = ""
 
 
 def dbfs(value: float) -> str:
@@ -136,6 +139,8 @@ def _fields(facts: StatusFacts) -> list[tuple[int, str]]:
         fields.append((1, facts.ways))
     if facts.capture:
         fields.append((1, facts.capture))
+    if facts.noise:
+        fields.append((1, facts.noise))
     if facts.blind:
         fields.append((2, "meters hidden until the trials end"))
     else:
@@ -288,6 +293,7 @@ class StatusReader:
             limiter_db=limiter_db,
             input_over=now_s - self._input_over_s <= CLIP_HOLD_S,
             hearing=session.now_hearing(),
+            noise=session.noise_label(),
             capture="" if plan is None else plan.label if captured else "ADC off",
             way_peaks=tuple(peaks),
             output_peak=0.0 if blind else float(core.meters[core.dry_meter + 1]),
