@@ -20,7 +20,9 @@ For scale, the same run measures ``scipy.signal.sosfilt`` with ``zi`` on one cha
 (8 sections, stereo) and prints the ratio; machines are shared and noisy, so compare the
 ratio between runs rather than the microseconds. With ``--noise`` the same callback is also
 timed with the circuit noise on (every chain's noise added from its own ring before the
-mixer, :mod:`filtertwin.live.hiss`), and the ratio to the callback without it is printed.
+mixer, :mod:`filtertwin.live.hiss`), in runs alternating with the plain callback, and the
+ratio is printed; so is the CPU share of the thread that makes the noise (outside the
+callback, on the other core when there is one).
 """
 
 from __future__ import annotations
@@ -135,6 +137,45 @@ def compare_window(frames: int, blocks: int, rounds: int = 4) -> None:
     )
 
 
+def compare_noise(frames: int, factor: int, blocks: int, rounds: int = 4) -> float:
+    """Median callback time without and with the circuit noise on, runs alternating; prints
+    both and returns the one with the noise."""
+    plain, noisy = [], []
+    for _ in range(rounds):
+        plain.append(time_callback(frames, blocks, factor=factor)[100:])
+        noisy.append(time_callback(frames, blocks, factor=factor, noise=True)[100:])
+    without, with_noise = np.median(np.concatenate(plain)), np.median(np.concatenate(noisy))
+    period_us = 1e6 * frames / RATE_HZ
+    print(
+        f"         circuit noise off / on, runs alternating: median {without:6.1f} / "
+        f"{with_noise:6.1f} us ({100 * with_noise / period_us:4.2f} % with it); "
+        f"on / off = {with_noise / without:.2f}"
+    )
+    return float(with_noise)
+
+
+def noise_thread_share(chunks: int = 30) -> float:
+    """CPU time the noise thread takes (fraction of one core) to make the noise of two
+    one-filter designs, stereo, at 48 kHz: its shaping FIRs on 8192-frame chunks."""
+    from filtertwin import examples
+    from filtertwin.design import build_design
+    from filtertwin.live.hiss import CHUNK_FRAMES
+    from filtertwin.noise import CircuitNoiseSource
+    from filtertwin.spec import load_design
+
+    sources = []
+    for name in ("candidate-butterworth", "candidate-bessel"):
+        design = build_design(load_design(examples.resolve(name)))
+        sources.append(CircuitNoiseSource(design, [f.name for f in design.filters], RATE_HZ, 2))
+    times = np.empty(chunks)
+    for n in range(chunks):
+        started = time.thread_time()
+        for source in sources:
+            source.next(CHUNK_FRAMES)
+        times[n] = time.thread_time() - started
+    return float(np.median(times) / (CHUNK_FRAMES / RATE_HZ))
+
+
 def time_sosfilt(frames: int, blocks: int) -> np.ndarray:
     sos = signal.butter(2 * SECTIONS, 3000, fs=RATE_HZ, output="sos")
     zi = np.zeros((SECTIONS, 2, 2))
@@ -179,14 +220,7 @@ def main() -> None:
                 f"{ref_med:6.1f} us; callback / sosfilt = {med / ref_med:.2f}"
             )
             if args.noise:
-                noisy = np.median(
-                    time_callback(frames, args.blocks, factor=factor, noise=True)[100:]
-                )
-                noisy_medians[factor, frames] = noisy
-                print(
-                    f"         with the circuit noise on: median {noisy:6.1f} us "
-                    f"({100 * noisy / period_us:4.2f} %); noise on / off = {noisy / med:.2f}"
-                )
+                noisy_medians[factor, frames] = compare_noise(frames, factor, args.blocks // 4)
     period_64 = 1e6 * 64 / RATE_HZ
     for factor, share in ((1, 0.05), (8, 0.10)):
         if (factor, 64) in medians:
@@ -197,6 +231,12 @@ def main() -> None:
             print(f"  the same with the circuit noise on: {verdict}")
     if (1, 64) in medians and (8, 64) in medians:
         print(f"8x / 1x callback time at 64 frames: {medians[8, 64] / medians[1, 64]:.2f}")
+    if args.noise:
+        share = noise_thread_share()
+        print(
+            f"noise thread (outside the callback), candidate-butterworth and candidate-bessel, "
+            f"stereo: {100 * share:.1f} % of one core"
+        )
     if args.window:
         warm_up_tap()
         print("preview window (listen --window): tap attached, page served 25 times a second")

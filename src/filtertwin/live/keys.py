@@ -35,8 +35,9 @@ from filtertwin.errors import UserInputError
 LEVEL_STEP_DB = 1.0
 WAYS = ("low", "mid", "high", "sum")
 LISTEN_CHOICES = ("A", "B", "X", "1", "2")
-CAPTURE_CHOICES = ("on", "off")
+ON_OFF_CHOICES = ("on", "off")
 LOWER_CASE_ARGS = ("capture", "noise")
+"""Commands whose choices are lower-case words (the other choices are upper-case letters)."""
 ANSWER_CHOICES = ("A", "B", "1", "2")
 
 
@@ -59,7 +60,8 @@ class TimedCommand:
 
 @dataclass(frozen=True)
 class CommandRule:
-    """How many arguments a command takes and what they may be (the help is on the keys)."""
+    """How many arguments a command takes and what they may be (the help text is in
+    ``KEY_BINDINGS`` and ``TYPED_HELP``)."""
 
     usage: str
     n_args: tuple[int, ...]
@@ -86,8 +88,8 @@ RULES: dict[str, CommandRule] = {
     "redo": CommandRule("redo", (0,)),
     "edits": CommandRule("edits", (0,)),
     "save": CommandRule("save FILE", (1,)),
-    "capture": CommandRule("capture [on|off]", (0, 1), CAPTURE_CHOICES),
-    "noise": CommandRule("noise [on|off]", (0, 1), CAPTURE_CHOICES),
+    "capture": CommandRule("capture [on|off]", (0, 1), ON_OFF_CHOICES),
+    "noise": CommandRule("noise [on|off]", (0, 1), ON_OFF_CHOICES),
     "confirm": CommandRule("confirm", (0,)),
     "edit": CommandRule("edit", (0,)),
     "help": CommandRule("help", (0,)),

@@ -41,6 +41,7 @@ from filtertwin.twin import Twin, build_twin
 
 CONFIRM_WINDOW_S = 3.0
 POLL_EVERY_S = 0.005
+"""How often the edit crossfades are moved on while one is under way."""
 POLL_GIVE_UP_S = 10.0
 """The edit thread stops after this (a stalled stream); the control loop polls on."""
 
@@ -119,6 +120,7 @@ class ListenSession:
         self.history: list[EditRecord] = []
         self.undone: list[EditRecord] = []
         self.queued: deque[tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = deque()
+        """Chain crossfades waiting their turn: (chain, sos, clip levels, slew steps, old sos)."""
         self.swapping: BlendedSwap | None = None
         self.fade_frames = max(
             1, round(core.mixers[0].fade_frames / core.rate_hz * self._runner_rate_hz())
@@ -234,7 +236,6 @@ class ListenSession:
         if word == SUM:
             return SUM
         if self.blind_active:
-            assert self.blind is not None
             common = [w for w in self.candidates[0].ways if w in self.candidates[1].ways]
             if word not in common:
                 raise UserInputError(
@@ -641,13 +642,12 @@ class ListenSession:
 
     def _install(self, index: int, design: cands.Design) -> None:
         """Make the twin of an edited candidate and crossfade its changed chains in."""
-        kept = self.twins[index]  # the same oversampling: the runner's rate stays
+        old = self.twins[index]  # the same oversampling: the runner's rate stays
         twin = build_twin(
-            design, self.processing_rate_hz, oversampling=kept.oversampling,
-            resampling=kept.resampling,
+            design, self.processing_rate_hz, oversampling=old.oversampling,
+            resampling=old.resampling,
         )  # fmt: skip
         first = cands.chain_index(self.candidates, index, 0)
-        old = self.twins[index]
         steps = twin.slew_steps()
         old_steps = old.slew_steps()
         changes = {
@@ -719,7 +719,7 @@ class ListenSession:
         deadline = time.monotonic() + timeout_s
         while self.edits_pending and time.monotonic() < deadline:
             self.poll()
-            time.sleep(0.005)
+            time.sleep(POLL_EVERY_S)
         return not self.edits_pending
 
     def _rematch(self) -> None:

@@ -5,13 +5,17 @@ opens. Per block the callback only copies, multiplies and adds into those arrays
 
 1. the input block: from the read-ahead ring (a recording) or from ``indata`` (live input);
 2. every chain's output: the :class:`~filtertwin.engine.CascadeRunner` filters the block
-   (or, when the read-ahead thread already filtered it, the ring carries the outputs);
+   (raised and lowered around it by :class:`Oversampling` when the twins run oversampled;
+   a part edit's :class:`~filtertwin.live.chains.ChainBlend` runs beside it), or, when the
+   read-ahead thread already filtered it, the ring carries the outputs;
    with the circuit noise on, a :class:`~filtertwin.live.hiss.NoiseAdder` adds each chain's
-   own noise to it;
+   own noise to its output;
 3. one :class:`~filtertwin.live.mixer.SelectionMixer` per output pair (crossfades), each
    writing straight into its two output columns (a mono input into both);
 4. :class:`~filtertwin.live.safety.OutputSafety` on the whole output, last;
-5. peak meters (falling at ``METER_FALL_DB_PER_S``), counters and the callback's own time.
+5. peak meters (falling at ``METER_FALL_DB_PER_S``), the preview window's
+   :class:`~filtertwin.live.tap.SignalTap` when there is one, counters and the callback's
+   own time.
 
 The control thread reads meters and counters and changes the mix with :meth:`request`,
 swaps chains with the runner's ``set_chain``, or replaces :attr:`StreamCore.runner` whole
@@ -144,7 +148,9 @@ class Oversampling:
         self._line = np.zeros((self.delay_frames, self.channels), dtype=self.dtype)
         self._position = 0
 
-    def process(self, runner: CascadeRunner, dry: np.ndarray, blend: Any = None) -> np.ndarray:
+    def process(
+        self, runner: CascadeRunner, dry: np.ndarray, blend: ChainBlend | None = None
+    ) -> np.ndarray:
         """Every chain's output for ``dry`` ``(frames, channels)``, which is delayed in place
         to line up with it; a part edit's :class:`~filtertwin.live.chains.ChainBlend` runs
         at the runner's rate, between up and down. Allocates nothing."""
