@@ -4,9 +4,10 @@ Every task is :func:`filtertwin.archive.scan.scan_file` on one path; results com
 order of the paths whatever the order they finish in, and a task gives the same result
 wherever it runs, so a serial loop, the local scheduler and a cluster agree exactly.
 
-The local scheduler uses threads: the work of a task happens in the GIL-free numba runner,
-numpy's FFT and libsndfile, so threads run side by side without the cost of copying results
-between processes. A cluster is reached with ``dask.distributed`` (the ``cluster`` extra),
+The local scheduler uses threads: the work of a task happens in GIL-free code (the numba
+runner and resampling kernels, scipy's FIR and FFTs, libsndfile), so threads run side by side
+without starting processes or copying results between them (measured against Dask's
+processes scheduler: see DEVELOPERS.md, the archive path). A cluster is reached with ``dask.distributed`` (the ``cluster`` extra),
 imported only when an address is given.
 """
 
