@@ -405,8 +405,8 @@ def _up_stage(
                 for i in range(lo, hi):
                     a[i] = 0.0
                 _phase_into(a[lo:hi], row, base + lo, taps[k], length, mirrored[k])
-            for i in range(n):
-                target[out_start + 2 * i + k] = a[i]
+                for i in range(lo, hi):  # while the tile is in the cache
+                    target[out_start + 2 * i + k] = a[i]
         for j in range(hist):
             row[j] = row[n + j]
 
