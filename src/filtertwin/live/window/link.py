@@ -87,7 +87,7 @@ class SessionLink:
         self.core = player.core
         self.clock = clock
         self.lock = threading.RLock()
-        self.version = 0
+        self._changes = 0
         self.originals = tuple(c.design for c in self.session.candidates)
         """Each candidate's design as it started (the stage cards' targets)."""
         self.messages: collections.deque[tuple[int, str]] = collections.deque(maxlen=MESSAGES_KEPT)
@@ -101,6 +101,12 @@ class SessionLink:
         self.session.handle = self._locked_handle  # type: ignore[method-assign]
         self.session.say = self._say_too
 
+    @property
+    def version(self) -> int:
+        """Grows with every change the page shows: commands, and level matches found again
+        after an edit (they arrive from the session's measuring thread)."""
+        return self._changes + self.session.match_updates
+
     # --- commands --------------------------------------------------------------------------
 
     def _say_too(self, message: str) -> None:
@@ -111,7 +117,7 @@ class SessionLink:
     def _locked_handle(self, command: keys.Command, now_s: float) -> None:
         with self.lock:
             self._handle(command, now_s)
-            self.version += 1
+            self._changes += 1
 
     def run(self, name: str, args: tuple[str, ...] = ()) -> None:
         """Carry out one command word with its arguments, as a script line would.
@@ -159,7 +165,7 @@ class SessionLink:
             raise UserInputError(
                 f"{name}: {error} (the recording lasts {feeder.info.duration_s:.1f} s)"
             ) from None
-        self.version += 1
+        self._changes += 1
 
     def undo(self) -> None:
         """Take back the latest edit (any candidate); it can be redone."""
@@ -175,7 +181,7 @@ class SessionLink:
                 action()
             except UserInputError as error:
                 self.session.say(f"{name}: {error}")
-            self.version += 1
+            self._changes += 1
 
     def save_as(self, path: str) -> Path:
         """Write the heard candidate's design, as edited, to a new file.

@@ -317,8 +317,14 @@ def session_state(view: SessionView, originals: Sequence[Design], clipping: Sequ
         state["response"] = response_curves(c.ways, c.design, twin, f_hz)
         previous = view.previous.get(index)
         if previous is not None:
-            ghost = response_curves(c.ways, previous, twin, f_hz)
-            state["ghost"] = {"ways": [{"way": g["way"], "analog_db": g["analog_db"]}
-                                       for g in ghost["ways"]],
-                              "sum": {"analog_db": ghost["sum"]["analog_db"]}}  # fmt: skip
+            state["ghost"] = ghost_curves(c.ways, previous, f_hz)
     return state
+
+
+def ghost_curves(ways: Sequence[str], design: Design, f_hz: np.ndarray) -> dict[str, Any]:
+    """The analog magnitudes of a design before an edit, per way and summed (grey curves)."""
+    responses = [f.frequency_response(f_hz) for f in design.filters]
+    return {
+        "ways": [{"way": w, "analog_db": db(h)} for w, h in zip(ways, responses, strict=True)],
+        "sum": {"analog_db": db(np.sum(responses, axis=0))},
+    }
