@@ -510,3 +510,43 @@ def test_clicking_the_loop_bar_jumps_and_a_region_keeps_the_loop_inside_it(
     assert len(found) >= 6, heard
     for start in found:  # every stretch heard lies inside the region (1024 frames long)
         assert 1.0 - 1e-9 <= start and start + 1024 / RATE_HZ <= 1.5 + 1e-9, heard
+
+
+# --- clip and slew flags on the stage cards ----------------------------------------------------
+
+
+def test_a_hot_15_khz_sine_lights_the_slew_flag_on_the_slewing_stage_card_only(
+    tmp_path, jack_server, browser
+):
+    design_file = tmp_path / "slow.toml"
+    design_file.write_text(
+        "# invented scenario: a 2-way split on a slow amplifier\n"
+        'title = "2-way split on a slow amplifier (invented)"\n'
+        '[amplifier]\npreset = "general-purpose bipolar"\n'  # 0.5 V/us, 13 V swing
+        '[signal]\nfull_scale = "10 V"\n'
+        '[[filter]]\nname = "woof"\nresponse = "lowpass"\nalignment = "butterworth"\n'
+        'order = 2\ncorner = "1 kHz"\n'
+        '[[filter]]\nname = "tweet"\nresponse = "highpass"\nalignment = "butterworth"\n'
+        'order = 2\ncorner = "20 Hz"\n'
+    )
+    t = np.arange(4 * RATE_HZ) / RATE_HZ
+    hot = np.concatenate([np.zeros(PREROLL), 0.9 * np.sin(2 * math.pi * 15000.0 * t)])
+    wav = write_wav(tmp_path / "hot.wav", np.repeat(hot[:, None], 2, axis=1).astype(np.float32))
+    player = player_for([str(design_file)], wav, [])
+    with served(player) as (server, _, _):
+        page = open_page(browser, server)
+        page.wait_for_selector("[data-label='tweet s1']")
+        # 15 kHz at 9 V peak needs a slope of 2 pi f A = 0.85 V/us, above the amplifier's
+        # 0.5 V/us (slew rate, Horowitz & Hill): the high-pass stage passes it whole and slews
+        page.wait_for_selector("[data-slew-flag='tweet s1']:not([hidden])", timeout=5000)
+        # the 1 kHz low-pass leaves 9 V / (15 kHz / 1 kHz)^2 = 0.04 V at 15 kHz (second-order
+        # roll-off, 40 dB a decade): 0.004 V/us, far below the slew rate; nor does anything
+        # reach the 13 V swing
+        low_slewing = page.is_visible("[data-slew-flag='woof s1']")
+        clip_shown = page.is_visible("[data-clip-flag]")
+        card_class = page.get_attribute("[data-label='tweet s1']", "class")
+        facts = page.inner_text("#facts")
+        page.close()
+    assert not low_slewing and not clip_shown
+    assert "slew" in card_class.split()
+    assert "tweet s1" in facts  # the meters' list of slewing stages names it too

@@ -274,6 +274,7 @@ class SessionLink:
             "limit_db": facts.limiter_db,  # 0 during blind trials (it differs between designs)
             "limiting": facts.limiting,
             "clipping": list(facts.clipping),
+            "slewing": list(facts.slewing),
             "xruns": facts.xruns,
             "starved_frames": facts.starved_frames,
             "callback_load": facts.callback_median_s / facts.period_s,
@@ -288,9 +289,11 @@ class SessionLink:
             "position_s": position_s,
         }
 
-    def clipping(self) -> tuple[str, ...]:
-        """Stages of the heard candidate that reached their swing in the last second."""
-        return self._reader.facts().clipping
+    def flags(self) -> tuple[tuple[str, ...], tuple[str, ...]]:
+        """Stages of the heard candidate that reached their swing, and their slew rate, in
+        the last second (named as :func:`~filtertwin.live.window.views.stage_label` does)."""
+        facts = self._reader.facts()
+        return facts.clipping, facts.slewing
 
     def latest_signals(self, frames: int) -> tuple[np.ndarray, np.ndarray, float]:
         """The last ``frames`` of the dry input and the output, and the stream rate."""

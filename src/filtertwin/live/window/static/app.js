@@ -86,7 +86,7 @@ function partRow(card, p) {
 
 function stageCard(card) {
   const q = v => (v === null ? "–" : num(v, 3));
-  return el("div", { class: "card" + (card.clipping ? " clip" : ""), "data-card": `${card.way}-${card.stage}` },
+  return el("div", { class: "card", "data-card": `${card.way}-${card.stage}`, "data-label": card.label },
     el("h3", {}, card.title),
     el("div", { class: "kind" }, card.kind + (card.gain && card.gain !== 1 ? `, K ${num(card.gain, 3)}` : "")),
     ...card.parts.map(p => partRow(card, p)),
@@ -97,9 +97,24 @@ function stageCard(card) {
       el("span", { "data-f0": `${card.way}-${card.stage}`, "data-value": card.built_f0_hz }, hz(card.built_f0_hz)),
       el("span", { "data-q": `${card.way}-${card.stage}`, "data-value": card.built_q }, q(card.built_q))),
     el("div", { class: "flags" },
-      `peak ${num(card.peak_db, 1)} dB`,
-      card.clip_input_dbfs !== null ? ` · clips from ${num(card.clip_input_dbfs, 1)} dBFS in ` : " ",
-      card.clipping ? el("span", { class: "flag" }, "clipping") : ""));
+      `internal peak ${num(card.peak_db, 1)} dB`,
+      card.clip_input_dbfs !== null ? ` · clips above ${num(card.clip_input_dbfs, 1)} dBFS input` : "",
+      el("span", { class: "flag", "data-clip-flag": card.label, hidden: !card.clipping,
+        title: "the amplifier reached its output swing within the last second" }, "clipping"),
+      el("span", { class: "flag", "data-slew-flag": card.label, hidden: !card.slewing,
+        title: "the amplifier's output was held to its slew rate within the last second" }, "slewing")));
+}
+
+// the clip and slew flags follow the live meters (stages named as the status line names them)
+function lightFlags(m) {
+  for (const card of document.querySelectorAll("[data-label]")) {
+    const label = card.dataset.label;
+    const clip = m.clipping.includes(label), slew = m.slewing.includes(label);
+    card.classList.toggle("clip", clip);
+    card.classList.toggle("slew", slew);
+    card.querySelector("[data-clip-flag]").hidden = !clip;
+    card.querySelector("[data-slew-flag]").hidden = !slew;
+  }
 }
 
 function renderCircuit(s) {
@@ -214,6 +229,7 @@ function renderMeters(m) {
   const facts = [
     ["limiter", m.limit_db < -0.05 ? `${num(m.limit_db, 1)} dB` : "0 dB"],
     ["clipping", m.clipping.length ? m.clipping.join(", ") : "none"],
+    ["slewing", m.slewing.length ? m.slewing.join(", ") : "none"],
     ["xruns", String(m.xruns) + (m.starved_frames ? ` (${m.starved_frames} late frames)` : "")],
     ["callback", `${num(100 * m.callback_load, 1)} % (max ${num(100 * m.callback_max_load, 0)} %)`],
     ["latency", m.latency_s === null ? "–" : `${num(1000 * m.latency_s, 1)} ms`],
@@ -224,6 +240,7 @@ function renderMeters(m) {
     page.facts = facts.map(([k]) => { const dd = el("dd", {}, ""); $("facts").append(el("dt", {}, k), dd); return dd; });
   }
   facts.forEach(([, v], i) => { if (page.facts[i].textContent !== v) page.facts[i].textContent = v; });
+  lightFlags(m);
   if (m.loop_s) {
     page.loopS = m.loop_s;
     $("loop-fill").style.left = `${(100 * m.position_s / m.loop_s).toFixed(2)}%`;
@@ -290,6 +307,7 @@ function onState(s) {
   $("level-value").textContent = `${num(s.level_db, 1)} dB`;
   renderChoices(s);
   renderCircuit(s);
+  if (page.live) lightFlags(page.live.meters);
   responsePlot();
   if ($("envelope").checked && (!page.envelope || page.envelope.version !== s.version) && s.selected !== null) send("envelope");
 }
