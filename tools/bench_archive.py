@@ -14,7 +14,10 @@ Measures
 2. Peak memory of one worker (tracemalloc, after a warm-up) scanning a 1-minute and a long
    file (1 hour by default, ``--long-s``): the two should agree, since files are streamed.
 
-Usage: ``python tools/bench_archive.py [--files N] [--seconds S] [--long-s S] [--repeats N]``
+The 1-minute load average is printed before and after: scaling needs both CPUs free.
+
+Usage: ``python tools/bench_archive.py [--files N] [--seconds S] [--long-s S] [--repeats N]
+[--archive DIR]`` (``--archive``: keep the invented files in DIR and reuse them next time)
 """
 
 from __future__ import annotations
@@ -44,6 +47,9 @@ def spec():  # type: ignore[no-untyped-def]
 
 
 def make(folder: Path, files: int, seconds: float, channels: int = 3) -> list[Path]:
+    kept = sorted(folder.glob("*.wav"))
+    if len(kept) == files:
+        return kept
     subprocess.run([sys.executable, str(HERE / "make_archive.py"), str(folder), "--files",
                     str(files), "--seconds", str(seconds), "--channels", str(channels)],
                    check=True, stdout=subprocess.DEVNULL)  # fmt: skip
@@ -80,6 +86,7 @@ def main() -> None:
     p.add_argument("--long-s", type=float, default=3600.0)
     p.add_argument("--repeats", type=int, default=1)
     p.add_argument("--memory-only", action="store_true")
+    p.add_argument("--archive", type=Path, help="folder for the invented files (kept)")
     p.add_argument("--peak", nargs=2, type=Path, help=argparse.SUPPRESS)  # child process
     args = p.parse_args()
     if args.peak:
@@ -88,11 +95,12 @@ def main() -> None:
     from filtertwin.archive.tasks import run_serial, run_tasks
 
     print(f"{datetime.date.today()}, {platform.system()} {platform.machine()}, "
-          f"{os.cpu_count()} CPUs, Python {platform.python_version()}")  # fmt: skip
+          f"{os.cpu_count()} CPUs, Python {platform.python_version()}, "
+          f"1-minute load {os.getloadavg()[0]:.2f}")  # fmt: skip
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         if not args.memory_only:
-            paths = make(folder / "archive", args.files, args.seconds)
+            paths = make(args.archive or folder / "archive", args.files, args.seconds)
             hours = len(paths) * args.seconds / 3600
             s = spec()
             run_serial(paths[:1], s)  # compile the kernels once
@@ -109,7 +117,8 @@ def main() -> None:
                     f"  {name:16s} {t:8.1f} s  {hours / t * 3600:8.1f} recording-s/s "
                     f"({hours / t:.4f} recording-h/s)  {serial / t:5.2f}x the serial loop"
                 )
-            print(f"  scaling 2 workers / 1 worker: {one / two:.2f}x (target >= 1.7x)")
+            print(f"  scaling 2 workers / 1 worker: {one / two:.2f}x (target >= 1.7x); "
+                  f"1-minute load now {os.getloadavg()[0]:.2f}")  # fmt: skip
         short = make(folder / "short", 1, 60.0, 1)[0]
         long = make(folder / "long", 1, args.long_s, 1)[0]
         warm = make(folder / "warm", 1, 2.0, 1)[0]

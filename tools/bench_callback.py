@@ -1,6 +1,6 @@
 """Cost of the live audio callback per block, without a stream.
 
-    python tools/bench_callback.py [--blocks N] [--frames 64 256] [--factors 1 8]
+    python tools/bench_callback.py [--blocks N] [--frames 64 256] [--factors 1 8] [--noise]
 
 Builds the callback of `filtertwin listen` as a run on a recording builds it: two
 candidates of 8 second-order sections each, stereo, float32, the read-ahead ring, one
@@ -18,7 +18,11 @@ ratio is printed (target: within 10 %).
 
 For scale, the same run measures ``scipy.signal.sosfilt`` with ``zi`` on one chain's block
 (8 sections, stereo) and prints the ratio; machines are shared and noisy, so compare the
-ratio between runs rather than the microseconds.
+ratio between runs rather than the microseconds. With ``--noise`` the same callback is also
+timed with the circuit noise on (every chain's noise added from its own ring before the
+mixer, :mod:`filtertwin.live.hiss`), in runs alternating with the plain callback, and the
+ratio is printed; so is the CPU share of the thread that makes the noise (outside the
+callback, on the other core when there is one).
 """
 
 from __future__ import annotations
@@ -37,6 +41,7 @@ import scipy
 from scipy import signal
 
 from filtertwin.engine import CascadeRunner
+from filtertwin.live.hiss import NoiseAdder, noise_ring
 from filtertwin.live.player import warm_up
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
@@ -59,18 +64,21 @@ def machine() -> str:
     )
 
 
-def make_core(frames: int, factor: int = 1) -> StreamCore:
+def make_core(frames: int, factor: int = 1, noise: bool = False) -> StreamCore:
     rate = RATE_HZ * factor
     a = signal.butter(2 * SECTIONS, 3000, fs=rate, output="sos")
     b = signal.bessel(2 * SECTIONS, 3000, fs=rate, output="sos", norm="mag")
     runner = CascadeRunner([a, b], 2, frames * factor, dtype=np.float32)
     ring = BlockRing(1, 64 * frames, 2)
     over = Oversampling(factor, 2, 2, frames) if factor > 1 else None
+    adder = NoiseAdder(noise_ring(2, 2), 2, frames, RATE_HZ, 0.03) if noise else None
     core = StreamCore(
         n_chains=2, channels=2, block_frames=frames, rate_hz=RATE_HZ, runner=runner,
-        ring=ring, safety=OutputSafety(RATE_HZ, ramp_s=0.01), oversampling=over,
+        ring=ring, safety=OutputSafety(RATE_HZ, ramp_s=0.01), oversampling=over, noise=adder,
     )  # fmt: skip
     core.prime()
+    if adder is not None:
+        adder.switch(True)
     return core
 
 
@@ -83,14 +91,17 @@ def serve_page(tap: SignalTap, stop: threading.Event) -> None:
         )
 
 
-def time_callback(frames: int, blocks: int, window: bool = False, factor: int = 1) -> np.ndarray:
-    core = make_core(frames, factor)
+def time_callback(
+    frames: int, blocks: int, window: bool = False, factor: int = 1, noise: bool = False
+) -> np.ndarray:
+    core = make_core(frames, factor, noise)
     stop = threading.Event()
     if window:
         core.tap = SignalTap()
         threading.Thread(target=serve_page, args=(core.tap, stop), daemon=True).start()
     rng = np.random.default_rng(1)
     source = (0.1 * rng.standard_normal((1, 32 * frames, 2))).astype(np.float32)
+    hiss = (1e-4 * rng.standard_normal((2, 32 * frames, 2))).astype(np.float32)
     out = np.zeros((frames, 2), dtype=np.float32)
     gains = [np.array([1.0, 0.0, 0.0]), np.array([0.0, 0.9, 0.0])]
     times = np.empty(blocks)
@@ -100,6 +111,8 @@ def time_callback(frames: int, blocks: int, window: bool = False, factor: int = 
     for n in range(blocks):
         if ring.room_frames >= source.shape[1]:
             ring.write(source)
+        if core.noise is not None and core.noise.ring.room_frames >= hiss.shape[1]:
+            core.noise.ring.write(hiss)
         if n % SWITCH_EVERY == 0:
             core.request([gains[(n // SWITCH_EVERY) % 2]])
         started = clock()
@@ -124,6 +137,45 @@ def compare_window(frames: int, blocks: int, rounds: int = 4) -> None:
     )
 
 
+def compare_noise(frames: int, factor: int, blocks: int, rounds: int = 4) -> float:
+    """Median callback time without and with the circuit noise on, runs alternating; prints
+    both and returns the one with the noise."""
+    plain, noisy = [], []
+    for _ in range(rounds):
+        plain.append(time_callback(frames, blocks, factor=factor)[100:])
+        noisy.append(time_callback(frames, blocks, factor=factor, noise=True)[100:])
+    without, with_noise = np.median(np.concatenate(plain)), np.median(np.concatenate(noisy))
+    period_us = 1e6 * frames / RATE_HZ
+    print(
+        f"         circuit noise off / on, runs alternating: median {without:6.1f} / "
+        f"{with_noise:6.1f} us ({100 * with_noise / period_us:4.2f} % with it); "
+        f"on / off = {with_noise / without:.2f}"
+    )
+    return float(with_noise)
+
+
+def noise_thread_share(chunks: int = 30) -> float:
+    """CPU time the noise thread takes (fraction of one core) to make the noise of two
+    one-filter designs, stereo, at 48 kHz: its shaping FIRs on 8192-frame chunks."""
+    from filtertwin import examples
+    from filtertwin.design import build_design
+    from filtertwin.live.hiss import CHUNK_FRAMES
+    from filtertwin.noise import CircuitNoiseSource
+    from filtertwin.spec import load_design
+
+    sources = []
+    for name in ("candidate-butterworth", "candidate-bessel"):
+        design = build_design(load_design(examples.resolve(name)))
+        sources.append(CircuitNoiseSource(design, [f.name for f in design.filters], RATE_HZ, 2))
+    times = np.empty(chunks)
+    for n in range(chunks):
+        started = time.thread_time()
+        for source in sources:
+            source.next(CHUNK_FRAMES)
+        times[n] = time.thread_time() - started
+    return float(np.median(times) / (CHUNK_FRAMES / RATE_HZ))
+
+
 def time_sosfilt(frames: int, blocks: int) -> np.ndarray:
     sos = signal.butter(2 * SECTIONS, 3000, fs=RATE_HZ, output="sos")
     zi = np.zeros((SECTIONS, 2, 2))
@@ -143,20 +195,20 @@ def main() -> None:
     parser.add_argument("--frames", type=int, nargs="+", default=[64, 256])
     parser.add_argument("--factors", type=int, nargs="+", default=[1, 8])
     parser.add_argument("--window", action="store_true", help="also compare with a page served")
+    parser.add_argument("--noise", action="store_true", help="also time it with noise on")
     args = parser.parse_args()
     print(f"date: {datetime.datetime.now().astimezone().isoformat(timespec='seconds')}")
     print(f"machine: {machine()}")
     warm_up()
     print(f"callback: 2 candidates x {SECTIONS} sections, stereo float32, read-ahead ring, "
           "crossfade always running, safety, meters; 48 kHz")  # fmt: skip
-    medians = {}
+    medians, noisy_medians = {}, {}
     for factor in args.factors:
         print(f" twins at {factor}x" + (" (resampling in the callback)" if factor > 1 else ""))
         for frames in args.frames:
             period_us = 1e6 * frames / RATE_HZ
-            cb = time_callback(frames, args.blocks, factor=factor)[
-                100:
-            ]  # the first calls fill caches
+            # the first calls fill caches
+            cb = time_callback(frames, args.blocks, factor=factor)[100:]
             ref = time_sosfilt(frames, args.blocks)[100:]
             med, p99 = np.median(cb), np.percentile(cb, 99)
             medians[factor, frames] = med
@@ -167,13 +219,24 @@ def main() -> None:
                 f"({100 * p99 / period_us:4.2f} %); scipy sosfilt with zi, one chain: "
                 f"{ref_med:6.1f} us; callback / sosfilt = {med / ref_med:.2f}"
             )
+            if args.noise:
+                noisy_medians[factor, frames] = compare_noise(frames, factor, args.blocks // 4)
     period_64 = 1e6 * 64 / RATE_HZ
     for factor, share in ((1, 0.05), (8, 0.10)):
         if (factor, 64) in medians:
             verdict = "met" if medians[factor, 64] < share * period_64 else "MISSED"
             print(f"target at {factor}x (median < {share:.0%} of the 64-frame period): {verdict}")
+        if (factor, 64) in noisy_medians:
+            verdict = "met" if noisy_medians[factor, 64] < share * period_64 else "MISSED"
+            print(f"  the same with the circuit noise on: {verdict}")
     if (1, 64) in medians and (8, 64) in medians:
         print(f"8x / 1x callback time at 64 frames: {medians[8, 64] / medians[1, 64]:.2f}")
+    if args.noise:
+        share = noise_thread_share()
+        print(
+            f"noise thread (outside the callback), candidate-butterworth and candidate-bessel, "
+            f"stereo: {100 * share:.1f} % of one core"
+        )
     if args.window:
         warm_up_tap()
         print("preview window (listen --window): tap attached, page served 25 times a second")

@@ -315,12 +315,18 @@ def print_table(rows: list[Row], reference: str = "sosfilt") -> None:
             print("  ".join("-" * w for w in widths))
 
 
-def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+def bench_options(argv: list[str] | None, description: str) -> tuple[argparse.Namespace, int]:
+    """The options of the runner benchmarks (``--quick``, ``--repeats N``) and the repeats
+    per figure they ask for (default 7, 3 with ``--quick``)."""
+    parser = argparse.ArgumentParser(description=description)
     parser.add_argument("--quick", action="store_true", help="short signals, fewer repeats")
     parser.add_argument("--repeats", type=int, default=None, help="repeats per figure")
     args = parser.parse_args(argv)
-    repeats = args.repeats or (3 if args.quick else 7)
+    return args, args.repeats or (3 if args.quick else 7)
+
+
+def main(argv: list[str] | None = None) -> int:
+    args, repeats = bench_options(argv, __doc__.splitlines()[0])
     seconds = 10.0 if args.quick else 60.0
 
     print(f"date     {datetime.datetime.now().isoformat(timespec='seconds')}")

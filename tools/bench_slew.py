@@ -25,7 +25,6 @@ Usage: ``python tools/bench_slew.py [--quick] [--repeats N]`` with the package i
 
 from __future__ import annotations
 
-import argparse
 import datetime
 import os
 import platform
@@ -37,7 +36,14 @@ import numpy as np
 import scipy.signal
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_runner import Row, crossover_chains, in_turns, per_call, print_table  # noqa: E402
+from bench_runner import (  # noqa: E402
+    Row,
+    bench_options,
+    crossover_chains,
+    in_turns,
+    per_call,
+    print_table,
+)
 from filtertwin.engine import CascadeRunner, warm_up  # noqa: E402
 
 RATE_HZ = 384000.0
@@ -145,11 +151,7 @@ def bench_block(repeats: int, calls: int) -> list[Row]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="short signals, fewer repeats")
-    parser.add_argument("--repeats", type=int, default=None, help="repeats per figure")
-    args = parser.parse_args(argv)
-    repeats = args.repeats or (3 if args.quick else 7)
+    args, repeats = bench_options(argv, __doc__.splitlines()[0])
     seconds = 2.0 if args.quick else 10.0
     print(f"date     {datetime.datetime.now().isoformat(timespec='seconds')}")
     print(f"machine  {platform.system()} {platform.machine()}, {os.cpu_count()} CPUs (shared)")

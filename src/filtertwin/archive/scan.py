@@ -382,24 +382,25 @@ class _Streams:
             return
         joined = np.concatenate(self.pending[stream])
         whole = len(joined) // w * w
-        for k in range(0, whole, w):
-            self._window(stream, joined[k : k + w])
+        self._windows(stream, joined[:whole].reshape(-1, w, joined.shape[1]))
         rest = joined[whole:]
         self.pending[stream] = [rest] if len(rest) else []
         self.count[stream] = len(rest)
 
-    def _window(self, stream: int, x: np.ndarray) -> None:
-        fold, _, source = self.plan.powers(x)
-        index = self.done[stream]
-        self.done[stream] += 1
-        t = self.start_s + (index + 0.5) * self.plan.seconds
-        for c in range(x.shape[1]):
-            self.keepers[stream][c].offer(Event(t, float(fold[c]), float(source[c])))
-        self.worst[stream] = np.maximum(self.worst[stream], fold)
-        self.series[stream].add(fold)
-        if stream == 0 and float(fold.max()) > self._worst_raw:
-            self._worst_raw = float(fold.max())
-            self.worst_window = index
+    def _windows(self, stream: int, x: np.ndarray) -> None:
+        """Consecutive windows ``(windows, frames, channels)`` of one stream."""
+        folds, _, sources = self.plan.powers(x)
+        for fold, source in zip(folds, sources, strict=True):
+            index = self.done[stream]
+            self.done[stream] += 1
+            t = self.start_s + (index + 0.5) * self.plan.seconds
+            for c in range(x.shape[2]):
+                self.keepers[stream][c].offer(Event(t, float(fold[c]), float(source[c])))
+            self.series[stream].add(fold)
+            if stream == 0 and float(fold.max()) > self._worst_raw:
+                self._worst_raw = float(fold.max())
+                self.worst_window = index
+        self.worst[stream] = np.maximum(self.worst[stream], folds.max(axis=0))
 
     def channel_result(self, c: int, name: str, checks: dict[str, dict[str, Any]]) -> ChannelResult:
         cal = self.calibration

@@ -61,36 +61,40 @@ class WindowPlan:
         return self.frames / self.rate_hz
 
     def powers(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Folding power, in-band power (unit^2) and the strongest folding frequency (Hz).
+        """Folding power, in-band power (unit^2) and the strongest folding frequency (Hz) of
+        consecutive windows, all transformed at once (one call per block, not per window).
 
         Parameters
         ----------
         x : numpy.ndarray
-            ``(frames, channels)`` window.
+            ``(windows, frames, channels)``.
 
         Returns
         -------
         fold, in_band, source_hz : numpy.ndarray
-            One value per channel. A sine of amplitude A wholly in the folding bins gives
+            ``(windows, channels)``. A sine of amplitude A wholly in the folding bins gives
             ``fold`` = A^2 / 2.
         """
-        y = (x - x.mean(axis=0)) * self.taper[:, np.newaxis]
-        p = np.abs(np.fft.rfft(y, axis=0)) ** 2 * self.scale
-        fold = p[self.folds].sum(axis=0)
-        in_band = p[self.in_band].sum(axis=0)
-        masked = np.where(self.folds[:, np.newaxis], p, -1.0)
-        k = masked.argmax(axis=0)
-        source = np.array([self._refine(p[:, c], int(k[c])) for c in range(p.shape[1])])
-        return fold, in_band, source
+        rows = np.ascontiguousarray(x.transpose(0, 2, 1))  # (windows, channels, frames)
+        y = (rows - rows.mean(axis=2, keepdims=True)) * self.taper
+        p = np.abs(np.fft.rfft(y, axis=2)) ** 2 * self.scale
+        fold = p[..., self.folds].sum(axis=2)
+        in_band = p[..., self.in_band].sum(axis=2)
+        k = np.where(self.folds, p, -1.0).argmax(axis=2)
+        return fold, in_band, self._refine(p, k)
 
-    def _refine(self, p: np.ndarray, k: int) -> float:
+    def _refine(self, p: np.ndarray, k: np.ndarray) -> np.ndarray:
+        """The strongest bins ``k`` moved by a parabola through the log powers of each and its
+        neighbours (at most half a bin; bins at the ends or beside a zero stay put)."""
         df = float(self.f_hz[1] - self.f_hz[0])
-        if 0 < k < len(p) - 1 and min(p[k - 1], p[k], p[k + 1]) > 0:
-            a, b, c = np.log(p[k - 1 : k + 2])
-            den = a - 2 * b + c
-            shift = 0.5 * (a - c) / den if den < 0 else 0.0
-            return float(self.f_hz[k] + max(-0.5, min(0.5, shift)) * df)
-        return float(self.f_hz[k])
+        inner = np.clip(k, 1, p.shape[2] - 2)[..., np.newaxis]
+        a, b, c = (np.take_along_axis(p, inner + d, axis=2)[..., 0] for d in (-1, 0, 1))
+        usable = (k == inner[..., 0]) & (np.minimum(np.minimum(a, b), c) > 0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            la, lb, lc = (np.log(np.where(usable, v, 1.0)) for v in (a, b, c))
+            den = la - 2 * lb + lc
+            shift = np.where(usable & (den < 0), 0.5 * (la - lc) / den, 0.0)
+        return self.f_hz[k] + np.clip(shift, -0.5, 0.5) * df
 
 
 def plan_windows(rate_hz: float, adc_rate_hz: float, band_hz: float) -> WindowPlan:

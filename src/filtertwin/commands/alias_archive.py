@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any, TextIO
 
 from filtertwin.commands.options import hz, positive
+from filtertwin.commands.progress import ProgressLine
 from filtertwin.errors import UserInputError
 
 __all__ = ["add_options", "render_each", "run", "wants_archive"]
@@ -208,17 +209,14 @@ def _candidates(designs: list[str], filter_name: str | None) -> list[Any]:
     ]
 
 
-class _Progress:
+class _Progress(ProgressLine):
     """A one-line bar over files and bytes on a terminal; silent otherwise."""
 
     def __init__(self, stream: TextIO, paths: list[Path]) -> None:
-        self.stream = stream
+        super().__init__(stream)
         self.files = len(paths)
         self.bytes = sum(p.stat().st_size for p in paths)
         self.done_files = self.done_bytes = self.unreadable = 0
-        self.active = stream.isatty()
-        self.started = time.monotonic()
-        self.shown = False
 
     def update(self, result: Any) -> None:
         self.done_files += 1
@@ -226,22 +224,13 @@ class _Progress:
         self.unreadable += result.error is not None
         if not self.active:
             return
-        width = 30
         frac = self.done_bytes / self.bytes if self.bytes else self.done_files / self.files
-        filled = int(width * frac)
         bad = f", {self.unreadable} unreadable" if self.unreadable else ""
-        self.stream.write(
-            f"\r[{'#' * filled}{'.' * (width - filled)}] {self.done_files}/{self.files} files, "
-            f"{_mb(self.done_bytes)} of {_mb(self.bytes)}{bad}, "
-            f"{time.monotonic() - self.started:.0f} s"
+        self.draw(
+            frac,
+            f"{self.done_files}/{self.files} files, {_mb(self.done_bytes)} of {_mb(self.bytes)}"
+            f"{bad}, {time.monotonic() - self.started:.0f} s",
         )
-        self.stream.flush()
-        self.shown = True
-
-    def close(self) -> None:
-        if self.shown:
-            self.stream.write("\n")
-            self.stream.flush()
 
 
 def _mb(n: int) -> str:

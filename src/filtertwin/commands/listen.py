@@ -23,12 +23,12 @@ again within 3 s (a script writes 'confirm'). Never connect a tweeter without it
 protection while you try things out.
 
 Keys: 1-9 candidate, 0 bypass, s/l/m/h solo sum/low/mid/high, L/M/H mute a way, + and -
-level, c ADC capture on/off (--adc-rate), e type a command (Enter runs it, Esc cancels),
-u/r undo/redo an edit, ? all keys and commands, q quit.
+level, c ADC capture on/off (--adc-rate), n circuit noise on/off, e type a command (Enter
+runs it, Esc cancels), u/r undo/redo an edit, ? all keys and commands, q quit.
 Typed commands: select N|LABEL, solo WAY, mute WAY, level DB, part [WAY] [STAGE] PART
 CHANGE (part low 2 C1 +1), corner [WAY] HZ [HZ], undo, redo, edits, save FILE, capture
-on|off, confirm, bypass, louder, quieter, quit. WAY is low, mid, high, sum or a filter's
-name from the design.
+on|off, noise on|off, confirm, bypass, louder, quieter, quit. WAY is low, mid, high, sum or
+a filter's name from the design.
 Blind trials (--abx N or --prefer N): a/b/x listen, A/B answer (ABX); 1/2 listen, Enter
 answers (preference); t repeats the trial and its keys.
 A script has lines 'TIME_S COMMAND [ARGS]', e.g. '2.5 select 2', '5 part low 2 C1 +1'."""
@@ -106,6 +106,9 @@ def register(subparsers: Any) -> None:
     add("--adc-rate", type=frequency_hz, metavar="HZ",
         help="with a recording sampled faster: key c hears what an ideal ADC at this rate "
         "captures of it (aliases included), with and without each candidate")  # fmt: skip
+    add("--circuit-noise", action="store_true",
+        help="start with each way's circuit noise (resistors and amplifier, at its computed "
+        "density and true level against full scale) added; key n switches it")  # fmt: skip
     add("--resampling", choices=("linear", "causal"), default="linear",
         help="candidates run at the oversampling render picks; " + RESAMPLING_HELP)  # fmt: skip
     trials = p.add_argument_group("blind trials (two designs)")
@@ -157,6 +160,7 @@ def _options(args: argparse.Namespace) -> Any:
         seed=args.seed,
         log_path=Path(args.log) if args.log else None,
         adc_rate_hz=args.adc_rate,
+        circuit_noise=args.circuit_noise,
         resampling=args.resampling,
     )
     check_options(options, len(args.designs))

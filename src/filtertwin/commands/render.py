@@ -20,6 +20,7 @@ from filtertwin.commands.options import (
     frequency_hz,
     oversampling,
 )
+from filtertwin.commands.progress import ProgressLine
 from filtertwin.errors import UserInputError
 
 SAFETY_LINE = (
@@ -118,16 +119,13 @@ def _count(text: str) -> int:
     return int(text)
 
 
-class _ProgressBar:
+class _ProgressBar(ProgressLine):
     """A one-line bar on a terminal after the first seconds; silent when not a terminal."""
 
     def __init__(self, stream: TextIO, rate_hz: float) -> None:
-        self.stream = stream
+        super().__init__(stream)
         self.rate_hz = rate_hz
-        self.active = stream.isatty()
-        self.started = time.monotonic()
         self.last = 0.0
-        self.shown = False
 
     def __call__(self, done: int, total: int) -> None:
         now = time.monotonic()
@@ -136,19 +134,11 @@ class _ProgressBar:
         if now - self.last < PROGRESS_EVERY_S and done < total:
             return
         self.last = now
-        width = 30
-        filled = int(width * done / max(total, 1))
-        self.stream.write(
-            f"\r[{'#' * filled}{'.' * (width - filled)}] {100 * done / max(total, 1):5.1f} %"
-            f"  {done / self.rate_hz:8.1f} of {total / self.rate_hz:.1f} s"
+        fraction = done / max(total, 1)
+        self.draw(
+            fraction,
+            f"{100 * fraction:5.1f} %  {done / self.rate_hz:8.1f} of {total / self.rate_hz:.1f} s",
         )
-        self.stream.flush()
-        self.shown = True
-
-    def close(self) -> None:
-        if self.shown:
-            self.stream.write("\n")
-            self.stream.flush()
 
 
 def cmd_render(args: argparse.Namespace) -> int:

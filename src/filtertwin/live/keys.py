@@ -35,8 +35,9 @@ from filtertwin.errors import UserInputError
 LEVEL_STEP_DB = 1.0
 WAYS = ("low", "mid", "high", "sum")
 LISTEN_CHOICES = ("A", "B", "X", "1", "2")
-CAPTURE_CHOICES = ("on", "off")
-LOWER_CASE_ARGS = ("capture",)
+ON_OFF_CHOICES = ("on", "off")
+LOWER_CASE_ARGS = ("capture", "noise")
+"""Commands whose choices are lower-case words (the other choices are upper-case letters)."""
 ANSWER_CHOICES = ("A", "B", "1", "2")
 
 
@@ -59,7 +60,8 @@ class TimedCommand:
 
 @dataclass(frozen=True)
 class CommandRule:
-    """How many arguments a command takes and what they may be (the help is on the keys)."""
+    """How many arguments a command takes and what they may be (the help text is in
+    ``KEY_BINDINGS`` and ``TYPED_HELP``)."""
 
     usage: str
     n_args: tuple[int, ...]
@@ -86,7 +88,8 @@ RULES: dict[str, CommandRule] = {
     "redo": CommandRule("redo", (0,)),
     "edits": CommandRule("edits", (0,)),
     "save": CommandRule("save FILE", (1,)),
-    "capture": CommandRule("capture [on|off]", (0, 1), CAPTURE_CHOICES),
+    "capture": CommandRule("capture [on|off]", (0, 1), ON_OFF_CHOICES),
+    "noise": CommandRule("noise [on|off]", (0, 1), ON_OFF_CHOICES),
     "confirm": CommandRule("confirm", (0,)),
     "edit": CommandRule("edit", (0,)),
     "help": CommandRule("help", (0,)),
@@ -116,6 +119,7 @@ KEY_BINDINGS: tuple[KeyBinding, ...] = (
     KeyBinding("+", Command("louder"), f"output level up {LEVEL_STEP_DB:g} dB"),
     KeyBinding("-", Command("quieter"), f"output level down {LEVEL_STEP_DB:g} dB"),
     KeyBinding("c", Command("capture"), "with --adc-rate: ADC capture on or off (aliases)"),
+    KeyBinding("n", Command("noise"), "the circuit's own noise on or off (its true level)"),
     KeyBinding("t", Command("trials"), "with --abx or --prefer: say the trial and its keys"),
     KeyBinding("a", Command("listen", ("A",)), "in a trial: hear A"),
     KeyBinding("b", Command("listen", ("B",)), "in a trial: hear B"),
@@ -149,6 +153,7 @@ TYPED_HELP: tuple[tuple[str, str], ...] = (
     ("undo / redo / edits", "take an edit back, make it again, list them"),
     ("save FILE", "the heard candidate as a new design file"),
     ("capture on|off", "with --adc-rate: hear the ADC capture"),
+    ("noise on|off", "the circuit's own noise, at its true level"),
     ("confirm", "confirm a bypass that asks for it"),
     ("listen A|B|X|1|2, answer A|B|1|2", "blind trials (--abx N, --prefer N)"),
     ("bypass, louder, quieter, quit", "as the keys 0, +, -, q"),

@@ -44,7 +44,7 @@ from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture as capture_mod
 from filtertwin.live import chains as chain_swaps
-from filtertwin.live import devices, matching, mixer, ring, routing, safety, stream
+from filtertwin.live import devices, hiss, matching, mixer, ring, routing, safety, stream
 from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
 from filtertwin.live.session import ListenSession
@@ -102,6 +102,8 @@ class ListenOptions:
     adc_rate_hz : float or None
         Rate of an ideal ADC whose capture of the recording can be heard (a recording
         sampled faster than it only).
+    circuit_noise : bool
+        Start with every candidate's circuit noise on (``noise on|off``, key n, switch it).
     resampling : str
         Phase of the resampling filters around oversampled twins: "linear" or "causal".
     """
@@ -126,6 +128,7 @@ class ListenOptions:
     seed: int | None = None
     log_path: Path | None = None
     adc_rate_hz: float | None = None
+    circuit_noise: bool = False
     resampling: str = "linear"
 
 
@@ -137,6 +140,7 @@ def warm_up() -> None:
     ring.warm_up()
     stream.warm_up()
     chain_swaps.warm_up()
+    hiss.warm_up()
 
 
 def _read_excerpt(info: RecordingInfo, seconds: float, channels: int) -> np.ndarray:
@@ -236,6 +240,7 @@ class Player:
     core: stream.StreamCore
     session: ListenSession
     feeder: stream.Feeder | None
+    noise_feeder: hiss.NoiseFeeder | None = None
     stream: Any = field(default=None, init=False)
     started_s: float | None = field(default=None, init=False)
     _saved_switch_interval_s: float | None = field(default=None, init=False)
@@ -294,6 +299,9 @@ class Player:
             self.feeder.start()
             if self.feeder.error is not None:
                 raise self.feeder.error
+        if self.noise_feeder is not None and self.options.circuit_noise:
+            self.noise_feeder.start()  # otherwise at the first 'noise on'
+            self.noise_feeder.wait_ready()
         self.session.start(time.monotonic())
         if self._saved_switch_interval_s is None:
             self._saved_switch_interval_s = sys.getswitchinterval()
@@ -337,6 +345,8 @@ class Player:
                 self.stream = None
         if self.feeder is not None:
             self.feeder.stop()
+        if self.noise_feeder is not None:
+            self.noise_feeder.stop()
         if self._saved_switch_interval_s is not None:
             sys.setswitchinterval(self._saved_switch_interval_s)
             self._saved_switch_interval_s = None
@@ -467,20 +477,26 @@ def prepare(
                     say(note)
         captures = 0 if plan is None else len(sos) + 1
         feeder = _feeder(options, info, rate_hz, len(sos) + 1 + captures, prefilter)
+    noise_ring = hiss.noise_ring(len(sos), in_channels)
+    noise = hiss.NoiseAdder(noise_ring, len(sos) + captures, block, rate_hz, options.fade_s)
+    noise_feeder = hiss.NoiseFeeder(
+        [c.design for c in candidates], rate_hz, in_channels, noise_ring
+    )
     core = stream.StreamCore(
         n_chains=len(sos), channels=in_channels, block_frames=block, rate_hz=rate_hz,
         runner=runner, ring=None if feeder is None else feeder.ring,
         safety=safety.OutputSafety(rate_hz, options.level_db, options.ceiling_dbfs, options.ramp_s),
         pairs=out_channels // 2, fade_s=options.fade_s, captures=captures,
-        oversampling=over if in_callback else None,
+        oversampling=over if in_callback else None, noise=noise,
     )  # fmt: skip
     core.prime()
     host: ChainHost = core if prefilter is None else prefilter
     session = ListenSession(
         candidates, twins, core, host, processing_rate_hz, match, pair_ways, program, blind, say,
-        capture_plan=plan,
+        capture_plan=plan, noise=hiss.LiveNoise(noise, noise_feeder),
+        noise_on=options.circuit_noise,
     )  # fmt: skip
     return Player(
         sd=sd, device=device, options=options, rate_hz=rate_hz, core=core, session=session,
-        feeder=feeder,
+        feeder=feeder, noise_feeder=noise_feeder,
     )  # fmt: skip

@@ -33,6 +33,7 @@ from filtertwin.live import candidates as cands
 from filtertwin.live import capture, edits, keys, matching, routing
 from filtertwin.live.blind import BlindSession, buttons, describe_score
 from filtertwin.live.chains import BlendedSwap, ChainHost, ChainSwapper
+from filtertwin.live.hiss import LiveNoise
 from filtertwin.live.mixer import SUM, Selection
 from filtertwin.live.remeasure import LoudnessRemeasure
 from filtertwin.live.safety import MAX_LEVEL_DB, MIN_LEVEL_DB, OutputSafety
@@ -41,6 +42,7 @@ from filtertwin.twin import Twin, build_twin
 
 CONFIRM_WINDOW_S = 3.0
 POLL_EVERY_S = 0.005
+"""How often the edit crossfades are moved on while one is under way."""
 POLL_GIVE_UP_S = 10.0
 """The edit thread stops after this (a stalled stream); the control loop polls on."""
 
@@ -73,6 +75,10 @@ class ListenSession:
     capture_plan : CapturePlan, optional
         The ADC capture (``--adc-rate``): the core then carries a capture of every chain and
         of the dry input, and ``capture on|off`` chooses between them and the signals.
+    noise : LiveNoise, optional
+        Every chain's circuit noise, switched by ``noise on|off``; it follows edits.
+    noise_on : bool
+        Switch the noise on at the start (``--circuit-noise``).
     """
 
     def __init__(
@@ -88,6 +94,8 @@ class ListenSession:
         blind: BlindSession | None = None,
         say: Callable[[str], None] = print,
         capture_plan: capture.CapturePlan | None = None,
+        noise: LiveNoise | None = None,
+        noise_on: bool = False,
     ) -> None:
         self.candidates = list(candidates)
         self.twins = list(twins)
@@ -106,11 +114,14 @@ class ListenSession:
         self.edits_made = 0
         self.capture_plan = capture_plan
         self.capture_on = False
+        self.noise = noise
+        self.noise_at_start = noise_on
         self.layout = cands.layout(self.candidates, match.gains, match.bypass_gain)
         self.original_designs = [c.design for c in self.candidates]
         self.history: list[EditRecord] = []
         self.undone: list[EditRecord] = []
         self.queued: deque[tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = deque()
+        """Chain crossfades waiting their turn: (chain, sos, clip levels, slew steps, old sos)."""
         self.swapping: BlendedSwap | None = None
         self.fade_frames = max(
             1, round(core.mixers[0].fade_frames / core.rate_hz * self._runner_rate_hz())
@@ -140,6 +151,8 @@ class ListenSession:
             self._hear_button(self.blind_buttons()[0])
             self._trial_prompt()
         self._apply()
+        if self.noise is not None and self.noise_at_start:
+            self.noise.switch(True)
 
     def _apply(self) -> None:
         gains = routing.pair_gains(self.layout, self.selection, self.pair_ways)
@@ -231,7 +244,6 @@ class ListenSession:
         if word == SUM:
             return SUM
         if self.blind_active:
-            assert self.blind is not None
             common = [w for w in self.candidates[0].ways if w in self.candidates[1].ways]
             if word not in common:
                 raise UserInputError(
@@ -353,6 +365,23 @@ class ListenSession:
             )
         else:
             self.say(f"now: {self.now_hearing()} itself (ADC capture off)")
+
+    def noise_label(self) -> str:
+        """For the status line: "noise on" while the circuit noise is heard, else ""."""
+        return "noise on" if self.noise is not None and self.noise.on else ""
+
+    def _do_noise(self, command: keys.Command, now_s: float) -> None:
+        if self.noise is None:
+            raise UserInputError("this session has no circuit noise to add")
+        on = command.args[0] == "on" if command.args else not self.noise.on
+        self.noise.switch(on)
+        if on:
+            self.say(
+                "circuit noise on: each way's computed output noise (resistors and amplifier) "
+                "at its true level against full scale, with the way's own gain"
+            )
+        else:
+            self.say("circuit noise off")
 
     def _do_help(self, command: keys.Command, now_s: float) -> None:
         self.say(keys.help_text())
@@ -621,13 +650,12 @@ class ListenSession:
 
     def _install(self, index: int, design: cands.Design) -> None:
         """Make the twin of an edited candidate and crossfade its changed chains in."""
-        kept = self.twins[index]  # the same oversampling: the runner's rate stays
+        old = self.twins[index]  # the same oversampling: the runner's rate stays
         twin = build_twin(
-            design, self.processing_rate_hz, oversampling=kept.oversampling,
-            resampling=kept.resampling,
+            design, self.processing_rate_hz, oversampling=old.oversampling,
+            resampling=old.resampling,
         )  # fmt: skip
         first = cands.chain_index(self.candidates, index, 0)
-        old = self.twins[index]
         steps = twin.slew_steps()
         old_steps = old.slew_steps()
         changes = {
@@ -653,6 +681,8 @@ class ListenSession:
             self.swapper.swap(changes, all_sos, all_levels, cands.slew_steps(twins))
         self.twins[index] = twin
         self.candidates[index] = replace(self.candidates[index], design=design)  # same ways
+        if self.noise is not None:
+            self.noise.redesign(index, design)
         self.edits_made += 1
 
     def poll(self) -> None:
@@ -701,7 +731,7 @@ class ListenSession:
         deadline = time.monotonic() + timeout_s
         while self.edits_pending and time.monotonic() < deadline:
             self.poll()
-            time.sleep(0.005)
+            time.sleep(POLL_EVERY_S)
         if levels and self.levels is not None:
             self.levels.wait(max(0.0, deadline - time.monotonic()))
             self.finish_edits(max(0.0, deadline - time.monotonic()), levels=False)

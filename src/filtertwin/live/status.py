@@ -44,6 +44,8 @@ class StatusFacts:
         the designs) are hidden until the end.
     capture : str
         "ADC 8 kHz" while the ADC capture is heard, "ADC off" when it could be, else "".
+    noise : str
+        "noise on" while the circuit noise is added (``noise on|off``), else "".
     way_peaks : tuple of (str, float)
         Peak (full-scale units, falling) of each way of the heard candidate, by the design's
         filter names.
@@ -97,6 +99,7 @@ class StatusFacts:
     blind: bool = False
     limiter_db: float = 0.0
     input_over: bool = False
+    noise: str = ""
 
 
 def dbfs(value: float) -> str:
@@ -136,6 +139,8 @@ def _fields(facts: StatusFacts) -> list[tuple[int, str]]:
         fields.append((1, facts.ways))
     if facts.capture:
         fields.append((1, facts.capture))
+    if facts.noise:
+        fields.append((1, facts.noise))
     if facts.blind:
         fields.append((2, "meters hidden until the trials end"))
     else:
@@ -221,7 +226,7 @@ class StatusReader:
         times = self.core.cpu_s[index]
         return float(np.median(times)), float(np.max(times))
 
-    def _clipping(self, now_s: float, kind: str = "clip") -> tuple[str, ...]:
+    def _flagged_stages(self, now_s: float, kind: str = "clip") -> tuple[str, ...]:
         """Stages whose clip (or, with ``kind="slew"``, slew) count grew within a second."""
         swapper = self.session.swapper
         counts = swapper.clip_counts() if kind == "clip" else swapper.slew_counts()
@@ -257,7 +262,9 @@ class StatusReader:
         # while the capture is heard, the meters of the captured sources (after the chains)
         offset = core.n_chains if captured else 0
         peaks: list[tuple[str, float]] = []
-        if index is not None:
+        if blind:
+            pass  # nothing that differs between the designs is even read (below too)
+        elif index is not None:
             first = offset + chain_index(session.candidates, index, 0)
             peaks = [
                 (name, float(core.meters[first + k]))
@@ -275,10 +282,10 @@ class StatusReader:
             self._input_over_s = now_s
         clipping: tuple[str, ...] = ()
         slewing: tuple[str, ...] = ()
-        if blind:  # nothing that differs between the designs is even read
-            peaks, limiting, limiter_db = [], False, 0.0
+        if blind:
+            limiting, limiter_db = False, 0.0
         else:
-            clipping, slewing = self._clipping(now_s), self._clipping(now_s, "slew")
+            clipping, slewing = self._flagged_stages(now_s), self._flagged_stages(now_s, "slew")
             limiter_db = 20 * math.log10(max(core.safety.limiter_gain, 1e-12))
         return StatusFacts(
             design="" if blind or index is None else session.candidates[index].name,
@@ -288,6 +295,7 @@ class StatusReader:
             limiter_db=limiter_db,
             input_over=now_s - self._input_over_s <= CLIP_HOLD_S,
             hearing=session.now_hearing(),
+            noise=session.noise_label(),
             capture="" if plan is None else plan.label if captured else "ADC off",
             way_peaks=tuple(peaks),
             output_peak=0.0 if blind else float(core.meters[core.dry_meter + 1]),
@@ -329,8 +337,9 @@ def summary_lines(session: ListenSession, played_s: float) -> list[str]:
         f"output ceiling {safety.ceiling_dbfs:g} dBFS: limited {safety.limited_frames} frames, "
         f"{safety.nonfinite_samples} non-finite samples silenced"
     )
-    lines.append("stage clipping at the amplifier swing: " + _clip_summary(session))
-    slews = _clip_summary(session, session.swapper.slew_counts())
+    clips = _stage_counts(session, session.swapper.clip_counts())
+    lines.append("stage clipping at the amplifier swing: " + clips)
+    slews = _stage_counts(session, session.swapper.slew_counts())
     lines.append("stage slewing at the amplifier slew rate: " + slews)
     if session.edits_made:
         lines.append(f"live edits: {session.edits_made} made, {len(session.history)} in force")
@@ -338,8 +347,9 @@ def summary_lines(session: ListenSession, played_s: float) -> list[str]:
     return lines
 
 
-def _clip_summary(session: ListenSession, counts: np.ndarray | None = None) -> str:
-    counts = session.swapper.clip_counts() if counts is None else counts
+def _stage_counts(session: ListenSession, counts: np.ndarray) -> str:
+    """``counts`` (chain, section) summed by stage: "A low stage 2: 5 samples; ...", or
+    "none"."""
     found = []
     chain = 0
     for candidate, twin in zip(session.candidates, session.twins, strict=True):

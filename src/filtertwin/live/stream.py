@@ -5,11 +5,17 @@ opens. Per block the callback only copies, multiplies and adds into those arrays
 
 1. the input block: from the read-ahead ring (a recording) or from ``indata`` (live input);
 2. every chain's output: the :class:`~filtertwin.engine.CascadeRunner` filters the block
-   (or, when the read-ahead thread already filtered it, the ring carries the outputs);
+   (raised and lowered around it by :class:`Oversampling` when the twins run oversampled;
+   a part edit's :class:`~filtertwin.live.chains.ChainBlend` runs beside it), or, when the
+   read-ahead thread already filtered it, the ring carries the outputs;
+   with the circuit noise on, a :class:`~filtertwin.live.hiss.NoiseAdder` adds each chain's
+   own noise to its output;
 3. one :class:`~filtertwin.live.mixer.SelectionMixer` per output pair (crossfades), each
    writing straight into its two output columns (a mono input into both);
 4. :class:`~filtertwin.live.safety.OutputSafety` on the whole output, last;
-5. peak meters (falling at ``METER_FALL_DB_PER_S``), counters and the callback's own time.
+5. peak meters (falling at ``METER_FALL_DB_PER_S``), the preview window's
+   :class:`~filtertwin.live.tap.SignalTap` when there is one, counters and the callback's
+   own time.
 
 The control thread reads meters and counters and changes the mix with :meth:`request`,
 swaps chains with the runner's ``set_chain``, or replaces :attr:`StreamCore.runner` whole
@@ -46,6 +52,7 @@ from filtertwin.resample import Downsampler, StreamResampler, Upsampler, delay_f
 
 if TYPE_CHECKING:
     from filtertwin.live.capture import AdcCapture
+    from filtertwin.live.hiss import NoiseAdder
     from filtertwin.live.tap import SignalTap
 
 BLOCKS, XRUNS, STARVED_FRAMES, ODD_BLOCKS = 0, 1, 2, 3
@@ -141,7 +148,9 @@ class Oversampling:
         self._line = np.zeros((self.delay_frames, self.channels), dtype=self.dtype)
         self._position = 0
 
-    def process(self, runner: CascadeRunner, dry: np.ndarray, blend: Any = None) -> np.ndarray:
+    def process(
+        self, runner: CascadeRunner, dry: np.ndarray, blend: ChainBlend | None = None
+    ) -> np.ndarray:
         """Every chain's output for ``dry`` ``(frames, channels)``, which is delayed in place
         to line up with it; a part edit's :class:`~filtertwin.live.chains.ChainBlend` runs
         at the runner's rate, between up and down. Allocates nothing."""
@@ -184,6 +193,8 @@ class StreamCore:
     oversampling : Oversampling, optional
         When the runner runs at a multiple of the stream rate (its ``max_frames`` is
         ``block_frames`` times the factor).
+    noise : NoiseAdder, optional
+        Adds every chain's circuit noise to its output before the mixer (``noise on``).
     """
 
     def __init__(
@@ -200,6 +211,7 @@ class StreamCore:
         fade_s: float = 0.03,
         captures: int = 0,
         oversampling: Oversampling | None = None,
+        noise: NoiseAdder | None = None,
     ) -> None:
         if channels not in (1, 2):
             raise ValueError(f"channels must be 1 or 2, got {channels}")
@@ -218,6 +230,7 @@ class StreamCore:
         self.oversampling = oversampling
         self.ring = ring
         self.safety = safety
+        self.noise = noise
         self.out_channels = 2 * pairs
         n_sources = 1 if runner is not None else mixed + 1
         self.sources = np.zeros((n_sources, block_frames, channels), dtype=np.float32)
@@ -295,6 +308,8 @@ class StreamCore:
                 self.blend.process(self.dry, chains)
         else:
             chains = self.oversampling.process(runner, self.dry, self.blend)
+        if self.noise is not None:
+            chains = self.noise.add(chains)
         for mixer, column in self._mixer_columns:
             mixer.process(chains, self.dry, outdata, column, 2)
         self.safety.process(outdata)
