@@ -207,3 +207,30 @@ def test_the_twin_error_panel_shows_what_the_fidelity_line_reports(monkeypatch, 
             analog = 20 * np.log10(abs(design.filter("high").frequency_response(f[-1:])[0]))
             assert err[-1] == pytest.approx(expected + 20 * np.log10(abs(hr[0])) - analog, abs=0.01)
             assert err[-1] < -3.0  # they roll off before Nyquist
+
+
+@pytest.mark.parametrize("phase", resample.PHASES)
+def test_blocks_longer_than_a_chunk_equal_the_upfirdn_cascade(phase):
+    # blocks that cross the internal chunks (resample.CHUNK_FRAMES) and end mid-chunk, two
+    # channels and two chains, against scipy.signal.upfirdn stage by stage
+    rng = np.random.default_rng(5)
+    factor, frames = 4, 3 * resample.CHUNK_FRAMES + 77
+    x = rng.standard_normal((frames, 2))
+    taps = [resample.stage_taps(s, phase) for s in (1, 2)]
+    up = resample.Upsampler(factor, 2, 2 * resample.CHUNK_FRAMES + 5, phase)
+    got_up = np.concatenate([up.process(b).copy() for b in np.array_split(x, 2)])
+    expected = x
+    for h in taps:
+        expected = signal.upfirdn(2 * h, expected, 2, 1, axis=0)[: 2 * len(expected)]
+    np.testing.assert_allclose(got_up, expected, rtol=0, atol=1e-12)  # scipy.signal.upfirdn
+
+    high = np.stack([expected, -0.5 * expected])
+    pad = resample._Cascade(factor, phase).pad_high()
+    down = resample.Downsampler(factor, 2, 2, factor * (resample.CHUNK_FRAMES + 300), phase)
+    cut = factor * (frames // 2)
+    got = np.concatenate([down.process(high[:, :cut]).copy(), down.process(high[:, cut:])], 1)
+    reference = np.concatenate([np.zeros((2, pad, 2)), high], 1)[:, : high.shape[1]]
+    for h in reversed(taps):
+        n = reference.shape[1] // 2
+        reference = signal.upfirdn(h, reference, 1, 2, axis=1)[:, :n]
+    np.testing.assert_allclose(got, reference, rtol=0, atol=1e-12)  # scipy.signal.upfirdn

@@ -5,7 +5,10 @@ Kaiser-windowed half-band FIR (:func:`stage_taps`) designed so that the band fro
 at 44.1 kHz (:data:`PASS_FRACTION` of the input rate at any rate) stays flat and every image
 or alias that would land in it is rejected by :data:`REJECTION_DB`. The stages run as
 polyphase filters in compiled loops over arrays made at construction, so ``process``
-allocates nothing and can run in an audio callback; the same objects serve render, the
+allocates nothing and can run in an audio callback. Only the outputs kept are computed, the
+zero taps of a half-band filter are skipped, equal taps of a symmetric one share a multiply,
+and a block goes through all stages a chunk (:data:`CHUNK_FRAMES`) at a time, so its samples
+stay in the cache from stage to stage; the same objects serve render, the
 anti-alias check and the live stream. ``phase="linear"`` (symmetric FIRs; their delay,
 :func:`delay_frames`, is a whole number of input frames and is taken out by the caller) or
 ``"causal"`` (minimum-phase FIRs with the same magnitude: nothing comes out before an input,
@@ -29,7 +32,7 @@ from __future__ import annotations
 import functools
 import math
 from fractions import Fraction
-from typing import Any
+from typing import Any, NamedTuple
 
 import numba
 import numpy as np
@@ -162,6 +165,9 @@ REJECTION_DB = 150.0
 dynamic range, 6.02 * 24 + 1.76 = 146.2 dB, the deepest the anti-alias check asks for."""
 TILE = 256
 """Outputs computed together, tap by tap (they and their inputs stay in the L1 cache)."""
+CHUNK_FRAMES = 512
+"""Input-rate frames taken through all stages of a cascade at a time (their samples at
+every rate stay in the cache between stages); blocks of any length are cut into these."""
 
 
 @functools.lru_cache(maxsize=16)
@@ -217,6 +223,7 @@ def _half_band(numtaps: int, beta: float) -> np.ndarray:
     centre = numtaps // 2
     h[centre % 2 :: 2] = 0.0  # the sinc's zeros, exactly
     h[centre] = 0.5
+    h = 0.5 * (h + h[::-1])  # exactly symmetric, so each pair of equal taps shares a multiply
     return h / h.sum()
 
 
@@ -235,22 +242,74 @@ def _stages(factor: int) -> int:
     return stages
 
 
-def _polyphase(h: np.ndarray, gain: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+class _StagePlan(NamedTuple):
+    """One 2x stage ready to run: its buffer (lanes, [even/odd,] history then new samples),
+    the history length, and the polyphase taps of :func:`_polyphase`."""
+
+    buf: np.ndarray
+    hist: int
+    taps: np.ndarray
+    lengths: np.ndarray
+    offsets: np.ndarray
+    mirrored: np.ndarray
+
+
+def _polyphase(h: np.ndarray, gain: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Both phases of ``h`` (times ``gain``), zeros at either end trimmed, reversed for a
-    forward dot product: ``taps[k, :lengths[k]]`` and the delay ``offsets[k]`` (in samples
-    of the lower rate) of the phase's first non-zero tap."""
+    forward dot product: ``taps[k, :lengths[k]]``, the delay ``offsets[k]`` (in samples
+    of the lower rate) of the phase's first non-zero tap, and ``mirrored[k]``: the phase is
+    symmetric with an even number of taps (:func:`_mirrored_taps_into` can run it)."""
     phases = [h[k::2] * gain for k in range(2)]
     width = max(len(p) for p in phases)
     taps = np.zeros((2, width))
     lengths = np.zeros(2, np.int64)
     offsets = np.zeros(2, np.int64)
+    mirrored = np.zeros(2, np.bool_)
     for k, p in enumerate(phases):
         nz = np.flatnonzero(p)
         first, last = int(nz[0]), int(nz[-1])
-        lengths[k] = last - first + 1
+        kept = p[first : last + 1]
+        lengths[k] = len(kept)
         offsets[k] = first
-        taps[k, : lengths[k]] = p[first : last + 1][::-1]
-    return taps, lengths, offsets
+        taps[k, : lengths[k]] = kept[::-1]
+        mirrored[k] = len(kept) % 2 == 0 and np.array_equal(kept, kept[::-1])
+    return taps, lengths, offsets, mirrored
+
+
+class _Plans:
+    """The plans of a cascade's stages, in the order they run, as the compiled cascade
+    loops take them: tuples of arrays, and per-stage figures stacked."""
+
+    def __init__(self, plans: list[_StagePlan]) -> None:
+        self.bufs = tuple(p.buf for p in plans)
+        self.taps = tuple(p.taps for p in plans)
+        self.hists = np.array([p.hist for p in plans], np.int64)
+        self.lengths = np.stack([p.lengths for p in plans])
+        self.offsets = np.stack([p.offsets for p in plans])
+        self.mirrored = np.stack([p.mirrored for p in plans])
+        self.arrays = (self.bufs, self.hists, self.taps, self.lengths, self.offsets, self.mirrored)
+        """What the compiled cascade loops take, in their order."""
+
+    def reset(self) -> None:
+        """Zero every stage's history."""
+        for buf in self.bufs:
+            buf.fill(0.0)
+
+
+def _check_length(frames: int, max_frames: int) -> None:
+    if frames > max_frames:
+        raise ValueError(f"block of {frames} frames is longer than max_frames {max_frames}")
+
+
+def _stage_plan(h: np.ndarray, gain: float, lanes: int, frames: int, down: bool) -> _StagePlan:
+    """The plan of one stage with FIR ``h`` for blocks of up to ``frames`` input samples:
+    up (``lanes`` rows of low-rate samples) or down (``lanes`` pairs of rows, even and odd
+    high-rate samples; the odd phase reaches one sample further back)."""
+    taps, lengths, offsets, mirrored = _polyphase(h, gain)
+    reach = offsets + lengths - 1 + (np.arange(2) if down else 0)
+    hist = int(np.max(reach))
+    shape = (lanes, 2, hist + frames // 2) if down else (lanes, hist + frames)
+    return _StagePlan(np.zeros(shape), hist, taps, lengths, offsets, mirrored)
 
 
 @numba.njit(cache=True, fastmath=True, nogil=True)
@@ -278,51 +337,108 @@ def _taps_into(part, row, start, taps, length):  # pragma: no cover
 
 
 @numba.njit(cache=True, fastmath=True, nogil=True)
-def _up_stage(buf, hist, n, taps, lengths, offsets, acc, out, out_start):  # pragma: no cover
+def _mirrored_taps_into(part, row, start, taps, length):  # pragma: no cover
+    """As :func:`_taps_into` for symmetric ``taps`` (``taps[t] == taps[length - 1 - t]``,
+    ``length`` even, as the long phase of a linear-phase half-band filter): the two samples
+    that meet equal taps are added first, so one multiply serves two taps."""
+    span = part.shape[0]
+    last = start + length - 1
+    half = length // 2
+    t = 0
+    while t + 8 <= half:
+        g0, g1, g2, g3 = taps[t], taps[t + 1], taps[t + 2], taps[t + 3]
+        g4, g5, g6, g7 = taps[t + 4], taps[t + 5], taps[t + 6], taps[t + 7]
+        a = row[start + t : start + t + span + 7]
+        b = row[last - t - 7 : last - t + span]
+        for i in range(span):
+            part[i] += (
+                (g0 * (a[i] + b[i + 7]) + g1 * (a[i + 1] + b[i + 6]))
+                + (g2 * (a[i + 2] + b[i + 5]) + g3 * (a[i + 3] + b[i + 4]))
+            ) + (
+                (g4 * (a[i + 4] + b[i + 3]) + g5 * (a[i + 5] + b[i + 2]))
+                + (g6 * (a[i + 6] + b[i + 1]) + g7 * (a[i + 7] + b[i]))
+            )
+        t += 8
+    while t < half:
+        g = taps[t]
+        a = row[start + t : start + t + span]
+        b = row[last - t : last - t + span]
+        for i in range(span):
+            part[i] += g * (a[i] + b[i])
+        t += 1
+
+
+@numba.njit(cache=True, fastmath=True, nogil=True)
+def _phase_into(part, row, start, taps, length, mirrored):  # pragma: no cover
+    if mirrored:
+        _mirrored_taps_into(part, row, start, taps, length)
+    else:
+        _taps_into(part, row, start, taps, length)
+
+
+@numba.njit(cache=True, fastmath=True, nogil=True)
+def _up_stage(
+    buf, hist, n, taps, lengths, offsets, mirrored, acc, out, out_start
+):  # pragma: no cover
     """``buf[:, hist:hist+n]`` (lanes, low rate, history before it) -> ``out[:, out_start:
     out_start+2n]``: ``y[2i+k] = sum_j g_k[j] x[i - j]``; then keep the history.
 
     Tap by tap over all outputs of a phase (``acc``), so the inner loop runs over
-    contiguous samples with no dependency between iterations."""
+    contiguous samples with no dependency between iterations; a phase of one tap (the
+    centre of a half-band filter) is written straight to ``out``. ``out`` may be a strided
+    view (the caller's ``(frames, channels)`` array, transposed)."""
     lanes = buf.shape[0]
     for lane in range(lanes):
         row = buf[lane]
+        target = out[lane]
         for k in range(2):
-            a = acc[k]
             length = lengths[k]
             base = hist - offsets[k] - length + 1
+            if length == 1:
+                g = taps[k, 0]
+                for i in range(n):
+                    target[out_start + 2 * i + k] = g * row[base + i]
+                continue
+            a = acc[k]
             for lo in range(0, n, TILE):
                 hi = min(n, lo + TILE)
                 for i in range(lo, hi):
                     a[i] = 0.0
-                _taps_into(a[lo:hi], row, base + lo, taps[k], length)
-        target = out[lane]
-        for i in range(n):
-            target[out_start + 2 * i] = acc[0, i]
-            target[out_start + 2 * i + 1] = acc[1, i]
+                _phase_into(a[lo:hi], row, base + lo, taps[k], length, mirrored[k])
+            for i in range(n):
+                target[out_start + 2 * i + k] = a[i]
         for j in range(hist):
             row[j] = row[n + j]
 
 
 @numba.njit(cache=True, fastmath=True, nogil=True)
-def _down_stage(buf, hist, n, taps, lengths, offsets, out, out_start):  # pragma: no cover
+def _down_stage(buf, hist, n, taps, lengths, offsets, mirrored, out, out_start):  # pragma: no cover
     """``buf[:, 0]`` even and ``buf[:, 1]`` odd input samples (``hist`` of history, then
     ``n`` new of each) -> ``y[i] = sum_j h[j] x[2i - j]`` into ``out[:, out_start:]``:
     the even taps meet even samples at ``i - m``, the odd ones odd samples at ``i - m - 1``.
     Tap by tap over all outputs, as in :func:`_up_stage`."""
     lanes = buf.shape[0]
+    single = 1 if lengths[1] == 1 else (0 if lengths[0] == 1 else -1)  # a centre-tap phase
     for lane in range(lanes):
         y = out[lane]
         for lo in range(out_start, out_start + n, TILE):
             hi = min(out_start + n, lo + TILE)
             span = hi - lo
             part = y[lo:hi]
-            for i in range(span):
-                part[i] = 0.0
+            if single >= 0:  # the centre tap sets the outputs, the other phase adds to them
+                g = taps[single, 0]
+                seg = buf[lane, single, hist - offsets[single] - single - out_start + lo :]
+                for i in range(span):
+                    part[i] = g * seg[i]
+            else:
+                for i in range(span):
+                    part[i] = 0.0
             for k in range(2):
+                if k == single:
+                    continue
                 length = lengths[k]
                 base = hist - offsets[k] - k - length + 1 - out_start
-                _taps_into(part, buf[lane, k], base + lo, taps[k], length)
+                _phase_into(part, buf[lane, k], base + lo, taps[k], length, mirrored[k])
         for k in range(2):
             row = buf[lane, k]
             for j in range(hist):
@@ -338,24 +454,17 @@ def _frames_to_lanes(x, buf, start):  # pragma: no cover
 
 
 @numba.njit(cache=True, nogil=True)
-def _lanes_to_frames(buf, start, frames, out):  # pragma: no cover
-    """``buf[channel, start:start+frames]`` -> ``out`` (frames, channels)."""
-    for f in range(frames):
-        for c in range(out.shape[1]):
-            out[f, c] = buf[c, start + f]
-
-
-@numba.njit(cache=True, nogil=True)
 def _chains_to_pairs(x, frames, buf, start, skip):  # pragma: no cover
     """``x`` (chains, frames, channels) -> ``buf[lane, even/odd, start + i]``, lane =
     chain * channels + channel; with ``skip`` leading frames left out (a delay)."""
     chains, _, channels = x.shape
     for a in range(chains):
-        for i in range((frames - skip) // 2):  # reads in memory order
-            for c in range(channels):
-                lane = a * channels + c
-                buf[lane, 0, start + i] = x[a, skip + 2 * i, c]
-                buf[lane, 1, start + i] = x[a, skip + 2 * i + 1, c]
+        for c in range(channels):  # one lane at a time: its rows are written in order
+            lane = a * channels + c
+            even, odd = buf[lane, 0], buf[lane, 1]
+            for i in range((frames - skip) // 2):
+                even[start + i] = x[a, skip + 2 * i, c]
+                odd[start + i] = x[a, skip + 2 * i + 1, c]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -374,6 +483,50 @@ def _lanes_to_chains(y, start, frames, channels, out):  # pragma: no cover
         for c in range(channels):
             for f in range(frames):
                 out[a, f, c] = y[a * channels + c, start + f]
+
+
+@numba.njit(cache=True, nogil=True)
+def _up_cascade(
+    block, bufs, hists, taps, lengths, offsets, mirrored, acc, out, chunk
+):  # pragma: no cover
+    """Every stage of an up cascade over ``block`` (frames, channels) into ``out``,
+    ``chunk`` input frames at a time, so that each chunk's samples stay in the cache from
+    the first stage to the last."""
+    stages = len(bufs)
+    frames = block.shape[0]
+    factor = 2**stages
+    for lo in range(0, frames, chunk):
+        n = min(chunk, frames - lo)
+        _frames_to_lanes(block[lo : lo + n], bufs[0], hists[0])
+        for s in range(stages - 1):
+            t, g, o, m = taps[s], lengths[s], offsets[s], mirrored[s]
+            _up_stage(bufs[s], hists[s], n, t, g, o, m, acc, bufs[s + 1], hists[s + 1])
+            n *= 2
+        s = stages - 1  # the last stage writes the output frames
+        t, g, o, m = taps[s], lengths[s], offsets[s], mirrored[s]
+        _up_stage(bufs[s], hists[s], n, t, g, o, m, acc, out[lo * factor :].T, 0)
+
+
+@numba.njit(cache=True, nogil=True)
+def _down_cascade(
+    block, bufs, hists, taps, lengths, offsets, mirrored, ys, out, chunk
+):  # pragma: no cover
+    """Every stage of a down cascade over ``block`` (chains, frames, channels) into ``out``,
+    ``chunk`` high-rate frames at a time (as :func:`_up_cascade`)."""
+    stages = len(bufs)
+    frames = block.shape[1]
+    channels = block.shape[2]
+    factor = 2**stages
+    for lo in range(0, frames, chunk):
+        n = min(chunk, frames - lo)
+        _chains_to_pairs(block, lo + n, bufs[0], hists[0], lo)
+        for s in range(stages):
+            n //= 2
+            t, g, o, m = taps[s], lengths[s], offsets[s], mirrored[s]
+            _down_stage(bufs[s], hists[s], n, t, g, o, m, ys[s], 0)
+            if s + 1 < stages:
+                _lanes_to_pairs(ys[s], n, bufs[s + 1], hists[s + 1])
+        _lanes_to_chains(ys[stages - 1], 0, n, channels, out[:, lo // factor :])
 
 
 class _Cascade:
@@ -439,40 +592,27 @@ class Upsampler:
         self.factor = factor
         self.channels = channels
         self.max_frames = max_frames
-        self._plans = []
-        n = max_frames
+        self._chunk = min(max_frames, CHUNK_FRAMES)
+        n = self._chunk
+        plans = []
         for h in self.cascade.taps:
-            taps, lengths, offsets = _polyphase(h, 2.0)
-            hist = int(np.max(offsets + lengths - 1))
-            buf = np.zeros((channels, hist + n))
-            self._plans.append((buf, hist, taps, lengths, offsets))
+            plans.append(_stage_plan(h, 2.0, channels, n, down=False))
             n *= 2
+        self._plans = _Plans(plans)
         self._acc = np.zeros((2, n // 2))
-        self._last = np.zeros((channels, n))
-        self._out = np.zeros((n, channels), dtype=dtype)
+        self._out = np.zeros((max_frames * factor, channels), dtype=dtype)
 
     def process(self, block: np.ndarray) -> np.ndarray:
         """``(frames, channels)`` -> ``(frames * factor, channels)``, a view of an array
         that the next call overwrites."""
         n = block.shape[0]
-        if n > self.max_frames:
-            raise ValueError(f"block of {n} frames is longer than max_frames {self.max_frames}")
-        first = self._plans[0]
-        _frames_to_lanes(block, first[0], first[1])
-        for s, (buf, hist, taps, lengths, offsets) in enumerate(self._plans):
-            last = s + 1 == len(self._plans)
-            target, start = (
-                (self._last, 0) if last else (self._plans[s + 1][0], self._plans[s + 1][1])
-            )
-            _up_stage(buf, hist, n, taps, lengths, offsets, self._acc, target, start)
-            n *= 2
-        _lanes_to_frames(self._last, 0, n, self._out)
-        return self._out[:n]
+        _check_length(n, self.max_frames)
+        _up_cascade(block, *self._plans.arrays, self._acc, self._out, self._chunk)
+        return self._out[: n * self.factor]
 
     def reset(self) -> None:
         """Forget the history (silence before the next block)."""
-        for buf, *_ in self._plans:
-            buf.fill(0.0)
+        self._plans.reset()
 
 
 class Downsampler:
@@ -511,18 +651,19 @@ class Downsampler:
         if max_frames % factor:
             raise ValueError(f"max_frames {max_frames} must be a multiple of {factor}")
         lanes = chains * channels
-        self._plans = []
-        n = max_frames
+        self.max_frames = max_frames
+        self._chunk = min(max_frames, CHUNK_FRAMES * factor)
+        n = self._chunk
         pad = np.zeros(self.cascade.pad_high())
+        plans = []
         # the highest-rate stage first
         for s, h in enumerate(reversed(self.cascade.taps)):
-            taps, lengths, offsets = _polyphase(np.concatenate([pad, h]) if s == 0 else h, 1.0)
-            hist = int(np.max(offsets + np.arange(2) + lengths - 1))
-            buf = np.zeros((lanes, 2, hist + n // 2))
-            self._plans.append((buf, hist, taps, lengths, offsets))
+            h = np.concatenate([pad, h]) if s == 0 else h
+            plans.append(_stage_plan(h, 1.0, lanes, n, down=True))
             n //= 2
-        self._y = [np.zeros((lanes, max_frames // 2 ** (s + 1))) for s in range(len(self._plans))]
-        self._out = np.zeros((chains, n, channels), dtype=dtype)
+        self._plans = _Plans(plans)
+        self._y = tuple(np.zeros((lanes, self._chunk >> (s + 1))) for s in range(len(plans)))
+        self._out = np.zeros((chains, max_frames // factor, channels), dtype=dtype)
 
     def process(self, block: np.ndarray) -> np.ndarray:
         """``(chains, frames, channels)`` -> ``(chains, frames // factor, channels)``, a view
@@ -530,21 +671,13 @@ class Downsampler:
         n = block.shape[1]
         if n % self.factor:
             raise ValueError(f"block of {n} frames is not a multiple of {self.factor}")
-        first = self._plans[0]
-        _chains_to_pairs(block, n, first[0], first[1], 0)
-        for s, (buf, hist, taps, lengths, offsets) in enumerate(self._plans):
-            n //= 2
-            _down_stage(buf, hist, n, taps, lengths, offsets, self._y[s], 0)
-            if s + 1 < len(self._plans):
-                nxt = self._plans[s + 1]
-                _lanes_to_pairs(self._y[s], n, nxt[0], nxt[1])
-        _lanes_to_chains(self._y[-1], 0, n, self.channels, self._out)
-        return self._out[:, :n]
+        _check_length(n, self.max_frames)
+        _down_cascade(block, *self._plans.arrays, self._y, self._out, self._chunk)
+        return self._out[:, : n // self.factor]
 
     def reset(self) -> None:
         """Forget the history."""
-        for buf, *_ in self._plans:
-            buf.fill(0.0)
+        self._plans.reset()
 
 
 def delay_frames(factor: int, phase: str = "linear") -> int:
