@@ -10,7 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from filtertwin import recordings
-from filtertwin.timestamps import is_iso_time, parse_iso_time
+from filtertwin.errors import UserInputError
+from filtertwin.timestamps import is_iso_time, parse_iso_time, seconds_since_many
 
 # The forms loggers write (ISO 8601 extended format, "T" or space): no zone, "Z", +HH:MM and
 # +HHMM offsets, 0 to 6 fractional digits with "." or ",".
@@ -78,3 +79,39 @@ def test_iso_time_column_is_found_without_a_time_name(tmp_path):
     info = recordings.inspect(path)
     assert info.rate_hz == pytest.approx(500.0)  # 2 ms steps
     assert info.channel_names == ("x",)
+
+
+@settings(max_examples=100, deadline=None)
+@given(st.lists(MOMENTS, min_size=1, max_size=40), ZONES, st.sampled_from([0, 3, 6]),
+       st.sampled_from(["T", " "]))  # fmt: skip
+def test_a_column_of_stamps_read_as_arrays_equals_datetime_and_the_one_by_one_reader(
+    moments, zone, digits, sep
+):
+    texts = [write(m, zone, digits, sep, "Z") for m in moments]
+    ref = parse_iso_time(texts[0])
+    got = seconds_since_many(texts, ref)
+    # Python's datetime.fromisoformat (3.11) is the reference; dates cross months, leap days
+    # and centuries (1990-2090)
+    first = dt.datetime.fromisoformat(texts[0])
+    expected = [(dt.datetime.fromisoformat(x) - first).total_seconds() for x in texts]
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-6)
+    # and bit for bit what parse_iso_time gives stamp by stamp
+    assert got.tolist() == [parse_iso_time(x).since(ref) for x in texts]
+
+
+def test_stamps_not_written_alike_or_impossible_are_refused_by_the_array_reader(tmp_path):
+    ref = parse_iso_time("2024-02-28T00:00:00Z")
+    for texts in (["2024-02-28T00:00:00Z", "2024-02-28T00:00:00+00:00"],  # two zone forms
+                  ["2024-02-28T00:00:00Z", "2023-02-29T00:00:00Z"],  # no 29 Feb in 2023
+                  ["2024-02-28T00:00:00Z", "2024-02-28T24:00:00Z"]):  # fmt: skip
+        with pytest.raises(ValueError):
+            seconds_since_many(texts, ref)
+    # a file mixing the two zone forms is still read (row by row): 1 ms steps
+    path = tmp_path / "mixed.csv"
+    path.write_text("time,x\n2024-03-01T00:00:00.000Z,1\n2024-03-01T00:00:00.001+00:00,2\n"
+                    "2024-03-01T00:00:00.002Z,3\n")  # fmt: skip
+    assert recordings.inspect(path).rate_hz == pytest.approx(1000.0)
+    # and an impossible date is named with its row
+    path.write_text("time,x\n2024-02-28T23:59:59.999Z,1\n2024-02-30T00:00:00.000Z,2\n")
+    with pytest.raises(UserInputError, match="line 3.*2024-02-30"):
+        recordings.inspect(path)

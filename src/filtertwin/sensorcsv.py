@@ -30,7 +30,7 @@ from filtertwin.recordinginfo import (
     head_bytes,
     is_text,
 )
-from filtertwin.timestamps import is_iso_time, parse_iso_time
+from filtertwin.timestamps import is_iso_time, parse_iso_time, seconds_since_many
 
 __all__ = ["CSV_BATCH_LINES", "CSV_SUFFIXES", "csv_blocks", "inspect_csv"]
 
@@ -193,7 +193,7 @@ def _scan_csv(
     ``iso_first`` is the first ISO-8601 stamp of an ISO time column (None for seconds)."""
     frames = 0
     t_first = t_last = typical = None
-    iso = None if iso_first is None or tcol is None else (tcol, _iso_seconds(path, iso_first))
+    iso = None if iso_first is None or tcol is None else _IsoColumn(path, tcol, iso_first)
     for lines, values in _csv_batches(path, layout, names, usecols, iso):
         frames += len(values)
         if tcol is None:
@@ -257,20 +257,28 @@ def _csv_pieces(info: RecordingInfo) -> Iterator[np.ndarray]:
         yield values
 
 
-Converter = tuple[int, Callable[[str], float]]
+class _IsoColumn:
+    """ISO-8601 stamps of field ``index`` to seconds since the first stamp ``first``."""
 
+    def __init__(self, path: Path, index: int, first: str) -> None:
+        self.path, self.index, self.first = path, index, first
+        self.ref = parse_iso_time(first)
 
-def _iso_seconds(path: Path, first: str) -> Callable[[str], float]:
-    """A converter of ISO-8601 stamps to seconds since ``first``."""
-    ref = parse_iso_time(first)
-
-    def seconds(text: str) -> float:
+    def one(self, text: str) -> float:
         try:
-            return parse_iso_time(text).since(ref)
+            return parse_iso_time(text).since(self.ref)
         except ValueError:
-            fail(f"{path}: time stamp {text[:40]!r} is not ISO-8601 like {first!r}; fix the row")
+            fail(f"{self.path}: time stamp {text[:40]!r} is not ISO-8601 like {self.first!r}; "
+                 "fix the row")  # fmt: skip
 
-    return seconds
+    def many(self, rows: list[str], delimiter: str | None) -> np.ndarray | None:
+        """The stamps of ``rows`` read as arrays (:func:`seconds_since_many`), or None when
+        they are not all written alike (then each is read by itself, and a bad one named)."""
+        try:
+            stamps = [row.split(delimiter, self.index + 1)[self.index] for row in rows]
+            return seconds_since_many(stamps, self.ref)
+        except (IndexError, ValueError):
+            return None
 
 
 def _csv_batches(
@@ -278,7 +286,7 @@ def _csv_batches(
     layout: CsvLayout,
     names: tuple[str, ...],
     usecols: tuple[int, ...],
-    convert: Converter | None = None,
+    convert: _IsoColumn | None = None,
 ) -> Iterator[tuple[np.ndarray, np.ndarray]]:
     """Yield (1-based line numbers, values of ``usecols``) for batches of data rows."""
     with _open_text(path) as fh:
@@ -310,22 +318,24 @@ def _parse_rows(
     layout: CsvLayout,
     names: tuple[str, ...],
     usecols: tuple[int, ...],
-    convert: Converter | None = None,
+    convert: _IsoColumn | None = None,
 ) -> np.ndarray:
     if layout.decimal_comma:
         rows = [row.replace(",", ".") for row in rows]
-    converters: dict[int | str, Callable[[str], float]] | None = None
-    if convert is not None:
-        converters = {convert[0]: convert[1]}
-    try:
-        values = np.loadtxt(
-            rows, delimiter=layout.delimiter, quotechar='"', comments=None, usecols=usecols,
-            dtype=np.float64, ndmin=2, converters=converters,
-        )  # fmt: skip
-    except ValueError as exc:
-        _explain_row_error(path, rows, lines, layout, names, usecols)
-        reason = " ".join(str(exc).split())  # numpy refused a row that float() accepts
-        fail(f"{path} lines {lines[0]}-{lines[-1]}: {reason}; fix the values")
+    values = None if convert is None else _parse_with_stamps(rows, layout, usecols, convert)
+    if values is None:
+        converters: dict[int | str, Callable[[str], float]] | None = None
+        if convert is not None:
+            converters = {convert.index: convert.one}
+        try:
+            values = np.loadtxt(
+                rows, delimiter=layout.delimiter, quotechar='"', comments=None, usecols=usecols,
+                dtype=np.float64, ndmin=2, converters=converters,
+            )  # fmt: skip
+        except ValueError as exc:
+            _explain_row_error(path, rows, lines, layout, names, usecols, convert)
+            reason = " ".join(str(exc).split())  # numpy refused a row that float() accepts
+            fail(f"{path} lines {lines[0]}-{lines[-1]}: {reason}; fix the values")
     bad = ~np.isfinite(values)
     if bad.any():
         i, k = np.argwhere(bad)[0]
@@ -336,6 +346,29 @@ def _parse_rows(
     return values
 
 
+def _parse_with_stamps(
+    rows: list[str], layout: CsvLayout, usecols: tuple[int, ...], stamps: _IsoColumn
+) -> np.ndarray | None:
+    """The columns of ``rows`` with the stamps read as arrays, numbers by numpy's parser
+    (no Python call per row); None when either refuses (the caller then reads row by row and
+    names the bad one)."""
+    seconds = stamps.many(rows, layout.delimiter)
+    if seconds is None:
+        return None
+    rest = tuple(j for j in usecols if j != stamps.index)
+    try:
+        data = np.loadtxt(
+            rows, delimiter=layout.delimiter, quotechar='"', comments=None, usecols=rest,
+            dtype=np.float64, ndmin=2,
+        )  # fmt: skip
+    except ValueError:
+        return None
+    values = np.empty((len(rows), len(usecols)))
+    for k, j in enumerate(usecols):
+        values[:, k] = seconds if j == stamps.index else data[:, rest.index(j)]
+    return values
+
+
 def _explain_row_error(
     path: Path,
     rows: list[str],
@@ -343,6 +376,7 @@ def _explain_row_error(
     layout: CsvLayout,
     names: tuple[str, ...],
     usecols: tuple[int, ...],
+    stamps: _IsoColumn | None = None,
 ) -> None:
     for row, line in zip(rows, lines, strict=True):
         fields = _split(row.strip(), layout.delimiter)
@@ -352,7 +386,13 @@ def _explain_row_error(
                     f"{path} line {line} has {len(fields)} fields, so column {names[j]!r}"
                     f" (index {j}) is missing; complete or drop the row"
                 )
-            if not _is_number(fields[j], layout.decimal_comma):
+            if stamps is not None and j == stamps.index:
+                if not is_iso_time(fields[j]):
+                    fail(
+                        f"{path} line {line}, column {names[j]!r}: time stamp {fields[j][:40]!r}"
+                        f" is not a valid ISO-8601 date and time like {stamps.first!r}; fix the row"
+                    )
+            elif not _is_number(fields[j], layout.decimal_comma):
                 fail(
                     f"{path} line {line}, column {names[j]!r} (index {j}): {fields[j][:20]!r}"
                     " is not a number; fix the value or choose another column"

@@ -34,6 +34,8 @@ NAMES = {
 }
 DPI = 120
 TOP_EVENTS = 10
+LEGEND_FILES = 12
+"""Up to this many files the figure names each file's colour."""
 
 
 def write_archive_report(
@@ -105,10 +107,12 @@ def events_figure(
     """Worst alias events over time, one panel per stream (unfiltered, then each candidate).
 
     The time axis runs through the archive: each file starts where the one before ended (in
-    the order given), so the whole archive reads left to right. Each point is one event
-    (channel, window); the dashed line is the limit.
+    the order given; thin grey lines between files), so the whole archive reads left to
+    right. Each point is one event (channel, window), coloured by file (named in a legend up
+    to :data:`LEGEND_FILES` files); events over the limit (the dashed line) are red crosses.
     """
     labels = spec.labels
+    limit = summary.limit_dbfs
     fig = Figure(figsize=(9.0, 2.0 + 1.9 * len(labels)), layout="constrained")
     FigureCanvasAgg(fig)
     axes = fig.subplots(len(labels), 1, sharex=True, squeeze=False)[:, 0]
@@ -118,24 +122,45 @@ def events_figure(
         at += r.duration_s
     hours = at > 2 * 3600
     scale = 1 / 3600 if hours else 1.0
+    readable = [r for r in results if r.error is None]
     for ax, label in zip(axes, labels, strict=True):
-        for k, r in enumerate(results):
-            if r.error is not None:
-                continue
-            for ch in r.channels:
-                ev = ch.events[label]
-                t = np.array([offsets[r.path] + e.time_s for e in ev]) * scale
-                ax.plot(t, [e.dbfs for e in ev], "o", ms=3.5, color=f"C{k % 10}", alpha=0.8)
-        for r in results:
-            if r.error is None and offsets[r.path] + r.start_s > 0:
-                ax.axvline((offsets[r.path] + r.start_s) * scale, color="0.85", lw=0.6, zorder=0)
-        ax.axhline(summary.limit_dbfs, color="tab:red", ls="--", lw=1)
+        over = False
+        for k, r in enumerate(readable):
+            ev = [e for ch in r.channels for e in ch.events[label]]
+            t = np.array([offsets[r.path] + e.time_s for e in ev]) * scale
+            db = np.array([e.dbfs for e in ev])
+            name = Path(r.path).name if ax is axes[0] else None
+            ax.plot(t, db, "o", ms=3.5, color=f"C{k % 10}", alpha=0.8, label=name)
+            high = db > limit
+            if label != UNFILTERED and high.any():
+                ax.plot(t[high], db[high], "x", ms=6, mew=1.5, color="tab:red", zorder=3)
+                over = True
+        for r in readable:
+            if offsets[r.path] + r.start_s > 0:
+                ax.axvline((offsets[r.path] + r.start_s) * scale, color="0.6", lw=0.6, zorder=0)
+        ax.axhline(limit, color="tab:red", ls="--", lw=1)
         verdict = next((v for v in summary.verdicts if v.label == label), None)
-        state = "" if verdict is None else (" - passes" if verdict.passed else " - FAILS")
+        if verdict is None:
+            state = " (for comparison, not judged)"
+        elif verdict.passed:
+            state = " - passes: every window under the limit"
+        else:
+            state = " - FAILS: red crosses are windows over the limit" if over else " - FAILS"
         ax.set_title(f"{label}{state}", loc="left", fontsize=10)
+        y_low, y_high = ax.get_ylim()
+        ax.set_ylim(min(y_low, limit - 3.0), max(y_high, limit + 3.0))
         ax.set_ylabel("aliased, dBFS")
-        ax.grid(True, alpha=0.3)
-    axes[-1].set_xlabel("time through the archive (" + ("h" if hours else "s") + ")")
+        ax.grid(True, axis="y", alpha=0.3)
+    fig.suptitle(
+        f"The worst alias windows of every channel; dashed red line: the limit, {limit:.1f} dBFS",
+        x=0.01, ha="left", fontsize=10,
+    )  # fmt: skip
+    if 1 < len(readable) <= LEGEND_FILES:
+        axes[0].legend(title="file", fontsize=7, title_fontsize=8, loc="upper left",
+                       bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)  # fmt: skip
+    axes[-1].set_xlabel(
+        "time through the archive, files one after another (" + ("h" if hours else "s") + ")"
+    )
     with atomic_path(path, protect=protect) as tmp:
         fig.savefig(tmp, dpi=DPI, format="png")
     return path
@@ -165,17 +190,20 @@ def _sections(
         ReportSection(
             "Worst alias events over time",
             figures=[figure],
-            captions=["Each point is one of the worst windows of a channel; dashed: the limit"],
+            captions=[_caption(results)],
         ),  # fmt: skip
     ]
     for label in spec.labels:
-        rows = [
+        rows: list[tuple[str, ...]] = [
             (x.file, x.channel, _fmt(x.event.time_s, 2), _fmt(x.event.source_hz, 0),
              _fmt(x.event.alias_hz, 0), _fmt(x.event.dbfs),
              "-" if x.event.peak is None else f"{x.event.peak:.3g}")
             for x in worst_events(results, label, TOP_EVENTS)
         ]  # fmt: skip
-        head = ("file", "channel", "time s", "from Hz", "lands at Hz", "dBFS", "peak (unit)")
+        head: tuple[str, ...] = ("file", "channel", "time s", "from Hz", "lands at Hz", "dBFS",
+                                 "peak (unit)")  # fmt: skip
+        if all(row[-1] == "-" for row in rows):  # no sensor unit given: leave the column out
+            head, rows = head[:-1], [row[:-1] for row in rows]
         sections.append(ReportSection(f"Worst events: {label}", tables=[(head, rows)]))
     per_file = []
     for r in results:
@@ -200,6 +228,20 @@ def _sections(
         paras = notes + [f"{f}: {reason}" for f, reason in summary.unreadable]
         sections.append(ReportSection("Notes and files that could not be read", paras))
     return sections
+
+
+def _caption(results: Sequence[FileResult]) -> str:
+    files = sum(r.error is None for r in results)
+    colours = (
+        "colours tell the files apart (legend)" if 1 < files <= LEGEND_FILES
+        else "colours change from file to file" if files > 1 else ""
+    )  # fmt: skip
+    return (
+        f"Each point is one of the {_window(results)} windows where a channel of a file folded "
+        "the most into the band, at its time through the archive (the files one after another, "
+        f"thin grey lines between them){'; ' + colours if colours else ''}. Dashed red: the "
+        "limit; red crosses: windows over it, where a candidate fails."
+    )
 
 
 def _window(results: Sequence[FileResult]) -> str:
