@@ -7,7 +7,7 @@ offer:
 
 * commands are the same :class:`~filtertwin.live.keys.Command` words a script or the
   terminal sends (``select``, ``bypass``, ``solo``, ``mute``, ``level``, ``part``,
-  ``corner``, ``listen``, ``answer``, ``capture``, ``quit``). The link serialises every
+  ``corner``, ``listen``, ``answer``, ``capture``, ``noise``, ``quit``). The link serialises every
   command, from the terminal and from the page alike, with one lock around the session's
   ``handle``, so the two never interleave;
 * undo, redo and "save as" are the session's own (:meth:`ListenSession.undo
@@ -61,6 +61,7 @@ class SessionView:
     can_undo: bool
     can_redo: bool
     capture: str
+    noise: str
     blind: dict[str, Any] | None
 
 
@@ -220,6 +221,7 @@ class SessionLink:
                 can_undo=bool(s.history),
                 can_redo=bool(s.undone),
                 capture="" if plan is None else ("on" if s.capture_on else "off"),
+                noise="" if s.noise is None else ("on" if s.noise.on else "off"),
                 blind=self._blind_view(),
             )
 

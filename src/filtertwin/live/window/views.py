@@ -310,8 +310,11 @@ def session_state(
             "fidelity": [
                 {
                     "way": w,
+                    "filter": ft.name,
                     "max_db": _number(ft.fidelity.max_db, 3),
+                    "at_hz": _number(ft.fidelity.at_hz, 4),
                     "max_deg": _number(ft.fidelity.max_deg, 3),
+                    "at_deg_hz": _number(ft.fidelity.at_deg_hz, 4),
                 }
                 for w, ft in zip(c.ways, t.filters, strict=True)
             ],  # fmt: skip
@@ -339,6 +342,7 @@ def session_state(
         "can_undo": view.can_undo,
         "can_redo": view.can_redo,
         "capture": view.capture,
+        "noise": view.noise,
         "blind": view.blind,
         "f_hz": rounded(f_hz, 3),
     }

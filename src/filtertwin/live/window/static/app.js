@@ -36,13 +36,18 @@ function renderChoices(s) {
   const box = $("candidates");
   box.replaceChildren(el("span", { class: "label" }, "candidate"));
   s.candidates.forEach((c, i) => {
-    const fid = c.fidelity.map(f => `${f.way} ${num(f.max_db, 2)}`).join(", ") + " dB";
+    // as the terminal's fidelity line puts it: the twin is within X dB (at F) of the analog model
+    const each = c.fidelity.map(f => `${f.filter}: within ${num(f.max_db, 3)} dB (at ${hz(f.at_hz)}) and ` +
+      `${num(f.max_deg, 2)}° (at ${hz(f.at_deg_hz)}) of the analog model`);
+    const worst = c.fidelity.reduce((a, f) => (f.max_db > a.max_db ? f : a));
+    const where = (c.fidelity.length > 1 ? `${worst.filter}, ` : "") + `at ${hz(worst.at_hz)}`;
     box.append(el("button", {
       class: "cand" + (s.selected === i ? " on" : ""), "data-candidate": c.label,
-      title: `${c.title}\ntwin against the analog circuit, largest difference: ${fid}`,
+      title: `${c.title}\ndigital twin against the analog circuit:\n${each.join("\n")}`,
       onclick: () => send("select", c.label),
     }, el("b", {}, `${c.label} · ${c.name}`),
-      el("small", {}, `twin vs analog ≤ ${fid}` + (c.match_db !== null ? ` · match ${num(c.match_db, 1)} dB` : ""))));
+      el("small", { "data-fidelity": c.label }, `twin within ${num(worst.max_db, 3)} dB of analog (${where})` +
+        (c.match_db !== null ? ` · level match ${num(c.match_db, 1)} dB` : ""))));
   });
   box.append(el("button", {
     class: "cand" + (s.selected === null ? " on" : ""), "data-candidate": "bypass",
@@ -68,6 +73,9 @@ function renderChoices(s) {
   }
   $("capture-box").hidden = !s.capture;
   $("capture").classList.toggle("on", s.capture === "on");
+  $("noise-box").hidden = !s.noise;
+  $("noise").classList.toggle("on", s.noise === "on");
+  $("noise").dataset.state = s.noise;
 }
 
 // --- the circuit: stage cards ----------------------------------------------------------------
@@ -235,6 +243,7 @@ function renderMeters(m) {
     ["latency", m.latency_s === null ? "–" : `${num(1000 * m.latency_s, 1)} ms`],
     ["level", `${num(m.level_db, 1)} dB` + (m.ramp < 0.999 ? ` (ramp ${num(100 * m.ramp, 0)} %)` : "")],
     ["ADC capture", page.state && page.state.capture ? page.state.capture : "not set up"],
+    ["circuit noise", page.state && page.state.noise ? page.state.noise : "–"],
   ];
   if (!page.facts) {
     page.facts = facts.map(([k]) => { const dd = el("dd", {}, ""); $("facts").append(el("dt", {}, k), dd); return dd; });
@@ -357,6 +366,7 @@ $("loop").addEventListener("click", e => {
 $("loop-set").addEventListener("click", () => send("loop", $("loop-start").value.trim() || "0", $("loop-end").value.trim() || String(page.loopS || 0)));
 $("loop-all").addEventListener("click", () => send("loop", "all"));
 $("capture").addEventListener("click", () => send("capture"));
+$("noise").addEventListener("click", () => send("noise"));
 $("response-view").addEventListener("change", responsePlot);
 $("twin").addEventListener("change", responsePlot);
 $("envelope").addEventListener("change", () => { if ($("envelope").checked) send("envelope"); responsePlot(); });
