@@ -27,7 +27,8 @@ function hz(v) {
   if (v === null || v === undefined) return "–";
   return v >= 1000 ? (v / 1000).toPrecision(4) + " kHz" : v.toPrecision(4) + " Hz";
 }
-const num = (v, d = 3) => (v === null || v === undefined) ? "–" : Number(v).toFixed(d);
+// fixed decimals, and never "-0.0" (a value that rounds to zero is shown without a sign)
+const num = (v, d = 3) => (v === null || v === undefined) ? "–" : Number(v).toFixed(d).replace(/^-(0\.?0*)$/, "$1");
 const dbfs = p => p > 0 ? (20 * Math.log10(p)).toFixed(1) : "-inf";
 
 // --- what is heard -------------------------------------------------------------------------
