@@ -22,7 +22,7 @@ from filtertwin.live.matching import LevelMatch
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
 from filtertwin.live.session import ListenSession
-from filtertwin.live.status import StatusReader, status_line
+from filtertwin.live.status import StatusReader, status_line, summary_lines
 from filtertwin.live.stream import StreamCore
 from filtertwin.noise import CircuitNoiseSource, filter_noise
 from filtertwin.spec import load_design
@@ -134,6 +134,20 @@ def test_the_status_line_and_the_help_show_the_noise():
     assert "noise on|off" in help_text().split("commands, typed after e")[1]
     with pytest.raises(Exception, match=r"noise takes on, off, not 'loud'"):
         parse_command("noise loud")
+
+
+def test_noise_the_thread_did_not_make_in_time_is_counted_in_the_summary():
+    core, session, ring, said = setup()
+    assert not any("circuit noise" in line for line in summary_lines(session, 0.0))
+    fill(ring, np.zeros((2, 3 * BLOCK), np.float32))  # the thread made 3 blocks' worth
+    session.handle(Command("noise", ("on",)), 0.0)
+    play(core, 8)
+    # 8 blocks played, 3 held noise: 5 blocks of frames had none (counted by hand)
+    assert "circuit noise: 1280 frames not made in time" in summary_lines(session, 0.0)
+    fill(ring, np.zeros((2, 8 * BLOCK), np.float32))  # enough for the fade out
+    session.handle(Command("noise", ("off",)), 1.0)
+    play(core, 16)  # faded out after 6 blocks: the ring is no longer read, nothing counted
+    assert "circuit noise: 1280 frames not made in time" in summary_lines(session, 0.0)
 
 
 def test_a_part_edit_makes_the_noise_follow_the_edited_design():

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 import time
 import urllib.error
 import urllib.request
@@ -179,7 +180,8 @@ def heard_as(y: np.ndarray, references: list[np.ndarray], starts) -> list[int | 
 def test_clicking_candidate_b_makes_the_output_b_s_twin(tmp_path, jack_server, browser):
     wav, source = noise_wav(tmp_path, 2.0)
     looped = np.concatenate([source] * 4).astype(np.float64)[:, 0]
-    player = player_for(NAMES, wav, [])
+    printed: list[str] = []
+    player = player_for(NAMES, wav, printed)
     with served(player, record_s=3.0) as (server, recorder, _):
         page = open_page(browser, server)
         time.sleep(1.0)
@@ -187,6 +189,7 @@ def test_clicking_candidate_b_makes_the_output_b_s_twin(tmp_path, jack_server, b
         page.click("[data-candidate=B]")
         page.wait_for_selector("[data-candidate=B].on")
         assert "hearing B · candidate-bessel" in page.inner_text("#hearing")
+        fidelity = page.inner_text("[data-fidelity=B]")
         time.sleep(1.2)
         page.close()
     y = recorder.data[: recorder.position, 0].astype(np.float64)
@@ -199,6 +202,12 @@ def test_clicking_candidate_b_makes_the_output_b_s_twin(tmp_path, jack_server, b
     first = heard_as(y, refs, np.linspace(start + 0.1 * RATE_HZ, clicked_at - 2048, 8, dtype=int))
     last = heard_as(y, refs, np.linspace(end - 0.6 * RATE_HZ, end - 1024, 8, dtype=int))
     assert 1 not in first and 0 not in last, (first, last)  # never the other candidate
+    # the candidate's fidelity reads as the terminal's fidelity line says it (the same
+    # largest deviation and where), e.g. "twin within 0.303 dB of analog (at 16.83 kHz)"
+    found = re.fullmatch(r"twin within (\S+) dB of analog \(at (.+?)\)( · .*)?", fidelity)
+    assert found, fidelity
+    line = next(p for p in printed if p.startswith("B candidate-bessel"))
+    assert f"within {found[1]} dB (at {found[2]})" in line, (fidelity, line)
     # every stretch is the twin's output to float32 rounding; on a busy machine a stretch
     # across a block JACK dropped (an xrun) matches neither, so most must match then
     need = 8 if xruns == 0 else 4
@@ -510,3 +519,91 @@ def test_clicking_the_loop_bar_jumps_and_a_region_keeps_the_loop_inside_it(
     assert len(found) >= 6, heard
     for start in found:  # every stretch heard lies inside the region (1024 frames long)
         assert 1.0 - 1e-9 <= start and start + 1024 / RATE_HZ <= 1.5 + 1e-9, heard
+
+
+# --- clip and slew flags on the stage cards ----------------------------------------------------
+
+
+def test_a_hot_15_khz_sine_lights_the_slew_flag_on_the_slewing_stage_card_only(
+    tmp_path, jack_server, browser
+):
+    design_file = tmp_path / "slow.toml"
+    design_file.write_text(
+        "# invented scenario: a 2-way split on a slow amplifier\n"
+        'title = "2-way split on a slow amplifier (invented)"\n'
+        '[amplifier]\npreset = "general-purpose bipolar"\n'  # 0.5 V/us, 13 V swing
+        '[signal]\nfull_scale = "10 V"\n'
+        '[[filter]]\nname = "woof"\nresponse = "lowpass"\nalignment = "butterworth"\n'
+        'order = 2\ncorner = "1 kHz"\n'
+        '[[filter]]\nname = "tweet"\nresponse = "highpass"\nalignment = "butterworth"\n'
+        'order = 2\ncorner = "20 Hz"\n'
+    )
+    t = np.arange(4 * RATE_HZ) / RATE_HZ
+    hot = np.concatenate([np.zeros(PREROLL), 0.9 * np.sin(2 * math.pi * 15000.0 * t)])
+    wav = write_wav(tmp_path / "hot.wav", np.repeat(hot[:, None], 2, axis=1).astype(np.float32))
+    player = player_for([str(design_file)], wav, [])
+    with served(player) as (server, _, _):
+        page = open_page(browser, server)
+        page.wait_for_selector("[data-label='tweet s1']")
+        # 15 kHz at 9 V peak needs a slope of 2 pi f A = 0.85 V/us, above the amplifier's
+        # 0.5 V/us (slew rate, Horowitz & Hill): the high-pass stage passes it whole and slews
+        page.wait_for_selector("[data-slew-flag='tweet s1']:not([hidden])", timeout=5000)
+        # the 1 kHz low-pass leaves 9 V / (15 kHz / 1 kHz)^2 = 0.04 V at 15 kHz (second-order
+        # roll-off, 40 dB a decade): 0.004 V/us, far below the slew rate; nor does anything
+        # reach the 13 V swing
+        low_slewing = page.is_visible("[data-slew-flag='woof s1']")
+        clip_shown = page.is_visible("[data-clip-flag]")
+        card_class = page.get_attribute("[data-label='tweet s1']", "class")
+        facts = page.inner_text("#facts")
+        page.close()
+    assert not low_slewing and not clip_shown
+    assert "slew" in card_class.split()
+    assert "tweet s1" in facts  # the meters' list of slewing stages names it too
+
+
+# --- circuit noise on and off --------------------------------------------------------------------
+
+
+def test_the_noise_button_switches_the_circuit_noise_heard_at_its_computed_level(
+    tmp_path, jack_server, browser
+):
+    from filtertwin.noise import filter_noise
+
+    wav = write_wav(tmp_path / "silence.wav", np.zeros((4 * RATE_HZ, 2), np.float32))
+    player = player_for(["bookshelf-2way"], wav, [])
+    with served(player, record_s=8.0) as (server, recorder, _):
+        page = open_page(browser, server)
+        page.wait_for_selector("#noise[data-state='off']")
+        time.sleep(1.0)
+        off_until = recorder.position
+        page.click("#noise")
+        page.wait_for_selector("#noise.on[data-state='on']")
+        facts_on = page.inner_text("#facts")
+        on_from = recorder.position + RATE_HZ // 2  # after the fade in
+        time.sleep(3.0)
+        on_until = recorder.position
+        page.click("#noise")
+        page.wait_for_selector("#noise[data-state='off']:not(.on)")
+        time.sleep(1.0)
+        page.close()
+    assert player.session.noise is not None and not player.session.noise.on
+    assert "circuit noise\non" in facts_on or "circuit noise\ton" in facts_on
+    y = recorder.data[: recorder.position].astype(np.float64)
+    assert not np.any(y[:off_until])  # silence in, noise off: exact zeros out
+    on = y[on_from:on_until]
+    on = on[np.any(on != 0, axis=1)]  # a late callback (xrun) plays zeros: leave them out
+    # the heard noise power against the node equations' output noise density of each way,
+    # summed over 20 Hz to 20 kHz (filtertwin.noise, as render adds it) in full-scale units
+    f, psd = signal.welch(on, RATE_HZ, nperseg=4096, axis=0)  # Welch 1967, via scipy.signal
+    band = (f >= 20) & (f <= 20000)
+    d = player.session.candidates[0].design
+    expect = (
+        sum(
+            filter_noise(w, d.amplifier, f[band], d.spec.parts.temperature_k).psd_v2_per_hz
+            for w in d.filters
+        )
+        / d.spec.full_scale_v**2
+    )
+    error_db = 10 * np.log10(np.sum(psd.mean(axis=1)[band]) / np.sum(expect))
+    assert abs(error_db) < 0.5, error_db
+    assert not np.any(y[-RATE_HZ // 4 :])  # off again: zeros after the fade out

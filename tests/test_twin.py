@@ -169,3 +169,30 @@ def test_the_twin_follows_the_output_resistance_floor_when_oversampled_enough():
     assert np.max(err_db) < 1.0
     twin_floor_db = 20 * np.log10(np.min(np.abs(h_twin)) / abs(d.filters[0].passband_gain))
     assert twin_floor_db == pytest.approx(floor.level_db, abs=1.0)
+
+
+def test_the_largest_deviation_is_placed_on_the_response_and_sized_re_the_peak():
+    from filtertwin import examples
+    from filtertwin.report.design_text import fidelity_line
+    from filtertwin.spec import load_design
+    from filtertwin.twin import resampling_response
+
+    design = build_design(load_design(examples.resolve("bookshelf-2way")))
+    twin = build_twin(design, 48000.0, oversampling=8)
+    ft = twin.filters[0]  # the woofer: its largest deviation is far down its skirt
+    fid = ft.fidelity
+    grid = np.geomspace(*fid.band_hz, 4000)
+    analog = design.filter(ft.name)
+    peak = np.max(np.abs(analog.frequency_response(grid)))
+    f = np.array([fid.at_hz, fid.at_hz])  # two points: freqz reads a lone number as a count
+    ha = analog.frequency_response(f)[0]
+    # the twin as render plays it: scipy.signal.sosfreqz of the sections times the
+    # resamplers' response
+    hd = signal.sosfreqz(ft.sos, f, fs=ft.rate_hz)[1][0] * resampling_response(8, f, ft.rate_hz)[0]
+    assert abs(20 * np.log10(abs(hd) / abs(ha))) == pytest.approx(fid.max_db, abs=1e-6)
+    assert fid.at_level_db == pytest.approx(20 * np.log10(abs(ha) / peak), abs=0.01)
+    assert fid.at_error_db == pytest.approx(20 * np.log10(abs(hd - ha) / peak), abs=0.05)
+    line = fidelity_line(ft, twin)
+    if not fid.within(0.1, 1.0):  # the line says where, how far down, and what it amounts to
+        assert f"{-fid.at_level_db:.1f} dB down the response" in line
+        assert f"{fid.at_error_db:.1f} dB re the peak" in line

@@ -5,7 +5,7 @@
 Needs a running JACK server of that name (``bash tools/jack_server.sh NAME``) and Debian's
 Chromium. Plays the demo programme through the bookshelf crossover and a Butterworth
 candidate, steps one capacitor up (so the plot shows the previous version ghosted), waits
-for the spectrum to fill and saves the page as PNG.
+for the spectrum to fill (and to show some treble) and saves the page as PNG.
 """
 
 from __future__ import annotations
@@ -43,6 +43,13 @@ def main() -> None:
             page.click("[data-step='low-1-C1-up']")
             page.wait_for_selector("[data-part='low-1-C1']:text-is('27n')")
             time.sleep(3.0)
+            # the demo programme's treble comes in bursts: take the picture while the
+            # spectrum shows one (the output above 5 kHz over -90 dB), or after 10 s anyway
+            page.wait_for_function(
+                """() => page.live && page.live.spectrum && page.live.spectrum.f_hz.some(
+                    (f, i) => f > 5000 && page.live.spectrum.out_db[i] > -90)""",
+                timeout=10000,
+            )
             page.screenshot(path=str(args.out), full_page=True)
             browser.close()
     finally:

@@ -405,18 +405,22 @@ def _up_stage(
                 for i in range(lo, hi):
                     a[i] = 0.0
                 _phase_into(a[lo:hi], row, base + lo, taps[k], length, mirrored[k])
-            for i in range(n):
-                target[out_start + 2 * i + k] = a[i]
+                for i in range(lo, hi):  # while the tile is in the cache
+                    target[out_start + 2 * i + k] = a[i]
         for j in range(hist):
             row[j] = row[n + j]
 
 
 @numba.njit(cache=True, fastmath=True, nogil=True)
-def _down_stage(buf, hist, n, taps, lengths, offsets, mirrored, out, out_start):  # pragma: no cover
+def _down_stage(
+    buf, hist, n, taps, lengths, offsets, mirrored, out, out_start, pairs, pairs_start
+):  # pragma: no cover
     """``buf[:, 0]`` even and ``buf[:, 1]`` odd input samples (``hist`` of history, then
     ``n`` new of each) -> ``y[i] = sum_j h[j] x[2i - j]`` into ``out[:, out_start:]``:
     the even taps meet even samples at ``i - m``, the odd ones odd samples at ``i - m - 1``.
-    Tap by tap over all outputs, as in :func:`_up_stage`."""
+    Tap by tap over all outputs, as in :func:`_up_stage`. With ``pairs_start >= 0`` each
+    tile, while in the cache, is also split into the next stage's even and odd rows,
+    ``pairs[:, 0/1, pairs_start:]`` (``out_start``, ``n`` and :data:`TILE` even)."""
     lanes = buf.shape[0]
     single = 1 if lengths[1] == 1 else (0 if lengths[0] == 1 else -1)  # a centre-tap phase
     for lane in range(lanes):
@@ -439,6 +443,12 @@ def _down_stage(buf, hist, n, taps, lengths, offsets, mirrored, out, out_start):
                 length = lengths[k]
                 base = hist - offsets[k] - k - length + 1 - out_start
                 _phase_into(part, buf[lane, k], base + lo, taps[k], length, mirrored[k])
+            if pairs_start >= 0:
+                even, odd = pairs[lane, 0], pairs[lane, 1]
+                first = pairs_start + (lo - out_start) // 2
+                for j in range(span // 2):
+                    even[first + j] = part[2 * j]
+                    odd[first + j] = part[2 * j + 1]
         for k in range(2):
             row = buf[lane, k]
             for j in range(hist):
@@ -458,22 +468,26 @@ def _chains_to_pairs(x, frames, buf, start, skip):  # pragma: no cover
     """``x`` (chains, frames, channels) -> ``buf[lane, even/odd, start + i]``, lane =
     chain * channels + channel; with ``skip`` leading frames left out (a delay)."""
     chains, _, channels = x.shape
+    pairs = (frames - skip) // 2
     for a in range(chains):
+        if channels == 2:  # stereo: one pass reads each frame pair once, in memory order
+            src = x[a]
+            e0, o0 = buf[2 * a, 0, start : start + pairs], buf[2 * a, 1, start : start + pairs]
+            e1 = buf[2 * a + 1, 0, start : start + pairs]
+            o1 = buf[2 * a + 1, 1, start : start + pairs]
+            for i in range(pairs):
+                f = skip + 2 * i
+                e0[i] = src[f, 0]
+                e1[i] = src[f, 1]
+                o0[i] = src[f + 1, 0]
+                o1[i] = src[f + 1, 1]
+            continue
         for c in range(channels):  # one lane at a time: its rows are written in order
             lane = a * channels + c
             even, odd = buf[lane, 0], buf[lane, 1]
-            for i in range((frames - skip) // 2):
+            for i in range(pairs):
                 even[start + i] = x[a, skip + 2 * i, c]
                 odd[start + i] = x[a, skip + 2 * i + 1, c]
-
-
-@numba.njit(cache=True, nogil=True)
-def _lanes_to_pairs(y, n, buf, start):  # pragma: no cover
-    """``y[lane, :n]`` -> ``buf[lane, even/odd, start + i]`` for the next 2x stage."""
-    for lane in range(y.shape[0]):
-        for i in range(n // 2):
-            buf[lane, 0, start + i] = y[lane, 2 * i]
-            buf[lane, 1, start + i] = y[lane, 2 * i + 1]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -523,9 +537,9 @@ def _down_cascade(
         for s in range(stages):
             n //= 2
             t, g, o, m = taps[s], lengths[s], offsets[s], mirrored[s]
-            _down_stage(bufs[s], hists[s], n, t, g, o, m, ys[s], 0)
-            if s + 1 < stages:
-                _lanes_to_pairs(ys[s], n, bufs[s + 1], hists[s + 1])
+            last = s + 1 == stages
+            pairs, start = (bufs[0], -1) if last else (bufs[s + 1], hists[s + 1])
+            _down_stage(bufs[s], hists[s], n, t, g, o, m, ys[s], 0, pairs, start)
         _lanes_to_chains(ys[stages - 1], 0, n, channels, out[:, lo // factor :])
 
 

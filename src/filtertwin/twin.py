@@ -66,6 +66,11 @@ class Fidelity:
     resampling_db : float
         Largest magnitude deviation (dB) of the up and down resampling filters together over
         the band (0 without oversampling).
+    at_level_db : float
+        The analog response at ``at_hz`` relative to its peak (dB, <= 0).
+    at_error_db : float
+        |H_twin - H_analog| at ``at_hz`` relative to the peak gain (dB): what the largest
+        deviation amounts to against the loudest part of the response.
     """
 
     max_db: float
@@ -77,6 +82,8 @@ class Fidelity:
     sections_db: float = 0.0
     sections_deg: float = 0.0
     resampling_db: float = 0.0
+    at_level_db: float = 0.0
+    at_error_db: float = -math.inf
 
     def within(self, tol_db: float, tol_deg: float) -> bool:
         return self.max_db <= tol_db and self.max_deg <= tol_deg
@@ -310,9 +317,12 @@ def measure_fidelity(
         stop = float(20 * math.log10(max(err, 1e-300)))
     f_in = grid[inside]
     res_db = float(np.max(np.abs(20 * np.log10(np.abs(hr)))))
+    at_a, at_d = ha[inside][i], hd[inside][i]
+    at_level = float(20 * math.log10(abs(at_a) / peak))
+    at_error = float(20 * math.log10(max(abs(at_d - at_a) / peak, 1e-300)))
     return Fidelity(
         float(db[i]), float(deg[j]), float(f_in[i]), float(f_in[j]), (lo, hi), stop,
-        float(np.max(sec_db)), float(np.max(sec_deg)), res_db,
+        float(np.max(sec_db)), float(np.max(sec_deg)), res_db, at_level, at_error,
     )  # fmt: skip
 
 

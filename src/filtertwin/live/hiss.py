@@ -276,3 +276,13 @@ class LiveNoise:
     def redesign(self, index: int, design: Design) -> None:
         """Make candidate ``index``'s noise follow its edited design."""
         self.feeder.redesign(index, design)
+
+    @property
+    def used(self) -> bool:
+        """True once the noise has been asked for (its thread started)."""
+        return self.feeder.ready.is_set()
+
+    @property
+    def starved_frames(self) -> int:
+        """Frames the callback wanted noise for and the thread had not made yet."""
+        return int(self.adder.starved_frames[0])

@@ -138,6 +138,17 @@ def match_by_loudness(program: np.ndarray, rate_hz: float, twins: Sequence[Twin]
     return _matched("loudness", levels, integrated_loudness(program, rate_hz))
 
 
+def with_level(match: LevelMatch, index: int, level: float) -> LevelMatch:
+    """The match again with candidate ``index`` at a new level, the others as measured.
+
+    Only the edited candidate changed: the other candidates' levels and the dry input's
+    are kept, and every gain is found again from them (the quietest source may change).
+    """
+    levels = list(match.levels)
+    levels[index] = level
+    return _matched(match.mode, levels, match.bypass_level)
+
+
 def describe(match: LevelMatch, labels: Sequence[str]) -> str:
     """One line: the offsets in dB, e.g. "level match (loudness): A -0.8 dB, B 0.0 dB ..."."""
     if match.mode == "off":

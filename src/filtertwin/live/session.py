@@ -35,6 +35,7 @@ from filtertwin.live.blind import BlindSession, buttons, describe_score
 from filtertwin.live.chains import BlendedSwap, ChainHost, ChainSwapper
 from filtertwin.live.hiss import LiveNoise
 from filtertwin.live.mixer import SUM, Selection
+from filtertwin.live.remeasure import LoudnessRemeasure
 from filtertwin.live.safety import MAX_LEVEL_DB, MIN_LEVEL_DB, OutputSafety
 from filtertwin.live.stream import StreamCore
 from filtertwin.twin import Twin, build_twin
@@ -128,6 +129,13 @@ class ListenSession:
         self.lock = threading.RLock()
         """Held by every command: the console and a preview window may both call in."""
         self._poller: threading.Thread | None = None
+        self.match_updates = 0
+        """Counts level matches found again after edits (a preview window redraws on it)."""
+        self.levels: LoudnessRemeasure | None = None
+        if match.mode == "loudness" and program is not None:
+            self.levels = LoudnessRemeasure(program, processing_rate_hz, self._level_measured)
+            for c, level in zip(self.candidates, match.levels, strict=True):
+                self.levels.remember(c.design, level)
 
     @property
     def safety(self) -> OutputSafety:
@@ -550,7 +558,7 @@ class ListenSession:
             self._install(record.index, record.before)
             line = f"undone: {record.line}"
             self.say(line)
-            self._rematch()
+            self._rematch(record.index)
             return line
 
     def redo(self) -> str:
@@ -565,7 +573,7 @@ class ListenSession:
             self._install(record.index, record.after)
             line = f"redone: {record.line}"
             self.say(line)
-            self._rematch()
+            self._rematch(record.index)
             return line
 
     def _record(self, index: int, name: str, design: cands.Design, line: str) -> None:
@@ -574,7 +582,7 @@ class ListenSession:
         self.history.append(EditRecord(index, name, before, design, line))
         self.undone.clear()
         self.say(line)
-        self._rematch()
+        self._rematch(index)
 
     def edited(self, index: int) -> bool:
         """True when candidate ``index`` is not as loaded (an edit is in force)."""
@@ -667,7 +675,7 @@ class ListenSession:
             self.poll()
             self._keep_polling()
         else:  # another section count: a new runner (taken up whole at the next block)
-            self.finish_edits()
+            self.finish_edits(levels=False)
             twins = [*self.twins[:index], twin, *self.twins[index + 1 :]]
             all_sos, all_levels = cands.chains(twins)
             self.swapper.swap(changes, all_sos, all_levels, cands.slew_steps(twins))
@@ -714,25 +722,55 @@ class ListenSession:
         """True while an edit's crossfade is still under way."""
         return self.swapping is not None or bool(self.queued)
 
-    def finish_edits(self, timeout_s: float = 5.0) -> bool:
-        """Wait until every edit crossfade is done (the stream must be running); True if so."""
+    def finish_edits(self, timeout_s: float = 5.0, levels: bool = True) -> bool:
+        """Wait until every edit crossfade is done (the stream must be running); True if so.
+
+        With ``levels`` also wait until the level match after the edits is measured and
+        in force (see :meth:`_rematch`).
+        """
         deadline = time.monotonic() + timeout_s
         while self.edits_pending and time.monotonic() < deadline:
             self.poll()
             time.sleep(POLL_EVERY_S)
-        return not self.edits_pending
+        if levels and self.levels is not None:
+            self.levels.wait(max(0.0, deadline - time.monotonic()))
+            self.finish_edits(max(0.0, deadline - time.monotonic()), levels=False)
+        measuring = levels and self.levels is not None and self.levels.pending
+        return not self.edits_pending and not measuring
 
-    def _rematch(self) -> None:
-        if self.match.mode == "loudness" and self.program is not None:
-            self.match = matching.match_by_loudness(
-                self.program, self.processing_rate_hz, self.twins
-            )
+    def _rematch(self, index: int) -> None:
+        """Match the levels again after candidate ``index`` changed.
+
+        By loudness, only that candidate is measured again (the others and the dry input
+        did not change), in a thread of its own (:mod:`filtertwin.live.remeasure`): the
+        edit is heard at once at the old gain, the new gain follows when measured (a
+        few hundred milliseconds); a design measured before (undo, redo) matches at once.
+        """
+        if self.levels is not None:
+            design = self.candidates[index].design
+            level = self.levels.known_level(design)
+            if level is None:
+                self.levels.request(index, design, self.twins[index])
+                return
+            self.match = matching.with_level(self.match, index, level)
         elif self.match.mode == "gain":
             self.match = matching.match_by_gain([c.design for c in self.candidates])
         else:
             return
+        self._matched_again()
+
+    def _level_measured(self, index: int, design: cands.Design, level: float) -> None:
+        """The measuring thread's report: put the new level in force if still current."""
+        with self.lock:
+            if self.candidates[index].design is not design:
+                return  # edited again meanwhile: that edit's measurement follows
+            self.match = matching.with_level(self.match, index, level)
+            self._matched_again()
+
+    def _matched_again(self) -> None:
         self.layout = cands.layout(self.candidates, self.match.gains, self.match.bypass_gain)
         self._apply()
+        self.match_updates += 1
         self.say(matching.describe(self.match, [c.label for c in self.candidates]))
 
 

@@ -341,6 +341,8 @@ def summary_lines(session: ListenSession, played_s: float) -> list[str]:
     lines.append("stage clipping at the amplifier swing: " + clips)
     slews = _stage_counts(session, session.swapper.slew_counts())
     lines.append("stage slewing at the amplifier slew rate: " + slews)
+    if session.noise is not None and session.noise.used:
+        lines.append(f"circuit noise: {session.noise.starved_frames} frames not made in time")
     if session.edits_made:
         lines.append(f"live edits: {session.edits_made} made, {len(session.history)} in force")
         lines += [f"  {line}" for line in session.edit_lines()]

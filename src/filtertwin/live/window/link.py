@@ -7,7 +7,7 @@ offer:
 
 * commands are the same :class:`~filtertwin.live.keys.Command` words a script or the
   terminal sends (``select``, ``bypass``, ``solo``, ``mute``, ``level``, ``part``,
-  ``corner``, ``listen``, ``answer``, ``capture``, ``quit``). The link serialises every
+  ``corner``, ``listen``, ``answer``, ``capture``, ``noise``, ``quit``). The link serialises every
   command, from the terminal and from the page alike, with one lock around the session's
   ``handle``, so the two never interleave;
 * undo, redo and "save as" are the session's own (:meth:`ListenSession.undo
@@ -61,6 +61,7 @@ class SessionView:
     can_undo: bool
     can_redo: bool
     capture: str
+    noise: str
     blind: dict[str, Any] | None
 
 
@@ -87,7 +88,7 @@ class SessionLink:
         self.core = player.core
         self.clock = clock
         self.lock = threading.RLock()
-        self.version = 0
+        self._changes = 0
         self.originals = tuple(c.design for c in self.session.candidates)
         """Each candidate's design as it started (the stage cards' targets)."""
         self.messages: collections.deque[tuple[int, str]] = collections.deque(maxlen=MESSAGES_KEPT)
@@ -101,6 +102,12 @@ class SessionLink:
         self.session.handle = self._locked_handle  # type: ignore[method-assign]
         self.session.say = self._say_too
 
+    @property
+    def version(self) -> int:
+        """Grows with every change the page shows: commands, and level matches found again
+        after an edit (they arrive from the session's measuring thread)."""
+        return self._changes + self.session.match_updates
+
     # --- commands --------------------------------------------------------------------------
 
     def _say_too(self, message: str) -> None:
@@ -111,7 +118,7 @@ class SessionLink:
     def _locked_handle(self, command: keys.Command, now_s: float) -> None:
         with self.lock:
             self._handle(command, now_s)
-            self.version += 1
+            self._changes += 1
 
     def run(self, name: str, args: tuple[str, ...] = ()) -> None:
         """Carry out one command word with its arguments, as a script line would.
@@ -159,7 +166,7 @@ class SessionLink:
             raise UserInputError(
                 f"{name}: {error} (the recording lasts {feeder.info.duration_s:.1f} s)"
             ) from None
-        self.version += 1
+        self._changes += 1
 
     def undo(self) -> None:
         """Take back the latest edit (any candidate); it can be redone."""
@@ -175,7 +182,7 @@ class SessionLink:
                 action()
             except UserInputError as error:
                 self.session.say(f"{name}: {error}")
-            self.version += 1
+            self._changes += 1
 
     def save_as(self, path: str) -> Path:
         """Write the heard candidate's design, as edited, to a new file.
@@ -214,6 +221,7 @@ class SessionLink:
                 can_undo=bool(s.history),
                 can_redo=bool(s.undone),
                 capture="" if plan is None else ("on" if s.capture_on else "off"),
+                noise="" if s.noise is None else ("on" if s.noise.on else "off"),
                 blind=self._blind_view(),
             )
 
@@ -268,6 +276,7 @@ class SessionLink:
             "limit_db": facts.limiter_db,  # 0 during blind trials (it differs between designs)
             "limiting": facts.limiting,
             "clipping": list(facts.clipping),
+            "slewing": list(facts.slewing),
             "xruns": facts.xruns,
             "starved_frames": facts.starved_frames,
             "callback_load": facts.callback_median_s / facts.period_s,
@@ -282,9 +291,11 @@ class SessionLink:
             "position_s": position_s,
         }
 
-    def clipping(self) -> tuple[str, ...]:
-        """Stages of the heard candidate that reached their swing in the last second."""
-        return self._reader.facts().clipping
+    def flags(self) -> tuple[tuple[str, ...], tuple[str, ...]]:
+        """Stages of the heard candidate that reached their swing, and their slew rate, in
+        the last second (named as :func:`~filtertwin.live.window.views.stage_label` does)."""
+        facts = self._reader.facts()
+        return facts.clipping, facts.slewing
 
     def latest_signals(self, frames: int) -> tuple[np.ndarray, np.ndarray, float]:
         """The last ``frames`` of the dry input and the output, and the stream rate."""

@@ -162,7 +162,7 @@ class WindowServer:
     def _state_message(self, force: bool = False) -> str:
         view = self.link.view()
         if force or view.version != self._state_version or not self._state_text:
-            state = views.session_state(view, self.link.originals, self.link.clipping())
+            state = views.session_state(view, self.link.originals, *self.link.flags())
             self._state_text = _json({"type": "state", **_finite(state)})
             self._state_version = view.version
         return self._state_text

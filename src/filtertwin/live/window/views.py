@@ -53,7 +53,13 @@ def _number(value: float | None, digits: int = 4) -> float | None:
 
 
 def stage_card(
-    way: str, filter_name: str, stage: Stage, target: Any, series: dict[str, str], clipping: bool
+    way: str,
+    filter_name: str,
+    stage: Stage,
+    target: Any,
+    series: dict[str, str],
+    clipping: bool,
+    slewing: bool = False,
 ) -> dict[str, Any]:
     """One stage as a card: topology, parts, target and as-built f0 and Q, peak, flags.
 
@@ -67,8 +73,13 @@ def stage_card(
         What the synthesis aimed at (of the design before any part edit), if known.
     series : dict
         E-series of each part name.
-    clipping : bool
-        Whether the stage reached its amplifier's swing recently.
+    clipping, slewing : bool
+        Whether the stage reached its amplifier's swing (slew rate) in the last second.
+
+    Notes
+    -----
+    ``label`` is the stage as the status line and the meters name it ("woofer s2"): the
+    page lights the card's clip and slew flags from the live meters by it.
     """
     c = stage.circuit
     parts = [
@@ -95,8 +106,15 @@ def stage_card(
         "gain": _number(c.gain),
         "peak_db": _number(stage.peak_gain_db, 3),
         "clip_input_dbfs": _number(stage.clip_input_dbfs, 3),
+        "label": stage_label(filter_name, stage.index),
         "clipping": clipping,
+        "slewing": slewing,
     }
+
+
+def stage_label(filter_name: str, stage: int) -> str:
+    """A stage as the status line and the meters name it: the filter's name and "s" index."""
+    return f"{filter_name} s{stage}"
 
 
 def part_series(design: Design) -> dict[str, str]:
@@ -119,17 +137,26 @@ def _targets(original: Design | None) -> dict[tuple[str, int], Any]:
 
 
 def stage_cards(
-    ways: Sequence[str], design: Design, original: Design | None, clipping: Sequence[str]
+    ways: Sequence[str],
+    design: Design,
+    original: Design | None,
+    clipping: Sequence[str],
+    slewing: Sequence[str] = (),
 ) -> list[dict[str, Any]]:
-    """Every stage of every way of a candidate, in signal order, way by way."""
+    """Every stage of every way of a candidate, in signal order, way by way.
+
+    ``clipping`` and ``slewing`` name stages as :func:`stage_label` does.
+    """
     targets = _targets(original)
     series = part_series(design)
     cards = []
     for way, f in zip(ways, design.filters, strict=True):
         for s in f.stages:
             target = s.target if s.target is not None else targets.get((f.name, s.index))
-            flag = f"{way} s{s.index}" in clipping
-            cards.append(stage_card(way, f.name, s, target, series, flag))
+            label = stage_label(f.name, s.index)
+            cards.append(
+                stage_card(way, f.name, s, target, series, label in clipping, label in slewing)
+            )
     return cards
 
 
@@ -263,7 +290,12 @@ def spectrum_centres_hz(frames: int, rate_hz: float) -> list[float]:
     return _plan(frames, rate_hz).centres_hz
 
 
-def session_state(view: SessionView, originals: Sequence[Design], clipping: Sequence[str]) -> dict:
+def session_state(
+    view: SessionView,
+    originals: Sequence[Design],
+    clipping: Sequence[str],
+    slewing: Sequence[str] = (),
+) -> dict:
     """The whole page state after a change (JSON-ready); little in blind trials."""
     if view.blind is not None and not view.blind["finished"]:
         return {"blind": view.blind, "level_db": view.level_db}
@@ -278,8 +310,11 @@ def session_state(view: SessionView, originals: Sequence[Design], clipping: Sequ
             "fidelity": [
                 {
                     "way": w,
+                    "filter": ft.name,
                     "max_db": _number(ft.fidelity.max_db, 3),
+                    "at_hz": _number(ft.fidelity.at_hz, 4),
                     "max_deg": _number(ft.fidelity.max_deg, 3),
+                    "at_deg_hz": _number(ft.fidelity.at_deg_hz, 4),
                 }
                 for w, ft in zip(c.ways, t.filters, strict=True)
             ],  # fmt: skip
@@ -307,18 +342,25 @@ def session_state(view: SessionView, originals: Sequence[Design], clipping: Sequ
         "can_undo": view.can_undo,
         "can_redo": view.can_redo,
         "capture": view.capture,
+        "noise": view.noise,
         "blind": view.blind,
         "f_hz": rounded(f_hz, 3),
     }
     index = view.selected
     if index is not None:
         c, twin = view.candidates[index], view.twins[index]
-        state["cards"] = stage_cards(c.ways, c.design, originals[index], clipping)
+        state["cards"] = stage_cards(c.ways, c.design, originals[index], clipping, slewing)
         state["response"] = response_curves(c.ways, c.design, twin, f_hz)
         previous = view.previous.get(index)
         if previous is not None:
-            ghost = response_curves(c.ways, previous, twin, f_hz)
-            state["ghost"] = {"ways": [{"way": g["way"], "analog_db": g["analog_db"]}
-                                       for g in ghost["ways"]],
-                              "sum": {"analog_db": ghost["sum"]["analog_db"]}}  # fmt: skip
+            state["ghost"] = ghost_curves(c.ways, previous, f_hz)
     return state
+
+
+def ghost_curves(ways: Sequence[str], design: Design, f_hz: np.ndarray) -> dict[str, Any]:
+    """The analog magnitudes of a design before an edit, per way and summed (grey curves)."""
+    responses = [f.frequency_response(f_hz) for f in design.filters]
+    return {
+        "ways": [{"way": w, "analog_db": db(h)} for w, h in zip(ways, responses, strict=True)],
+        "sum": {"analog_db": db(np.sum(responses, axis=0))},
+    }

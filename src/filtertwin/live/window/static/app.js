@@ -27,7 +27,8 @@ function hz(v) {
   if (v === null || v === undefined) return "–";
   return v >= 1000 ? (v / 1000).toPrecision(4) + " kHz" : v.toPrecision(4) + " Hz";
 }
-const num = (v, d = 3) => (v === null || v === undefined) ? "–" : Number(v).toFixed(d);
+// fixed decimals, and never "-0.0" (a value that rounds to zero is shown without a sign)
+const num = (v, d = 3) => (v === null || v === undefined) ? "–" : Number(v).toFixed(d).replace(/^-(0\.?0*)$/, "$1");
 const dbfs = p => p > 0 ? (20 * Math.log10(p)).toFixed(1) : "-inf";
 
 // --- what is heard -------------------------------------------------------------------------
@@ -36,13 +37,18 @@ function renderChoices(s) {
   const box = $("candidates");
   box.replaceChildren(el("span", { class: "label" }, "candidate"));
   s.candidates.forEach((c, i) => {
-    const fid = c.fidelity.map(f => `${f.way} ${num(f.max_db, 2)}`).join(", ") + " dB";
+    // as the terminal's fidelity line puts it: the twin is within X dB (at F) of the analog model
+    const each = c.fidelity.map(f => `${f.filter}: within ${num(f.max_db, 3)} dB (at ${hz(f.at_hz)}) and ` +
+      `${num(f.max_deg, 2)}° (at ${hz(f.at_deg_hz)}) of the analog model`);
+    const worst = c.fidelity.reduce((a, f) => (f.max_db > a.max_db ? f : a));
+    const where = (c.fidelity.length > 1 ? `${worst.filter}, ` : "") + `at ${hz(worst.at_hz)}`;
     box.append(el("button", {
       class: "cand" + (s.selected === i ? " on" : ""), "data-candidate": c.label,
-      title: `${c.title}\ntwin against the analog circuit, largest difference: ${fid}`,
+      title: `${c.title}\ndigital twin against the analog circuit:\n${each.join("\n")}`,
       onclick: () => send("select", c.label),
     }, el("b", {}, `${c.label} · ${c.name}`),
-      el("small", {}, `twin vs analog ≤ ${fid}` + (c.match_db !== null ? ` · match ${num(c.match_db, 1)} dB` : ""))));
+      el("small", { "data-fidelity": c.label }, `twin within ${num(worst.max_db, 3)} dB of analog (${where})` +
+        (c.match_db !== null ? ` · level match ${num(c.match_db, 1)} dB` : ""))));
   });
   box.append(el("button", {
     class: "cand" + (s.selected === null ? " on" : ""), "data-candidate": "bypass",
@@ -68,6 +74,9 @@ function renderChoices(s) {
   }
   $("capture-box").hidden = !s.capture;
   $("capture").classList.toggle("on", s.capture === "on");
+  $("noise-box").hidden = !s.noise;
+  $("noise").classList.toggle("on", s.noise === "on");
+  $("noise").dataset.state = s.noise;
 }
 
 // --- the circuit: stage cards ----------------------------------------------------------------
@@ -86,7 +95,7 @@ function partRow(card, p) {
 
 function stageCard(card) {
   const q = v => (v === null ? "–" : num(v, 3));
-  return el("div", { class: "card" + (card.clipping ? " clip" : ""), "data-card": `${card.way}-${card.stage}` },
+  return el("div", { class: "card", "data-card": `${card.way}-${card.stage}`, "data-label": card.label },
     el("h3", {}, card.title),
     el("div", { class: "kind" }, card.kind + (card.gain && card.gain !== 1 ? `, K ${num(card.gain, 3)}` : "")),
     ...card.parts.map(p => partRow(card, p)),
@@ -97,9 +106,24 @@ function stageCard(card) {
       el("span", { "data-f0": `${card.way}-${card.stage}`, "data-value": card.built_f0_hz }, hz(card.built_f0_hz)),
       el("span", { "data-q": `${card.way}-${card.stage}`, "data-value": card.built_q }, q(card.built_q))),
     el("div", { class: "flags" },
-      `peak ${num(card.peak_db, 1)} dB`,
-      card.clip_input_dbfs !== null ? ` · clips from ${num(card.clip_input_dbfs, 1)} dBFS in ` : " ",
-      card.clipping ? el("span", { class: "flag" }, "clipping") : ""));
+      `internal peak ${num(card.peak_db, 1)} dB`,
+      card.clip_input_dbfs !== null ? ` · clips above ${num(card.clip_input_dbfs, 1)} dBFS input` : "",
+      el("span", { class: "flag", "data-clip-flag": card.label, hidden: !card.clipping,
+        title: "the amplifier reached its output swing within the last second" }, "clipping"),
+      el("span", { class: "flag", "data-slew-flag": card.label, hidden: !card.slewing,
+        title: "the amplifier's output was held to its slew rate within the last second" }, "slewing")));
+}
+
+// the clip and slew flags follow the live meters (stages named as the status line names them)
+function lightFlags(m) {
+  for (const card of document.querySelectorAll("[data-label]")) {
+    const label = card.dataset.label;
+    const clip = m.clipping.includes(label), slew = m.slewing.includes(label);
+    card.classList.toggle("clip", clip);
+    card.classList.toggle("slew", slew);
+    card.querySelector("[data-clip-flag]").hidden = !clip;
+    card.querySelector("[data-slew-flag]").hidden = !slew;
+  }
 }
 
 function renderCircuit(s) {
@@ -214,16 +238,19 @@ function renderMeters(m) {
   const facts = [
     ["limiter", m.limit_db < -0.05 ? `${num(m.limit_db, 1)} dB` : "0 dB"],
     ["clipping", m.clipping.length ? m.clipping.join(", ") : "none"],
+    ["slewing", m.slewing.length ? m.slewing.join(", ") : "none"],
     ["xruns", String(m.xruns) + (m.starved_frames ? ` (${m.starved_frames} late frames)` : "")],
     ["callback", `${num(100 * m.callback_load, 1)} % (max ${num(100 * m.callback_max_load, 0)} %)`],
     ["latency", m.latency_s === null ? "–" : `${num(1000 * m.latency_s, 1)} ms`],
     ["level", `${num(m.level_db, 1)} dB` + (m.ramp < 0.999 ? ` (ramp ${num(100 * m.ramp, 0)} %)` : "")],
     ["ADC capture", page.state && page.state.capture ? page.state.capture : "not set up"],
+    ["circuit noise", page.state && page.state.noise ? page.state.noise : "–"],
   ];
   if (!page.facts) {
     page.facts = facts.map(([k]) => { const dd = el("dd", {}, ""); $("facts").append(el("dt", {}, k), dd); return dd; });
   }
   facts.forEach(([, v], i) => { if (page.facts[i].textContent !== v) page.facts[i].textContent = v; });
+  lightFlags(m);
   if (m.loop_s) {
     page.loopS = m.loop_s;
     $("loop-fill").style.left = `${(100 * m.position_s / m.loop_s).toFixed(2)}%`;
@@ -290,6 +317,7 @@ function onState(s) {
   $("level-value").textContent = `${num(s.level_db, 1)} dB`;
   renderChoices(s);
   renderCircuit(s);
+  if (page.live) lightFlags(page.live.meters);
   responsePlot();
   if ($("envelope").checked && (!page.envelope || page.envelope.version !== s.version) && s.selected !== null) send("envelope");
 }
@@ -339,6 +367,7 @@ $("loop").addEventListener("click", e => {
 $("loop-set").addEventListener("click", () => send("loop", $("loop-start").value.trim() || "0", $("loop-end").value.trim() || String(page.loopS || 0)));
 $("loop-all").addEventListener("click", () => send("loop", "all"));
 $("capture").addEventListener("click", () => send("capture"));
+$("noise").addEventListener("click", () => send("noise"));
 $("response-view").addEventListener("change", responsePlot);
 $("twin").addEventListener("change", responsePlot);
 $("envelope").addEventListener("change", () => { if ($("envelope").checked) send("envelope"); responsePlot(); });
