@@ -7,8 +7,8 @@ wherever it runs, so a serial loop, the local scheduler and a cluster agree exac
 The local scheduler uses threads: the work of a task happens in GIL-free code (the numba
 runner and resampling kernels, scipy's FIR and FFTs, libsndfile), so threads run side by side
 without starting processes or copying results between them (measured against Dask's
-processes scheduler: see DEVELOPERS.md, the archive path). A cluster is reached with ``dask.distributed`` (the ``cluster`` extra),
-imported only when an address is given.
+processes scheduler: see DEVELOPERS.md, the archive path). A cluster is reached with
+``dask.distributed`` (the ``cluster`` extra), imported only when an address is given.
 """
 
 from __future__ import annotations
