@@ -23,7 +23,7 @@ from filtertwin.archive.scan import UNFILTERED, Candidate, ScanSpec, scan_file
 from filtertwin.archive.summary import summarize
 from filtertwin.archive.tasks import run_serial, run_tasks
 from filtertwin.checks.alias import ideal_dynamic_range_db
-from filtertwin.design import design_filter
+from filtertwin.circuit.design import design_filter
 from filtertwin.errors import UserInputError
 
 RATE = 32000.0

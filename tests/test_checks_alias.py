@@ -14,7 +14,6 @@ import pytest
 import scipy.signal
 import soundfile as sf
 
-from filtertwin import recordings
 from filtertwin.checks.alias import (
     alias_frequency,
     capture,
@@ -22,8 +21,9 @@ from filtertwin.checks.alias import (
     ideal_dynamic_range_db,
 )
 from filtertwin.checks.foldpower import plan_spectrum, spectrum
-from filtertwin.design import design_filter, load
+from filtertwin.circuit.design import design_filter, load
 from filtertwin.errors import UserInputError
+from filtertwin.files import recordings
 
 SAMPLES = Path(__file__).resolve().parents[1] / "audio_samples"
 

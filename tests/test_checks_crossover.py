@@ -18,9 +18,9 @@ from filtertwin.checks.crossover import (
     crossover_frequency,
     order_ways,
 )
-from filtertwin.design import build_design, load
+from filtertwin.circuit.design import build_design, load
+from filtertwin.circuit.spec import parse_design
 from filtertwin.errors import UserInputError
-from filtertwin.spec import parse_design
 
 FC = 2200.0
 MINUS_6_DB = 20 * math.log10(0.5)  # -6.0206 dB: each Linkwitz-Riley way at the crossover

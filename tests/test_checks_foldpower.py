@@ -12,7 +12,7 @@ import scipy.signal
 
 from filtertwin.checks.alias import check_alias
 from filtertwin.checks.foldpower import alias_frequency, kaiser_beta, plan_spectrum
-from filtertwin.design import design_filter
+from filtertwin.circuit.design import design_filter
 
 CASES = {
     # rate, seconds, ADC rate, band, (order, corner), in-band tone, tone above Nyquist, noise rms

@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from filtertwin.checks import stopband
 from filtertwin.checks.alias import check_alias
 from filtertwin.checks.droop import passband_droop
-from filtertwin.design import design_filter
+from filtertwin.circuit.design import design_filter
 
 
 def fitted_amplitude(y: np.ndarray, rate_hz: float, f_hz: float) -> float:
@@ -122,9 +122,9 @@ def test_droop_gain_phase_and_group_delay_at_the_band_edge_match_the_prototype()
 def test_live_capture_says_plainly_when_its_twin_misses_the_stopband():
     import re
 
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
+    from filtertwin.digital.twin import build_twin
     from filtertwin.live.capture import stopband_notes
-    from filtertwin.twin import build_twin
 
     design = load("vibration-antialias")
     (note,) = stopband_notes("A", design, 51200.0, 8000.0)

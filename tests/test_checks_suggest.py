@@ -11,7 +11,7 @@ import scipy.signal
 from filtertwin.checks import tolerance
 from filtertwin.checks.alias import check_alias
 from filtertwin.checks.suggest import design_toml, suggest_designs, write_design
-from filtertwin.design import design_filter, load
+from filtertwin.circuit.design import design_filter, load
 from filtertwin.errors import UserInputError
 
 ADC, BAND, REQUIRED, DROOP = 8000.0, 1000.0, 60.0, 1.0

@@ -13,7 +13,7 @@ import pytest
 import scipy.signal
 import scipy.stats
 
-from filtertwin import sallenkey, verdicts
+from filtertwin.checks import verdicts
 from filtertwin.checks.tolerance import (
     draw_parts,
     magnitude_sq,
@@ -22,9 +22,10 @@ from filtertwin.checks.tolerance import (
     stage_polynomials,
     worst_build_design,
 )
-from filtertwin.design import Design, build_design, design_filter, load
+from filtertwin.circuit import sallenkey
+from filtertwin.circuit.design import Design, build_design, design_filter, load
+from filtertwin.circuit.spec import parse_design
 from filtertwin.errors import UserInputError
-from filtertwin.spec import parse_design
 
 EXAMPLES = ("bookshelf-2way", "turntable-rumble", "synth-resonant-lowpass", "studio-3way")
 

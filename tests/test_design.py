@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from filtertwin.design import build_design
-from filtertwin.spec import parse_design
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import parse_design
 
 
 def design(parts=None, **filt):

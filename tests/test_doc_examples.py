@@ -6,18 +6,18 @@ import importlib
 import pytest
 
 MODULES = [
-    "filtertwin.sallenkey",
-    "filtertwin.design",
-    "filtertwin.units",
-    "filtertwin.eseries",
-    "filtertwin.noise",
-    "filtertwin.resample",
+    "filtertwin.circuit.sallenkey",
+    "filtertwin.circuit.design",
+    "filtertwin.circuit.units",
+    "filtertwin.circuit.eseries",
+    "filtertwin.circuit.noise",
+    "filtertwin.digital.resample",
     "filtertwin.checks.alias",
     "filtertwin.checks.foldpower",
-    "filtertwin.prototypes",
+    "filtertwin.circuit.prototypes",
     "filtertwin.archive.calibration",
     "filtertwin.archive.windows",
-    "filtertwin.timestamps",
+    "filtertwin.files.timestamps",
 ]
 
 

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import signal
 
-from filtertwin.engine import (
+from filtertwin.digital.engine import (
     FLUSH_BELOW,
     CascadeRunner,
     sosfilt_blocks,

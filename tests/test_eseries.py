@@ -1,4 +1,4 @@
-"""Tests of filtertwin.eseries against IEC 60063:2015 and the series' own geometric rule."""
+"""Tests of filtertwin.circuit.eseries against IEC 60063:2015 and the series' own geometric rule."""
 
 import math
 
@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from filtertwin import eseries
+from filtertwin.circuit import eseries
 
 # IEC 60063:2015 tables, from memory, written independently of the module's integer tables.
 IEC_E3 = [1.0, 2.2, 4.7]

@@ -6,13 +6,13 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.resample import StreamResampler, design_filter, ratio
 from filtertwin.errors import UserInputError
+from filtertwin.files.recordings import inspect
 from filtertwin.live.chains import ChainSwapper
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.stream import Feeder
-from filtertwin.recordings import inspect
-from filtertwin.resample import StreamResampler, design_filter, ratio
 
 
 def test_the_ring_hands_out_frames_in_order_across_its_wrap_point():

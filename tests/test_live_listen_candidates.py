@@ -7,7 +7,9 @@ import pytest
 from scipy import signal
 
 from filtertwin import examples
-from filtertwin.design import build_design
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design, parse_design
+from filtertwin.digital.twin import build_twin
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live.loudness import integrated_loudness
@@ -25,8 +27,6 @@ from filtertwin.live.routing import (
     low_reaching_high_ways,
     pair_gains,
 )
-from filtertwin.spec import load_design, parse_design
-from filtertwin.twin import build_twin
 
 RATE_HZ = 48000.0
 

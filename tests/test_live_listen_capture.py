@@ -13,9 +13,11 @@ from scipy import signal
 
 from filtertwin import examples
 from filtertwin.checks.alias import capture as offline_capture
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design
 from filtertwin.cli import main
-from filtertwin.design import build_design
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.resample import ratio
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture
@@ -26,8 +28,6 @@ from filtertwin.live.safety import OutputSafety
 from filtertwin.live.session import ListenSession
 from filtertwin.live.status import StatusReader, status_line
 from filtertwin.live.stream import Oversampling, PreFilter, StreamCore
-from filtertwin.resample import ratio
-from filtertwin.spec import load_design
 from test_live_listen_cli import one_line_error, run
 from test_live_listen_stream import (
     player_for,

@@ -7,8 +7,12 @@ import pytest
 from scipy import signal
 
 from filtertwin import examples
-from filtertwin.design import build_design
-from filtertwin.engine import CascadeRunner
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.render import render_array
+from filtertwin.digital.resample import StreamResampler, design_filter
+from filtertwin.digital.twin import build_twin
 from filtertwin.live import candidates as cands
 from filtertwin.live import routing
 from filtertwin.live.matching import no_match
@@ -24,10 +28,6 @@ from filtertwin.live.stream import (
     PreFilter,
     StreamCore,
 )
-from filtertwin.render import render_array
-from filtertwin.resample import StreamResampler, design_filter
-from filtertwin.spec import load_design
-from filtertwin.twin import build_twin
 
 RATE_HZ = 48000.0
 BLOCK = 256

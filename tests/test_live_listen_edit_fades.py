@@ -8,11 +8,11 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from filtertwin.design import build_design
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design
 from filtertwin.errors import UserInputError
 from filtertwin.live.chains import warm_frames
 from filtertwin.live.keys import Command
-from filtertwin.spec import load_design
 from test_live_listen_core import BLOCK, RATE_HZ, noise, play, setup
 
 

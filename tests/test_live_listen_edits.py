@@ -5,7 +5,8 @@ import math
 import pytest
 
 from filtertwin import examples
-from filtertwin.design import build_design
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design
 from filtertwin.errors import UserInputError
 from filtertwin.live.edits import (
     PartEdit,
@@ -16,7 +17,6 @@ from filtertwin.live.edits import (
     parse_corner,
     parse_part,
 )
-from filtertwin.spec import load_design
 
 # IEC 60063:2015, E12 series (the examples' capacitor series)
 E12 = [1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2]

@@ -19,14 +19,14 @@ import pytest
 import soundfile as sf
 from scipy import signal, stats
 
-from filtertwin import resample
 from filtertwin.commands.listen import _designs
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital import resample
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.render import render_array
+from filtertwin.digital.twin import build_twin
 from filtertwin.live.blind import plan_trials
 from filtertwin.live.keys import Command
 from filtertwin.live.safety import db_to_gain, float32_at_or_below
-from filtertwin.render import render_array
-from filtertwin.twin import build_twin
 
 REPO = Path(__file__).resolve().parents[1]
 RATE_HZ = 48000

@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
+from filtertwin.files.recordings import inspect
 from filtertwin.live.looping import LoopReader
-from filtertwin.recordings import inspect
 
 RATE_HZ = 8000
 

@@ -2,7 +2,7 @@
 
 The callback is driven block by block with a ring of known noise (no stream); one recording
 goes through a real PortAudio stream on the JACK dummy server and is compared with the
-density the node equations give (filtertwin.noise).
+density the node equations give (filtertwin.circuit.noise).
 """
 
 import time
@@ -12,8 +12,11 @@ import pytest
 from scipy import signal, stats
 
 from filtertwin import examples
-from filtertwin.design import build_design
-from filtertwin.engine import CascadeRunner
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.noise import CircuitNoiseSource, filter_noise
+from filtertwin.circuit.spec import load_design
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.twin import build_twin
 from filtertwin.live import candidates as cands
 from filtertwin.live.blind import BlindSession, TrialLog, plan_trials
 from filtertwin.live.hiss import LiveNoise, NoiseAdder, NoiseFeeder, noise_ring
@@ -24,9 +27,6 @@ from filtertwin.live.safety import OutputSafety
 from filtertwin.live.session import ListenSession
 from filtertwin.live.status import StatusReader, status_line, summary_lines
 from filtertwin.live.stream import StreamCore
-from filtertwin.noise import CircuitNoiseSource, filter_noise
-from filtertwin.spec import load_design
-from filtertwin.twin import build_twin
 
 RATE_HZ = 48000
 BLOCK = 256
@@ -165,7 +165,7 @@ def test_a_part_edit_makes_the_noise_follow_the_edited_design():
             time.sleep(0.01)
         assert feeder.designs[0] is edited, said
         names = [f.name for f in edited.filters]
-        reference = CircuitNoiseSource(edited, names, RATE_HZ, 1).firs  # filtertwin.noise
+        reference = CircuitNoiseSource(edited, names, RATE_HZ, 1).firs  # filtertwin.circuit.noise
         np.testing.assert_array_equal(feeder._sources[0].firs, reference)
         assert np.max(np.abs(reference[0] - old[0])) > 1e-3 * np.max(np.abs(old[0]))
     finally:
@@ -206,7 +206,7 @@ def test_the_streamed_noise_has_the_computed_density_and_is_zero_when_off(tmp_pa
     )  # the twin's units: 1.0 = full scale
     error_db = 10 * np.log10(psd[band] / expect)
     print(f"largest deviation {np.max(np.abs(error_db)):.2f} dB")
-    assert np.max(np.abs(error_db)) < 1.0  # filtertwin.noise node equations, as in render
+    assert np.max(np.abs(error_db)) < 1.0  # filtertwin.circuit.noise node equations, as in render
     end = np.flatnonzero(np.any(y != 0, axis=1))[-1]
     assert len(y) - end > RATE_HZ // 2  # after the fade: half a second of exact zeros
 

@@ -9,7 +9,7 @@ about a second (measured: 63,104 frames not read ahead in time on a cold cache).
 
 import numpy as np
 
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital.engine import CascadeRunner
 from filtertwin.live.stream import Oversampling
 
 FACTOR, CHANNELS, CHUNK = 4, 2, 256

@@ -21,10 +21,10 @@ import numpy as np
 import pytest
 from scipy import signal, stats
 
-from filtertwin import eseries, sallenkey
+from filtertwin.circuit import eseries, sallenkey
+from filtertwin.digital.render import render_array
 from filtertwin.live.tap import SignalTap
 from filtertwin.live.window import open_window
-from filtertwin.render import render_array
 from test_live_listen_stream import (
     PREROLL,
     RATE_HZ,
@@ -289,7 +289,7 @@ def stretch_amplitude(y: np.ndarray, f_hz: float, frames: int = 2048) -> float:
 
 
 def player_twin_sos(design, oversampling: int) -> np.ndarray:
-    from filtertwin.twin import build_twin
+    from filtertwin.digital.twin import build_twin
 
     return build_twin(design, RATE_HZ, oversampling=oversampling).filters[0].sos
 
@@ -392,9 +392,9 @@ def test_blind_trials_show_nothing_of_x_and_end_with_the_exact_binomial_p_value(
 def test_undo_redo_and_save_as_from_the_page_and_the_terminal_drives_the_same_session(
     tmp_path, jack_server, browser, monkeypatch
 ):
-    from filtertwin.design import build_design
+    from filtertwin.circuit.design import build_design
+    from filtertwin.circuit.spec import load_design
     from filtertwin.live.keys import Command
-    from filtertwin.spec import load_design
 
     monkeypatch.chdir(tmp_path)
     wav, _ = noise_wav(tmp_path, 1.0)
@@ -567,7 +567,7 @@ def test_a_hot_15_khz_sine_lights_the_slew_flag_on_the_slewing_stage_card_only(
 def test_the_noise_button_switches_the_circuit_noise_heard_at_its_computed_level(
     tmp_path, jack_server, browser
 ):
-    from filtertwin.noise import filter_noise
+    from filtertwin.circuit.noise import filter_noise
 
     wav = write_wav(tmp_path / "silence.wav", np.zeros((4 * RATE_HZ, 2), np.float32))
     player = player_for(["bookshelf-2way"], wav, [])
@@ -593,7 +593,7 @@ def test_the_noise_button_switches_the_circuit_noise_heard_at_its_computed_level
     on = y[on_from:on_until]
     on = on[np.any(on != 0, axis=1)]  # a late callback (xrun) plays zeros: leave them out
     # the heard noise power against the node equations' output noise density of each way,
-    # summed over 20 Hz to 20 kHz (filtertwin.noise, as render adds it) in full-scale units
+    # summed over 20 Hz to 20 kHz (filtertwin.circuit.noise, as render adds it) in full-scale units
     f, psd = signal.welch(on, RATE_HZ, nperseg=4096, axis=0)  # Welch 1967, via scipy.signal
     band = (f >= 20) & (f <= 20000)
     d = player.session.candidates[0].design

@@ -5,8 +5,8 @@ import math
 import numpy as np
 import pytest
 
-from filtertwin.design import build_design, design_filter
-from filtertwin.noise import (
+from filtertwin.circuit.design import build_design, design_filter
+from filtertwin.circuit.noise import (
     BOLTZMANN_J_PER_K,
     a_weighting_db,
     design_noise,
@@ -14,8 +14,8 @@ from filtertwin.noise import (
     stage_noise_psd,
     thermal_noise_v_per_rthz,
 )
-from filtertwin.sallenkey import Amplifier, StageCircuit
-from filtertwin.spec import parse_design
+from filtertwin.circuit.sallenkey import Amplifier, StageCircuit
+from filtertwin.circuit.spec import parse_design
 
 AMP_RO = Amplifier("test amplifier, 10 MHz, 75 ohm out", 10e6, 13.0, 5e6, 4e-9, 2e-12, 2e5, 75.0)
 FAST = Amplifier("near-ideal amplifier", 1e12, 13.0, 1e9, 4e-9, 2e-12, 1e9, 0.0)
@@ -36,7 +36,7 @@ def test_a_weighting_matches_the_standard_table():
 
 
 def independent_noise(c: StageCircuit, amp: Amplifier, f_hz: float, temperature_k: float):
-    """Output noise power density of a stage, written independently of filtertwin.noise.
+    """Output noise power density of a stage, written independently of filtertwin.circuit.noise.
 
     Every resistor's noise is a voltage source 4kTR in series with it (Thevenin form), the
     amplifier's voltage noise in series with its + input, its current noise into each input;
@@ -174,7 +174,7 @@ def test_cascade_noise_is_each_stage_shaped_by_the_stages_after_it():
 
 
 def test_a_crossover_sum_adds_the_ways_noise_powers_and_snr_follows_full_scale():
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
 
     d = load("bookshelf-2way")
     n = design_noise(d)
@@ -211,7 +211,7 @@ def test_rendered_circuit_noise_has_the_computed_density(tmp_path):
     import soundfile as sf
     from scipy import signal
 
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
 
     rate = 48000
     source = tmp_path / "silence.wav"

@@ -1,4 +1,4 @@
-"""Tests of filtertwin.outputs: audio, CSV and NPY outputs written safely.
+"""Tests of filtertwin.files.outputs: audio, CSV and NPY outputs written safely.
 
 Outside references: libsndfile through ``soundfile.read``/``soundfile.info`` for audio
 contents and formats, ``numpy.loadtxt`` and ``numpy.load`` for CSV and NPY contents.
@@ -14,8 +14,8 @@ import pytest
 import soundfile as sf
 
 from filtertwin.errors import UserInputError
-from filtertwin.outputs import SafeWriter, atomic_path, write_csv, write_npy
-from filtertwin.recordings import inspect, read_all
+from filtertwin.files.outputs import SafeWriter, atomic_path, write_csv, write_npy
+from filtertwin.files.recordings import inspect, read_all
 
 RATE_HZ = 48000
 

@@ -1,4 +1,4 @@
-"""Tests of filtertwin.prototypes against scipy.signal's analog prototypes and published tables."""
+"""filtertwin.circuit.prototypes against scipy.signal's analog prototypes and published tables."""
 
 import math
 
@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from filtertwin.prototypes import (
+from filtertwin.circuit.prototypes import (
     ALIGNMENTS,
     BESSEL_NORMS,
     AlignmentMatch,

@@ -1,4 +1,4 @@
-"""Tests of filtertwin.recordings: block reading of audio and NPY files, validation messages.
+"""Tests of filtertwin.files.recordings: block reading of audio and NPY files, validation messages.
 
 Outside references: libsndfile through ``soundfile.read`` for audio contents, ``numpy.load``
 for NPY contents. Sensor tables are tested in test_sensorcsv.py, writers in test_outputs.py.
@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from filtertwin import recordings, sensorcsv
 from filtertwin.errors import UserInputError
-from filtertwin.outputs import write_csv
-from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.recordings import inspect, read_all, read_blocks
+from filtertwin.files import recordings, sensorcsv
+from filtertwin.files.outputs import write_csv
+from filtertwin.files.recordinginfo import RecordingInfo
+from filtertwin.files.recordings import inspect, read_all, read_blocks
 
 RATE_HZ = 48000
 

@@ -13,13 +13,15 @@ import pytest
 import scipy.signal
 import soundfile as sf
 
-from filtertwin import cli, examples, outputs, recordings, render
+from filtertwin import cli, examples
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design
 from filtertwin.commands import render as render_command
-from filtertwin.design import build_design
+from filtertwin.digital import render
+from filtertwin.digital.resample import StreamResampler, design_filter, stage_taps
+from filtertwin.digital.twin import build_twin
 from filtertwin.errors import UserInputError
-from filtertwin.resample import StreamResampler, design_filter, stage_taps
-from filtertwin.spec import load_design
-from filtertwin.twin import build_twin
+from filtertwin.files import outputs, recordings
 
 RATE_HZ = 48000
 SHORT_FRAMES = 1200

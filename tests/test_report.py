@@ -11,13 +11,16 @@ import pytest
 import scipy.signal
 import soundfile as sf
 
-from filtertwin import examples, recordings, render, units
-from filtertwin.design import build_design
+from filtertwin import examples
+from filtertwin.circuit import units
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design
+from filtertwin.digital import render
+from filtertwin.digital.spectra import WelchAccumulator, segment_frames
+from filtertwin.digital.twin import build_twin
+from filtertwin.files import recordings
 from filtertwin.report import figures, summary
 from filtertwin.report.html import CAUTION, ReportSection, render_html, write_html
-from filtertwin.spec import load_design
-from filtertwin.spectra import WelchAccumulator, segment_frames
-from filtertwin.twin import build_twin
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), file signature
 
@@ -203,7 +206,7 @@ def test_render_report_lists_every_file_and_figure(tmp_path):
     page = (out / "report.html").read_text()
     assert page.count("data:image/png;base64,") == 2 and "PASS" in page
     # the circuit's noise over the twin's band (20 Hz to 20 kHz at 48 kHz), as design computes it
-    from filtertwin.noise import design_noise
+    from filtertwin.circuit.noise import design_noise
 
     noise = design_noise(design, (20.0, 20000.0))
     assert data["noise"]["filters"]["woofer"]["rms_v"] == pytest.approx(noise.filters[0].rms_v)
@@ -212,8 +215,8 @@ def test_render_report_lists_every_file_and_figure(tmp_path):
 
 
 def _as_built_lowpass(c1: str, c2: str, r2: str = "10k"):
-    from filtertwin.design import build_design
-    from filtertwin.spec import parse_design
+    from filtertwin.circuit.design import build_design
+    from filtertwin.circuit.spec import parse_design
 
     spec = {"filter": [{"name": "lp", "response": "lowpass", "stage": [
         {"topology": "unity", "R1": "10k", "R2": r2, "C1": c1, "C2": c2}]}]}  # fmt: skip
@@ -259,8 +262,8 @@ def test_a_stage_with_real_ripple_keeps_its_chebyshev_name():
 
 
 def test_the_report_names_the_amplifier_parts_warnings_and_every_part():
-    from filtertwin.design import build_design
-    from filtertwin.spec import parse_design
+    from filtertwin.circuit.design import build_design
+    from filtertwin.circuit.spec import parse_design
 
     spec = {"amplifier": {"preset": "low-noise bipolar"},
             "parts": {"resistors": "E24", "capacitors": "E6"},
@@ -329,8 +332,8 @@ def test_the_tolerance_panels_measure_the_worst_build_where_the_check_does():
 def test_the_spectra_plot_names_the_roll_off_toward_nyquist():
     import matplotlib.pyplot as plt
 
+    from filtertwin.digital.twin import build_twin, resampling_response
     from filtertwin.report import figures
-    from filtertwin.twin import build_twin, resampling_response
 
     twin = build_twin(_design("bookshelf-2way"), 48000.0, oversampling=4)
     f = np.linspace(10.0, 24000.0, 4000)
@@ -338,7 +341,7 @@ def test_the_spectra_plot_names_the_roll_off_toward_nyquist():
     figures._mark_nyquist_rolloff((top, bottom), twin, f)
     (label,) = [t for t in bottom.get_legend_handles_labels()[1] if "Nyquist" in t]
     assert label == "resampling filters of the 4x twin roll off toward Nyquist (24 kHz)"
-    # the shading starts where the resampling filters (filtertwin.resample, the FIR of
+    # the shading starts where the resampling filters (filtertwin.digital.resample, the FIR of
     # scipy.signal.resample_poly) have lost 0.1 dB
     loss = -20 * np.log10(np.abs(resampling_response(4, f, twin.rate_hz, twin.resampling)))
     start = f[loss > figures.ROLLOFF_DB][0]

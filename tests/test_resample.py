@@ -8,10 +8,11 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from filtertwin import cli, examples, render, resample
-from filtertwin.design import build_design
-from filtertwin.spec import load_design, parse_design
-from filtertwin.twin import build_twin, resampling_response
+from filtertwin import cli, examples
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design, parse_design
+from filtertwin.digital import render, resample
+from filtertwin.digital.twin import build_twin, resampling_response
 
 KESTER_24_BIT_DB = 6.02 * 24 + 1.76  # Bennett 1948, Kester 2005 ch. 2: ideal 24-bit SNR
 

@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from filtertwin.sallenkey import (
+from filtertwin.circuit.sallenkey import (
     Amplifier,
     StageCircuit,
     analyze,
@@ -221,7 +221,7 @@ def test_output_resistance_gives_the_unity_lowpass_its_high_frequency_asymptote(
 
 
 def test_the_lowpass_floor_is_the_minimum_of_an_independent_solve():
-    from filtertwin.design import design_filter
+    from filtertwin.circuit.design import design_filter
 
     d = design_filter(
         response="lowpass", alignment="butterworth", order=4, corner="1 kHz",

@@ -1,4 +1,4 @@
-"""Tests of filtertwin.sensorcsv: sensor tables read through filtertwin.recordings.inspect.
+"""Tests of filtertwin.files.sensorcsv: sensor tables read through recordings.inspect.
 
 Outside references: ``numpy.loadtxt`` for CSV contents, ``numpy.median`` for the rate of a
 time column, and rates worked out by hand from the time steps (noted beside each).
@@ -11,10 +11,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from filtertwin import sensorcsv
 from filtertwin.errors import UserInputError
-from filtertwin.outputs import write_csv
-from filtertwin.recordings import inspect, read_all, read_blocks
+from filtertwin.files import sensorcsv
+from filtertwin.files.outputs import write_csv
+from filtertwin.files.recordings import inspect, read_all, read_blocks
 
 
 def _noise(frames: int, channels: int, seed: int = 7) -> np.ndarray:

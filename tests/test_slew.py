@@ -10,10 +10,10 @@ import numpy as np
 import soundfile as sf
 
 from filtertwin import cli
-from filtertwin.design import build_design
-from filtertwin.engine import CascadeRunner
-from filtertwin.spec import parse_design
-from filtertwin.twin import build_twin, slew_rate_needed_hz
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import parse_design
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.twin import build_twin, slew_rate_needed_hz
 
 SLOW = {"preset": "general-purpose bipolar"}  # 0.5 V/us, swing 13 V (sallenkey presets)
 SLOW_SR = 0.5e6  # V/s

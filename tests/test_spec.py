@@ -6,9 +6,9 @@ import textwrap
 
 import pytest
 
-from filtertwin.design import build_design
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import load_design
 from filtertwin.errors import UserInputError
-from filtertwin.spec import load_design
 
 GOOD = """
 [[filter]]

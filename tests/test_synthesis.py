@@ -6,9 +6,9 @@ import pytest
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
-from filtertwin import eseries
-from filtertwin.sallenkey import analyze
-from filtertwin.synthesis import PartRules, SynthesisError, synthesize
+from filtertwin.circuit import eseries
+from filtertwin.circuit.sallenkey import analyze
+from filtertwin.circuit.synthesis import PartRules, SynthesisError, synthesize
 
 RULES = PartRules()  # E96 resistors, E12 capacitors, 1k..100k, 100p..1u
 
@@ -122,7 +122,7 @@ def test_everyday_targets_land_within_half_a_percent(kind, f0, q):
 def test_an_f0_no_part_combination_reaches_is_named_with_the_time_constant_it_needs():
     import re
 
-    from filtertwin.design import design_filter
+    from filtertwin.circuit.design import design_filter
     from filtertwin.errors import UserInputError
 
     # 1 Hz needs sqrt(R1 R2 C1 C2) = 1 / (2 pi f0) = 0.159 s (the textbook Sallen-Key f0);

@@ -9,9 +9,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from filtertwin import recordings
 from filtertwin.errors import UserInputError
-from filtertwin.timestamps import is_iso_time, parse_iso_time, seconds_since_many
+from filtertwin.files import recordings
+from filtertwin.files.timestamps import is_iso_time, parse_iso_time, seconds_since_many
 
 # The forms loggers write (ISO 8601 extended format, "T" or space): no zone, "Z", +HH:MM and
 # +HHMM offsets, 0 to 6 fractional digits with "." or ",".

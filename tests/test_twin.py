@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from filtertwin.design import build_design
+from filtertwin.circuit.design import build_design
+from filtertwin.circuit.spec import parse_design
+from filtertwin.digital.twin import bilinear_section, build_twin, characteristic_hz
 from filtertwin.errors import UserInputError
-from filtertwin.spec import parse_design
-from filtertwin.twin import bilinear_section, build_twin, characteristic_hz
 
 AMP = {"gbw": "3 MHz", "swing": "13 V", "slew": "10 V/us"}
 
@@ -173,9 +173,9 @@ def test_the_twin_follows_the_output_resistance_floor_when_oversampled_enough():
 
 def test_the_largest_deviation_is_placed_on_the_response_and_sized_re_the_peak():
     from filtertwin import examples
+    from filtertwin.circuit.spec import load_design
+    from filtertwin.digital.twin import resampling_response
     from filtertwin.report.design_text import fidelity_line
-    from filtertwin.spec import load_design
-    from filtertwin.twin import resampling_response
 
     design = build_design(load_design(examples.resolve("bookshelf-2way")))
     twin = build_twin(design, 48000.0, oversampling=8)

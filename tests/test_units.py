@@ -1,4 +1,4 @@
-"""Tests of filtertwin.units against the IEC 60062 letter code and SI prefixes."""
+"""Tests of filtertwin.circuit.units against the IEC 60062 letter code and SI prefixes."""
 
 import math
 
@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from filtertwin import eseries
-from filtertwin.units import format_letter_code, format_si, parse_quantity
+from filtertwin.circuit import eseries
+from filtertwin.circuit.units import format_letter_code, format_si, parse_quantity
 
 
 @pytest.mark.parametrize(
@@ -312,7 +312,7 @@ def test_ambiguous_unit_letters_are_refused_with_one_fix(text, match):
 
 
 def test_a_refusal_in_a_design_file_gives_one_fix(tmp_path):
-    from filtertwin.spec import load_design
+    from filtertwin.circuit.spec import load_design
 
     path = tmp_path / "d.toml"
     path.write_text('[[filter]]\nname = "lp"\nresponse = "lowpass"\nalignment = "butterworth"\n'

@@ -17,9 +17,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from filtertwin import cli, outputs
+from filtertwin import cli
+from filtertwin.digital.numbacache import choose_cache_dir
 from filtertwin.errors import UserInputError
-from filtertwin.numbacache import choose_cache_dir
+from filtertwin.files import outputs
 
 SAMPLES = Path(__file__).resolve().parent.parent / "audio_samples"
 PROGRAM = SAMPLES / "program_48k.wav"
@@ -186,7 +187,7 @@ def test_kernels_compile_without_a_cache_when_no_folder_can_hold_one(tmp_path):
     script = f"""
 import tempfile
 from pathlib import Path
-from filtertwin import numbacache
+from filtertwin.digital import numbacache
 
 def refuse(*a, **k):
     raise PermissionError(13, "Permission denied")

@@ -8,15 +8,16 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from filtertwin import examples, sallenkey
-from filtertwin.design import build_design, with_built_filters
+from filtertwin import examples
+from filtertwin.circuit import sallenkey
+from filtertwin.circuit.design import build_design, with_built_filters
+from filtertwin.circuit.spec import load_design
+from filtertwin.digital.twin import build_twin
 from filtertwin.errors import UserInputError
 from filtertwin.live.candidates import way_names
 from filtertwin.live.edits import PartEdit, edit_corner, edit_part
 from filtertwin.live.tap import SignalTap
 from filtertwin.live.window import savefile, views
-from filtertwin.spec import load_design
-from filtertwin.twin import build_twin
 
 RATE_HZ = 48000.0
 

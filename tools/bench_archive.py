@@ -40,7 +40,7 @@ HERE = Path(__file__).resolve().parent
 
 def spec():  # type: ignore[no-untyped-def]
     from filtertwin.archive.scan import Candidate, ScanSpec
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
 
     a, b = load("vibration-antialias"), load("candidate-bessel")
     cands = (Candidate("butterworth 2.2k", a, "antialias"), Candidate("bessel 3k", b, "topcut"))

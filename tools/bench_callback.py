@@ -40,7 +40,7 @@ import numpy as np
 import scipy
 from scipy import signal
 
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital.engine import CascadeRunner
 from filtertwin.live.hiss import NoiseAdder, noise_ring
 from filtertwin.live.player import warm_up
 from filtertwin.live.ring import BlockRing
@@ -158,10 +158,10 @@ def noise_thread_share(chunks: int = 30) -> float:
     """CPU time the noise thread takes (fraction of one core) to make the noise of two
     one-filter designs, stereo, at 48 kHz: its shaping FIRs on 8192-frame chunks."""
     from filtertwin import examples
-    from filtertwin.design import build_design
+    from filtertwin.circuit.design import build_design
+    from filtertwin.circuit.noise import CircuitNoiseSource
+    from filtertwin.circuit.spec import load_design
     from filtertwin.live.hiss import CHUNK_FRAMES
-    from filtertwin.noise import CircuitNoiseSource
-    from filtertwin.spec import load_design
 
     sources = []
     for name in ("candidate-butterworth", "candidate-bessel"):

@@ -80,10 +80,12 @@ def soundfile_copy(source: Path, target: Path, block: int) -> None:
 
 
 def render_once(source: Path, out: Path, oversampling: int | str, spectra: bool, block: int):
-    from filtertwin import examples, recordings, render
-    from filtertwin.design import build_design
-    from filtertwin.spec import load_design
-    from filtertwin.twin import build_twin
+    from filtertwin import examples
+    from filtertwin.circuit.design import build_design
+    from filtertwin.circuit.spec import load_design
+    from filtertwin.digital import render
+    from filtertwin.digital.twin import build_twin
+    from filtertwin.files import recordings
 
     info = recordings.inspect(source)
     design = build_design(load_design(examples.resolve(DESIGN)))
@@ -97,7 +99,7 @@ def render_once(source: Path, out: Path, oversampling: int | str, spectra: bool,
 def resampling_run(seconds: float, factor: int, ways: int, block: int) -> Callable[[], None]:
     """The render's resampling alone: ``Upsampler`` on every input block and ``Downsampler``
     on every filter's high-rate output, as many blocks as the render (one call runs it)."""
-    from filtertwin.resample import Downsampler, Upsampler
+    from filtertwin.digital.resample import Downsampler, Upsampler
 
     blocks = -(-int(seconds * RATE_HZ) // block)
     x = np.zeros((block, CHANNELS))
@@ -126,9 +128,9 @@ def resampling_share(render: Callable[[], object], resampling: Callable[[], None
 
 def sosfilt_in_memory(source: Path, repeats: int) -> float:
     from filtertwin import examples
-    from filtertwin.design import build_design
-    from filtertwin.spec import load_design
-    from filtertwin.twin import build_twin
+    from filtertwin.circuit.design import build_design
+    from filtertwin.circuit.spec import load_design
+    from filtertwin.digital.twin import build_twin
 
     data, rate = sf.read(source, dtype="float64", always_2d=True)
     twin = build_twin(build_design(load_design(examples.resolve(DESIGN))), rate, oversampling=1)

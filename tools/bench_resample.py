@@ -11,9 +11,9 @@ For each of 2x, 4x and 8x, one run measures, on the same machine and data:
 * speed: seconds per second of stereo 48 kHz audio to raise the rate and lower it again, in
   16384-frame blocks (median of repeats), and the ratio to the previous resampler.
 
-"previous": :class:`filtertwin.resample.StreamResampler` with the FIR of
+"previous": :class:`filtertwin.digital.resample.StreamResampler` with the FIR of
 ``scipy.signal.resample_poly`` (Kaiser beta 5, 10 zero crossings), which render used before.
-"half-band cascade": :class:`~filtertwin.resample.Upsampler` / ``Downsampler``, what render,
+"half-band cascade": :class:`~filtertwin.digital.resample.Upsampler` / ``Downsampler``, what render,
 listen and the anti-alias check use now. "soxr VHQ": ``soxr.ResampleStream`` (PyPI ``soxr``),
 for scale only; it is not a dependency.
 """
@@ -29,7 +29,7 @@ from collections.abc import Callable
 import numpy as np
 from scipy import signal
 
-from filtertwin.resample import Downsampler, StreamResampler, Upsampler, delay_frames
+from filtertwin.digital.resample import Downsampler, StreamResampler, Upsampler, delay_frames
 
 RATE_HZ = 44100.0
 TIME_RATE_HZ = 48000.0

@@ -1,4 +1,4 @@
-"""Benchmark of the compiled cascade runner (`filtertwin.engine`) against scipy.signal.sosfilt.
+"""Benchmark of the compiled runner (`filtertwin.digital.engine`) against scipy.signal.sosfilt.
 
 Not a test: it prints figures for a person to read. Every timing is the median of repeats,
 taken in turns with the reference so that a busy machine slows both, and every figure is also
@@ -47,7 +47,7 @@ import numpy as np
 import scipy
 import scipy.signal
 
-from filtertwin.engine import CascadeRunner, warm_up
+from filtertwin.digital.engine import CascadeRunner, warm_up
 
 RATE_HZ = 48000
 CHANNELS = 2
@@ -247,7 +247,7 @@ sos = np.array(json.loads(sys.argv[1]))
 block = np.zeros((64, 2))
 ready = time.perf_counter()
 if sys.argv[2] == "runner":
-    from filtertwin import engine
+    from filtertwin.digital import engine
     engine.warm_up()
     engine.CascadeRunner([sos], 2, 64).process(block)
 else:

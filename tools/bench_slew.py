@@ -1,4 +1,4 @@
-"""Benchmark of the slew-limited cascade runner against the plain one (`filtertwin.engine`).
+"""Benchmark of the slew-limited cascade runner against the plain one (`filtertwin.digital.engine`).
 
 Not a test: it prints figures for a person to read. Every timing is the median of repeats,
 the runners taken in turns so that a busy machine slows them all, and every figure is also
@@ -44,7 +44,7 @@ from bench_runner import (  # noqa: E402
     per_call,
     print_table,
 )
-from filtertwin.engine import CascadeRunner, warm_up  # noqa: E402
+from filtertwin.digital.engine import CascadeRunner, warm_up  # noqa: E402
 
 RATE_HZ = 384000.0
 CHANNELS = 2

@@ -3,7 +3,7 @@
 The vectorised run is ``filtertwin.checks.tolerance.run_tolerance`` (parts drawn, every
 stage's polynomials for all builds at once, magnitude at every frequency, envelope, f0/Q
 spread, mask yield, worst build). The reference does the same work one build at a time with
-``filtertwin.sallenkey.analyze`` (polynomials, f0 and Q) and ``scipy.signal.freqs``; it is
+``filtertwin.circuit.sallenkey.analyze`` (polynomials, f0 and Q) and ``scipy.signal.freqs``; it is
 timed on a few hundred builds and scaled to the full count.
 
 Usage::
@@ -23,9 +23,9 @@ import time
 import numpy as np
 import scipy.signal
 
-from filtertwin import sallenkey
 from filtertwin.checks.tolerance import draw_parts, run_tolerance
-from filtertwin.design import Design, design_filter
+from filtertwin.circuit import sallenkey
+from filtertwin.circuit.design import Design, design_filter
 
 TARGET_S = 1.0
 

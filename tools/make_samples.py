@@ -1,6 +1,6 @@
 """Regenerate the invented demo recordings in audio_samples/, byte for byte.
 
-The synthesis lives in ``filtertwin.samples`` (fixed seeds, nothing time-dependent).
+The synthesis lives in ``filtertwin.files.samples`` (fixed seeds, nothing time-dependent).
 
 Usage::
 
@@ -22,10 +22,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, default=REPO / "audio_samples", help="folder")
     args = parser.parse_args(argv)
     try:
-        from filtertwin import samples
+        from filtertwin.files import samples
     except ImportError:  # not installed: use this checkout's src/
         sys.path.insert(0, str(REPO / "src"))
-        from filtertwin import samples
+        from filtertwin.files import samples
     for path in samples.write_all(args.out):
         print(f"{path.stat().st_size:>10} bytes  {path}")
     return 0

@@ -25,11 +25,11 @@ SAFETY_NOTE = (
 
 
 def cmd_design(args: argparse.Namespace) -> int:
-    from filtertwin.design import load
-    from filtertwin.noise import design_noise
-    from filtertwin.outputs import atomic_path
+    from filtertwin.circuit.design import load
+    from filtertwin.circuit.noise import design_noise
+    from filtertwin.digital.twin import build_twin
+    from filtertwin.files.outputs import atomic_path
     from filtertwin.report.design_text import BOM_COLUMNS, bom_rows, design_dict, design_table
-    from filtertwin.twin import build_twin
 
     design = load(args.design)
     twin = (
@@ -56,8 +56,8 @@ def cmd_design(args: argparse.Namespace) -> int:
 def noise_band(given: list[float] | None, rate_hz: float | None) -> tuple[float, float] | None:
     """The band of the noise figures: as given, the twin's band at a sensor rate, or None
     (the audio band)."""
+    from filtertwin.digital.twin import default_band_hz
     from filtertwin.errors import UserInputError
-    from filtertwin.twin import default_band_hz
 
     if given:
         lo, hi = given
@@ -140,7 +140,7 @@ def _extra_commands() -> list[Callable[[Any], None]]:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    from filtertwin.numbacache import choose_cache_dir
+    from filtertwin.digital.numbacache import choose_cache_dir
 
     notice = choose_cache_dir()  # before any numba import
     if notice:

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from filtertwin import units
+from filtertwin.circuit import units
 from filtertwin.errors import UserInputError
 
 __all__ = [

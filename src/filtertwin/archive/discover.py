@@ -8,7 +8,7 @@ from collections.abc import Iterable
 from pathlib import Path
 
 from filtertwin.errors import UserInputError
-from filtertwin.sensorcsv import CSV_SUFFIXES
+from filtertwin.files.sensorcsv import CSV_SUFFIXES
 
 __all__ = ["RECORDING_SUFFIXES", "find_recordings", "is_pattern"]
 

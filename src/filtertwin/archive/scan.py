@@ -2,7 +2,8 @@
 
 :func:`scan_file` reads the file once in blocks (memory set by the block size, never by the
 length of the file), runs every candidate's digital twin over all its channels (the GIL-free
-:class:`~filtertwin.engine.CascadeRunner` through :class:`~filtertwin.render.TwinStream`), and
+:class:`~filtertwin.digital.engine.CascadeRunner` through
+:class:`~filtertwin.digital.render.TwinStream`), and
 measures the short-time aliased power of the unfiltered and every filtered stream
 (:mod:`filtertwin.archive.windows`). It then reads the stretch around the file's worst moment
 (at most :data:`CHECK_FRAMES` frames) and runs the single-recording check,
@@ -23,7 +24,6 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin import recordings
 from filtertwin.archive.calibration import (
     Calibration,
     Sensitivity,
@@ -32,11 +32,12 @@ from filtertwin.archive.calibration import (
 )
 from filtertwin.archive.windows import Event, EventKeeper, PooledSeries, WindowPlan, plan_windows
 from filtertwin.checks.alias import alias_frequency, check_alias, ideal_dynamic_range_db
-from filtertwin.design import Design
+from filtertwin.circuit.design import Design
+from filtertwin.digital.render import TwinStream
+from filtertwin.digital.twin import Twin, build_twin
 from filtertwin.errors import UserInputError
-from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.render import TwinStream
-from filtertwin.twin import Twin, build_twin
+from filtertwin.files import recordings
+from filtertwin.files.recordinginfo import RecordingInfo
 
 __all__ = [
     "CHECK_FRAMES",

@@ -30,7 +30,7 @@ from filtertwin.checks import foldpower, stopband
 from filtertwin.checks.droop import DEFAULT_MAX_DROOP_DB, Droop, band_within_droop, passband_droop
 from filtertwin.checks.foldpower import SpectrumPlan, Tone, alias_frequency
 from filtertwin.checks.stopband import StopbandPlan
-from filtertwin.design import Design, Filter
+from filtertwin.circuit.design import Design, Filter
 from filtertwin.errors import UserInputError
 
 __all__ = [

@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 import scipy.optimize
 
-from filtertwin.design import Design, Filter
+from filtertwin.circuit.design import Design, Filter
 from filtertwin.errors import UserInputError
 
 __all__ = [

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from filtertwin.checks.tolerance import passband_edges_hz
-from filtertwin.design import Filter
+from filtertwin.circuit.design import Filter
 from filtertwin.errors import UserInputError
 
 __all__ = ["DEFAULT_MAX_DROOP_DB", "Droop", "band_within_droop", "passband_droop"]

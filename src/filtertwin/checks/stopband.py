@@ -31,9 +31,9 @@ from typing import Any
 import numpy as np
 import scipy.signal
 
-from filtertwin import twin as twin_mod
 from filtertwin.checks.foldpower import fold_mask
-from filtertwin.design import Design, Filter
+from filtertwin.circuit.design import Design, Filter
+from filtertwin.digital import twin as twin_mod
 
 __all__ = ["StopbandPlan", "fold_grid", "plan_oversampling", "resampling_taps", "run"]
 

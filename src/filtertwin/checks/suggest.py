@@ -28,10 +28,10 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin import prototypes
 from filtertwin.checks import tolerance
 from filtertwin.checks.droop import passband_droop
-from filtertwin.design import Design, build_design
+from filtertwin.circuit import prototypes
+from filtertwin.circuit.design import Design, build_design
 from filtertwin.errors import UserInputError
 
 __all__ = ["DEFAULT_BUILDS", "DEFAULT_MIN_YIELD", "Suggestion", "suggest_designs", "design_toml"]
@@ -207,7 +207,7 @@ def _data(base: Design | None, alignment: str, order: int, ripple: float | None,
 
 
 def _build(data: dict[str, Any]) -> Design:
-    from filtertwin.spec import parse_design
+    from filtertwin.circuit.spec import parse_design
 
     return build_design(parse_design(data, "<suggestion>"))
 
@@ -425,7 +425,7 @@ def write_design(path: str | Path, text: str, protect: tuple[Path, ...] = ()) ->
     UserInputError
         If ``path`` exists.
     """
-    from filtertwin.outputs import atomic_path
+    from filtertwin.files.outputs import atomic_path
 
     path = Path(path)
     if path.exists():

@@ -9,7 +9,8 @@ every capacitor within ``parts.capacitor_tolerance`` of its nominal value, indep
 
 The amplifier model (gain-bandwidth, DC gain) is the design's, the same for every build.
 Every stage's s-polynomials are computed for all builds at once from the closed-form
-Sallen-Key network equations (the same algebra as :func:`filtertwin.sallenkey.transfer_function`)
+Sallen-Key network equations (the same algebra as
+:func:`filtertwin.circuit.sallenkey.transfer_function`)
 and evaluated at all frequencies with one small matrix product per polynomial.
 
 References
@@ -27,10 +28,10 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin import sallenkey
-from filtertwin.design import Design, Filter, with_built_filters
+from filtertwin.circuit import sallenkey
+from filtertwin.circuit.design import Design, Filter, with_built_filters
+from filtertwin.circuit.sallenkey import Amplifier
 from filtertwin.errors import UserInputError
-from filtertwin.sallenkey import Amplifier
 
 __all__ = [
     "DISTRIBUTIONS",
@@ -326,12 +327,12 @@ def stage_polynomials(
 ) -> tuple[np.ndarray, np.ndarray]:
     """s-domain transfer functions of one stage for many part sets at once.
 
-    The node equations of :mod:`filtertwin.sallenkey`, with every coefficient an array over
+    The node equations of :mod:`filtertwin.circuit.sallenkey`, with every coefficient an array over
     the builds: admittances Y1 (input), Y2 (into the amplifier), Y3 (to ground), Y4
     (feedback) and the amplifier G = Gn / Gd give H = Y1 Y2 Gn / (L Gd - Y4 Y2 Gn),
     L = Y1 (Y2 + Y3) + Y2 Y3 + Y4 (Y2 + Y3). Ideal amplifier: G = K = 1 + RF/RG;
     single-pole: G = wt / (s + wt/A0 + wt/K), plus the amplifier's output resistance terms
-    (see :mod:`filtertwin.sallenkey`). First order: 1 / (R1 C1 s + 1) (low-pass) or
+    (see :mod:`filtertwin.circuit.sallenkey`). First order: 1 / (R1 C1 s + 1) (low-pass) or
     R1 C1 s / (R1 C1 s + 1) (high-pass), times G.
 
     Parameters
@@ -351,7 +352,7 @@ def stage_polynomials(
 
     References
     ----------
-    Sallen & Key 1955; the same algebra as :func:`filtertwin.sallenkey.transfer_function`.
+    Sallen & Key 1955; the same algebra as :func:`filtertwin.circuit.sallenkey.transfer_function`.
     """
     r1 = np.asarray(parts["R1"], float)
     k = (
@@ -413,7 +414,7 @@ def stage_f0_q(order: int, a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
     Second-order network: w0 = sqrt(a2), Q = w0 / a1 (a0 = 1). With the amplifier pole
     (a cubic), that pole is the fastest real root and the other two are the stage's pair, as
-    in :func:`filtertwin.sallenkey.analyze`. First-order: the slowest root; Q is nan.
+    in :func:`filtertwin.circuit.sallenkey.analyze`. First-order: the slowest root; Q is nan.
     """
     n, m = a.shape
     if m == 2:  # first order, ideal amplifier

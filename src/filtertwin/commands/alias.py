@@ -108,9 +108,9 @@ def register(subparsers: Any) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from filtertwin import outputs, recordings
     from filtertwin.checks.alias import check_alias
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
+    from filtertwin.files import outputs, recordings
     from filtertwin.report.check_figures import alias_figure
 
     if alias_archive.wants_archive(args):
@@ -266,6 +266,6 @@ def _suggestion_text(check: Any, args: argparse.Namespace, found: Any, saved: st
 
 
 def _seconds(value_s: float) -> str:
-    from filtertwin.units import format_si
+    from filtertwin.circuit.units import format_si
 
     return format_si(value_s, "s", 4)

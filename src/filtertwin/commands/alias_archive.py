@@ -79,7 +79,7 @@ def _segment(text: str) -> tuple[float | None, float | None]:
 
 
 def _volts(text: str) -> float:
-    from filtertwin import units
+    from filtertwin.circuit import units
 
     try:
         value = units.parse_quantity(text, "V")
@@ -92,10 +92,10 @@ def _volts(text: str) -> float:
 
 def wants_archive(args: argparse.Namespace) -> bool:
     """True unless ``alias`` was given one short single-channel recording and one design."""
-    from filtertwin import recordings
     from filtertwin.archive.discover import is_pattern
     from filtertwin.checks.alias import MAX_FRAMES
     from filtertwin.commands.options import column
+    from filtertwin.files import recordings
 
     if len(args.recording) != 1 or args.candidate or args.segment or args.cluster:
         return True
@@ -190,7 +190,7 @@ def _spec(args: argparse.Namespace) -> Any:
 def _candidates(designs: list[str], filter_name: str | None) -> list[Any]:
     """Every anti-alias filter of every design (the one named with --filter, where given)."""
     from filtertwin.archive.scan import Candidate
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
 
     found = []
     for text in designs:

@@ -49,14 +49,14 @@ def register(subparsers: Any) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from filtertwin.checks.crossover import check_crossover
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
 
     design = load(args.design)
     lo, hi = args.band
     check = check_crossover(design, band_hz=(lo, hi), tolerance_db=args.tolerance_db)
     files = {}
     if args.out:
-        from filtertwin import outputs
+        from filtertwin.files import outputs
         from filtertwin.report.check_figures import crossover_figure
 
         with outputs.OutputRun(args.out) as written:  # a failure leaves nothing behind

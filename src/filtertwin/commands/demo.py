@@ -62,7 +62,7 @@ def _run(argv: list[str]) -> int:
 
 def _design_overview() -> None:
     from filtertwin import examples
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
 
     for name, summary in examples.listing():
         design = load(name)
@@ -82,7 +82,7 @@ def _audio_device_present() -> bool:
 
 
 def run(args: argparse.Namespace) -> int:
-    from filtertwin.outputs import prepare_folder
+    from filtertwin.files.outputs import prepare_folder
 
     out = Path(args.out)
     made = prepare_folder(out, "--out")  # one line, exit 2, when it cannot be written
@@ -95,7 +95,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _run_demo(out: Path) -> int:
-    from filtertwin import samples
+    from filtertwin.files import samples
 
     start = time.perf_counter()
     inputs = out / "inputs"

@@ -168,7 +168,7 @@ def _options(args: argparse.Namespace) -> Any:
 
 
 def _designs(names: list[str]) -> list[tuple[str, Any]]:
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
 
     return [(name, load(name)) for name in names]
 

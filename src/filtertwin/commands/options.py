@@ -17,7 +17,7 @@ from typing import Any
 
 def frequency_hz(text: str) -> float:
     """A positive frequency or rate: "48000", "8k", "2.2 kHz"."""
-    from filtertwin import units
+    from filtertwin.circuit import units
 
     try:
         value = units.parse_quantity(text, "Hz")
@@ -45,7 +45,7 @@ RESAMPLING_HELP = (
 
 
 def add_resampling(parser: Any) -> None:
-    """The ``--resampling linear|causal`` option (:data:`filtertwin.resample.PHASES`)."""
+    """The ``--resampling linear|causal`` option (:data:`filtertwin.digital.resample.PHASES`)."""
     parser.add_argument(
         "--resampling", choices=("linear", "causal"), default="linear", help=RESAMPLING_HELP
     )
@@ -68,7 +68,7 @@ def positive(kind: Callable[[str], Any], what: str) -> Callable[[str], Any]:
 
 DEFAULT_MAX_JITTER_PCT = 1.0
 """Largest deviation of a CSV time step from the typical one (same as
-``filtertwin.recordings.inspect``'s default 0.01)."""
+``filtertwin.files.recordings.inspect``'s default 0.01)."""
 
 
 def add_max_jitter(parser: argparse.ArgumentParser) -> None:
@@ -94,7 +94,7 @@ def out_folder(text: str) -> Path:
     UserInputError
         ``text`` names a file.
     """
-    from filtertwin.outputs import prepare_folder
+    from filtertwin.files.outputs import prepare_folder
 
     prepare_folder(text, "--out")
     return Path(text)
@@ -102,6 +102,6 @@ def out_folder(text: str) -> Path:
 
 def hz(value_hz: float) -> str:
     """A frequency for printed text: four significant digits and an SI prefix ("2.200 kHz")."""
-    from filtertwin.units import format_si
+    from filtertwin.circuit.units import format_si
 
     return format_si(value_hz, "Hz", 4)

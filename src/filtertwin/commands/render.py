@@ -143,8 +143,9 @@ class _ProgressBar(ProgressLine):
 
 def cmd_render(args: argparse.Namespace) -> int:
     """Run ``filtertwin render``; returns the exit status (0, or 1 when a verdict of
-    :func:`filtertwin.verdicts.render_verdicts` fails: fidelity, amplifier swing, PCM clip)."""
-    from filtertwin import recordings
+    :func:`filtertwin.checks.verdicts.render_verdicts` fails: fidelity, amplifier swing, PCM
+    clip)."""
+    from filtertwin.files import recordings
 
     if isinstance(args.input, list):
         if len(args.input) > 1 or not Path(args.input[0]).is_file():
@@ -157,11 +158,12 @@ def cmd_render(args: argparse.Namespace) -> int:
         jitter_limit=args.max_jitter / 100,
     )  # fmt: skip
 
-    from filtertwin import examples, render
-    from filtertwin.design import build_design
+    from filtertwin import examples
+    from filtertwin.circuit.design import build_design
+    from filtertwin.circuit.spec import load_design
+    from filtertwin.digital import render
+    from filtertwin.digital.twin import build_twin
     from filtertwin.report import summary
-    from filtertwin.spec import load_design
-    from filtertwin.twin import build_twin
 
     design = build_design(load_design(examples.resolve(args.design)))
     tolerance = None
@@ -189,7 +191,7 @@ def cmd_render(args: argparse.Namespace) -> int:
     ]
     render.refuse_input_overwrite([p.path for p in plan] + reported, info.path)
 
-    from filtertwin.outputs import prepare_folder
+    from filtertwin.files.outputs import prepare_folder
 
     made = [figure_dir] if not figure_dir.exists() else []  # deepest first
     made += prepare_folder(folder, "--out")  # one line, exit 2, when it cannot be written
@@ -199,7 +201,7 @@ def cmd_render(args: argparse.Namespace) -> int:
         bar = _ProgressBar(sys.stderr, info.rate_hz)
         noise = None
         if args.circuit_noise:
-            from filtertwin.noise import CircuitNoiseSource
+            from filtertwin.circuit.noise import CircuitNoiseSource
 
             names = [f.name for f in twin.filters]
             noise = CircuitNoiseSource(design, names, info.rate_hz, info.channels, seed=args.seed)
@@ -239,7 +241,7 @@ def cmd_render(args: argparse.Namespace) -> int:
 
 def _print_verdicts(result: Any, twin: Any) -> int:
     """Print each filter's fidelity, then every verdict of the render; the exit status."""
-    from filtertwin import verdicts
+    from filtertwin.checks import verdicts
     from filtertwin.report.design_text import fidelity_line
 
     for ft in twin.filters:

@@ -20,7 +20,7 @@ from filtertwin.errors import UserInputError
 # checks that they agree
 DISTRIBUTIONS = ("uniform", "gaussian")
 DEFAULT_RIPPLE_DB = 1.0
-DEFAULT_YIELD_PCT = 90.0  # filtertwin.verdicts.DEFAULT_YIELD_TARGET, in percent
+DEFAULT_YIELD_PCT = 90.0  # filtertwin.checks.verdicts.DEFAULT_YIELD_TARGET, in percent
 
 
 def register(subparsers: Any) -> None:
@@ -71,9 +71,10 @@ def _percent(text: str) -> float:
 
 
 def run(args: argparse.Namespace) -> int:
-    from filtertwin import outputs, verdicts
+    from filtertwin.checks import verdicts
     from filtertwin.checks.tolerance import run_tolerance
-    from filtertwin.design import load
+    from filtertwin.circuit.design import load
+    from filtertwin.files import outputs
 
     design = load(args.design)
     if args.seed is not None and args.seed < 0:
@@ -109,7 +110,7 @@ def _spread(s: Any, fmt: Any) -> str:
 
 
 def _text(result: Any, design: Any, files: dict[str, str]) -> str:
-    from filtertwin.units import format_letter_code
+    from filtertwin.circuit.units import format_letter_code
 
     def q(v: float) -> str:
         return f"{v:.3f}"

@@ -47,7 +47,7 @@ def resolve(arg: str) -> Path:
 
 def copy_to(folder: Path) -> list[Path]:
     """Copy every example into ``folder`` (created if missing); all or nothing."""
-    from filtertwin.outputs import OutputRun, atomic_path
+    from filtertwin.files.outputs import OutputRun, atomic_path
 
     with OutputRun(folder, "--copy") as written:
         for name in names():

@@ -15,7 +15,7 @@ Modules (import the one you need; none imports sounddevice at import time):
 - ``candidates``, ``routing``, ``matching``: the designs as candidates and ways, where each
   way is heard (stereo mix or one channel pair per way), level matching.
 - ``stream`` (audio callback, read-ahead thread), ``ring``: the real-time path (rate changes
-  come from ``filtertwin.resample``).
+  come from ``filtertwin.digital.resample``).
 - ``session``, ``edits``, ``chains``: what commands do (the session API), live part and
   corner edits with undo and redo, crossfading rebuilt chains in through a warm spare.
 - ``watchdog``: noticing a stream whose audio server quit, and closing without waiting on it.

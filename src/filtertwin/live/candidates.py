@@ -16,10 +16,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from filtertwin.design import Design
+from filtertwin.circuit.design import Design
+from filtertwin.digital.twin import Twin, build_twin
 from filtertwin.errors import UserInputError
 from filtertwin.live.mixer import Candidate, Layout
-from filtertwin.twin import Twin, build_twin
 
 WAY_OF_RESPONSE = {"lowpass": "low", "bandpass": "mid", "highpass": "high"}
 """The way name of a filter, from its response."""
@@ -124,7 +124,7 @@ def build_twins(
     """Each candidate's digital twin at ``rate_hz``, oversampled as render would.
 
     Every candidate gets the factor the offline rule picks for it (``oversampling="auto"``,
-    :func:`filtertwin.twin.build_twin`); one runner filters them all in the stream, so all
+    :func:`filtertwin.digital.twin.build_twin`); one runner filters them all in the stream, so all
     run at the largest of those factors (a higher factor only brings a twin closer to its
     analog model), with the same resampling filters as render.
     """

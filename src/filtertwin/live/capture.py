@@ -5,7 +5,7 @@ makes a second version of every chain's output and of the dry input: the signal 
 the ADC's rate with no filtering of its own, so every component above the ADC's Nyquist
 frequency lands at ``|f - k fs|`` (Oppenheim & Schafer 4.2), then resampled from the ADC's
 rate to the stream's rate with the band-limited low-pass of
-:class:`~filtertwin.resample.StreamResampler` (what a DAC plays back). The listener
+:class:`~filtertwin.digital.resample.StreamResampler` (what a DAC plays back). The listener
 switches between the signal and its capture with a crossfade, so the capture sources are
 aligned in time with the direct ones.
 
@@ -27,9 +27,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from filtertwin.checks.alias import interpolator_taps
-from filtertwin.design import Design
+from filtertwin.circuit.design import Design
+from filtertwin.digital.resample import MAX_FACTOR, StreamResampler, ratio
 from filtertwin.errors import UserInputError
-from filtertwin.resample import MAX_FACTOR, StreamResampler, ratio
 
 SEARCH_HZ = 2000
 """How far from the ADC rate given a rate with simple factors is looked for (suggestion)."""
@@ -66,7 +66,7 @@ class CapturePlan:
 
 
 def _factors(from_hz: float, to_hz: float) -> tuple[int, int] | None:
-    """:func:`~filtertwin.resample.ratio`, or None where it refuses the rates."""
+    """:func:`~filtertwin.digital.resample.ratio`, or None where it refuses the rates."""
     try:
         return ratio(from_hz, to_hz)
     except UserInputError:

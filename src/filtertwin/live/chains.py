@@ -22,7 +22,7 @@ from typing import Any, Protocol
 import numba
 import numpy as np
 
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital.engine import CascadeRunner
 
 SETTLE_BLOCKS = 2
 SETTLE_TIMEOUT_S = 0.25

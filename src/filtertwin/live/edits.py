@@ -2,10 +2,10 @@
 
 Both go through the tested design path: the filter's spec is replaced
 (:func:`dataclasses.replace`) and the whole design rebuilt with
-:func:`~filtertwin.design.build_design`.
+:func:`~filtertwin.circuit.design.build_design`.
 
 * A part edit turns the filter into one given by its parts (``kind = "built"``, one
-  :class:`~filtertwin.spec.BuiltStageSpec` per stage, with the stages' present parts and one
+  :class:`~filtertwin.circuit.spec.BuiltStageSpec` per stage, with the stages' present parts and one
   of them changed): ``part low 2 C1 +1`` steps C1 of stage 2 of the low way one value up
   its E-series (the design's capacitor series; resistors R1, R2 use the resistor series,
   RF, RG the gain series), ``part low 2 C1 22n`` sets it to 22 nF.
@@ -27,10 +27,10 @@ import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from filtertwin import eseries, units
-from filtertwin.design import Design, Filter, Stage, build_design, with_built_filters
+from filtertwin.circuit import eseries, units
+from filtertwin.circuit.design import Design, Filter, Stage, build_design, with_built_filters
+from filtertwin.circuit.spec import FilterSpec
 from filtertwin.errors import UserInputError
-from filtertwin.spec import FilterSpec
 
 PART_NAMES = ("R1", "R2", "C1", "C2", "RF", "RG")
 _STEPS = re.compile(r"^[+-]\d+$")

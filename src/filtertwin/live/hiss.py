@@ -1,8 +1,8 @@
 """The circuit's own noise in a live stream (``noise on|off``, key ``n``, ``--circuit-noise``).
 
 Every chain (a candidate's way) gets the noise its built board adds at its output: the
-density :func:`filtertwin.noise.filter_noise` computes from the node equations, made into a
-signal by :class:`filtertwin.noise.CircuitNoiseSource` (the same shaping FIR as
+density :func:`filtertwin.circuit.noise.filter_noise` computes from the node equations, made into a
+signal by :class:`filtertwin.circuit.noise.CircuitNoiseSource` (the same shaping FIR as
 ``render --circuit-noise``), in full-scale units at the stream's rate.
 
 Nothing of it is computed in the audio callback. :class:`NoiseFeeder` is a thread of its own
@@ -25,11 +25,11 @@ from typing import TYPE_CHECKING
 import numba
 import numpy as np
 
-from filtertwin.design import Design
+from filtertwin.circuit.design import Design
 from filtertwin.live.ring import BlockRing
 
 if TYPE_CHECKING:
-    from filtertwin.noise import CircuitNoiseSource
+    from filtertwin.circuit.noise import CircuitNoiseSource
 
 CHUNK_FRAMES = 8192
 """Frames of noise made per step of the thread (the shaping FIR is long: big steps)."""
@@ -176,7 +176,7 @@ class NoiseFeeder:
         self._poll_s = min(0.01, ring.capacity_frames / rate_hz / 8)
 
     def _source(self, design: Design) -> CircuitNoiseSource:
-        from filtertwin.noise import CircuitNoiseSource
+        from filtertwin.circuit.noise import CircuitNoiseSource
 
         names = [f.name for f in design.filters]
         seed = self.seed + self._builds

@@ -16,8 +16,8 @@ from collections.abc import Iterator
 
 import numpy as np
 
-from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.recordings import read_blocks
+from filtertwin.files.recordinginfo import RecordingInfo
+from filtertwin.files.recordings import read_blocks
 
 
 class LoopReader:

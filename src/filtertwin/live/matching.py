@@ -20,11 +20,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from filtertwin.design import Design
+from filtertwin.circuit.design import Design
+from filtertwin.digital.render import render_array
+from filtertwin.digital.twin import Twin
 from filtertwin.errors import UserInputError
 from filtertwin.live.loudness import integrated_loudness, matching_gain
-from filtertwin.render import render_array
-from filtertwin.twin import Twin
 
 MATCH_MODES = ("loudness", "gain", "off")
 BLOCK_FRAMES = 4096  # short compiled calls: the audio thread gets the interpreter lock
@@ -96,7 +96,8 @@ def twin_output(program: np.ndarray, twin: Twin) -> np.ndarray:
     program : numpy.ndarray
         ``(frames, channels)`` float64 samples at ``twin.input_rate_hz``.
     twin : Twin
-        The candidate's twin (oversampled as it plays: :func:`filtertwin.render.render_array`).
+        The candidate's twin (oversampled as it plays:
+        :func:`filtertwin.digital.render.render_array`).
 
     Returns
     -------

@@ -38,9 +38,12 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin import engine, recordings
-from filtertwin.design import Design
+from filtertwin.circuit.design import Design
+from filtertwin.digital import engine
+from filtertwin.digital.resample import ratio
 from filtertwin.errors import UserInputError
+from filtertwin.files import recordings
+from filtertwin.files.recordinginfo import RecordingInfo
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture as capture_mod
 from filtertwin.live import chains as chain_swaps
@@ -48,8 +51,6 @@ from filtertwin.live import devices, hiss, matching, mixer, ring, routing, safet
 from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
 from filtertwin.live.session import ListenSession
-from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.resample import ratio
 
 CHUNK_FRAMES = 1024
 MAX_CHANNELS = 2

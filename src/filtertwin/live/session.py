@@ -28,6 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
+from filtertwin.digital.twin import Twin, build_twin
 from filtertwin.errors import UserInputError
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture, edits, keys, matching, routing
@@ -38,7 +39,6 @@ from filtertwin.live.mixer import SUM, Selection
 from filtertwin.live.remeasure import LoudnessRemeasure
 from filtertwin.live.safety import MAX_LEVEL_DB, MIN_LEVEL_DB, OutputSafety
 from filtertwin.live.stream import StreamCore
-from filtertwin.twin import Twin, build_twin
 
 CONFIRM_WINDOW_S = 3.0
 POLL_EVERY_S = 0.005

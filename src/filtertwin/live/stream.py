@@ -4,7 +4,7 @@
 opens. Per block the callback only copies, multiplies and adds into those arrays:
 
 1. the input block: from the read-ahead ring (a recording) or from ``indata`` (live input);
-2. every chain's output: the :class:`~filtertwin.engine.CascadeRunner` filters the block
+2. every chain's output: the :class:`~filtertwin.digital.engine.CascadeRunner` filters the block
    (raised and lowered around it by :class:`Oversampling` when the twins run oversampled;
    a part edit's :class:`~filtertwin.live.chains.ChainBlend` runs beside it), or, when the
    read-ahead thread already filtered it, the ring carries the outputs;
@@ -41,14 +41,14 @@ from typing import TYPE_CHECKING, Any
 import numba
 import numpy as np
 
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.resample import Downsampler, StreamResampler, Upsampler, delay_frames
+from filtertwin.files.recordinginfo import RecordingInfo
 from filtertwin.live.chains import ChainBlend
 from filtertwin.live.looping import LoopReader
 from filtertwin.live.mixer import SelectionMixer
 from filtertwin.live.ring import BlockRing
 from filtertwin.live.safety import OutputSafety
-from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.resample import Downsampler, StreamResampler, Upsampler, delay_frames
 
 if TYPE_CHECKING:
     from filtertwin.live.capture import AdcCapture
@@ -115,9 +115,9 @@ class Oversampling:
     """The resamplers around an oversampled runner, and the dry input's matching delay.
 
     The runner runs at ``factor`` times the stream's rate: each block is raised by ``up``,
-    filtered, and every chain lowered by ``down`` (:mod:`filtertwin.resample`, the filters
+    filtered, and every chain lowered by ``down`` (:mod:`filtertwin.digital.resample`, the filters
     render uses; compiled, allocation-free). With linear-phase filters the chains come out
-    :func:`~filtertwin.resample.delay_frames` late, so the dry input (bypass and meters) is
+    :func:`~filtertwin.digital.resample.delay_frames` late, so the dry input (bypass and meters) is
     delayed as much to stay in step; causal filters' outputs are not shifted.
 
     Parameters

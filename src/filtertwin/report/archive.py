@@ -21,7 +21,7 @@ from matplotlib.figure import Figure
 
 from filtertwin.archive.scan import UNFILTERED, FileResult, ScanSpec
 from filtertwin.archive.summary import TABLE_COLUMNS, ArchiveSummary, table_rows, worst_events
-from filtertwin.outputs import atomic_path
+from filtertwin.files.outputs import atomic_path
 from filtertwin.report.html import ReportSection, write_html
 
 __all__ = ["NAMES", "events_figure", "write_archive_report"]

@@ -17,11 +17,11 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from filtertwin import units
 from filtertwin.checks.alias import AliasCheck
 from filtertwin.checks.crossover import CrossoverCheck
 from filtertwin.checks.tolerance import WORST_WINDOW_DB, FilterTolerance, ToleranceResult
-from filtertwin.outputs import atomic_path
+from filtertwin.circuit import units
+from filtertwin.files.outputs import atomic_path
 
 __all__ = ["alias_figure", "crossover_figure", "tolerance_figure"]
 

@@ -7,10 +7,10 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin import units
-from filtertwin.design import Design, Filter, Stage, StopbandFloor, lowpass_sections
-from filtertwin.noise import DesignNoise, NoiseFigures
-from filtertwin.twin import (
+from filtertwin.circuit import units
+from filtertwin.circuit.design import Design, Filter, Stage, StopbandFloor, lowpass_sections
+from filtertwin.circuit.noise import DesignNoise, NoiseFigures
+from filtertwin.digital.twin import (
     FIDELITY_TOL_DB,
     FIDELITY_TOL_DEG,
     OVERSAMPLING_FACTORS,
@@ -67,7 +67,7 @@ def resemblance(f: Filter) -> str:
     """The standard alignment an as-built filter is closest to, as a builder says it: a
     near-flat Chebyshev match is "close to Butterworth" with its Q error; the -3 dB point is
     the filter's own."""
-    from filtertwin.prototypes import NEAR_FLAT_RIPPLE_DB, q_deviation_pct
+    from filtertwin.circuit.prototypes import NEAR_FLAT_RIPPLE_DB, q_deviation_pct
 
     m = f.resembles
     assert m is not None

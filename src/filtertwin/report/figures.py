@@ -19,10 +19,10 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from filtertwin.design import Design
-from filtertwin.outputs import atomic_path
-from filtertwin.spectra import Spectrum
-from filtertwin.twin import FIDELITY_WINDOW_DB, FilterTwin, Twin, resampling_response
+from filtertwin.circuit.design import Design
+from filtertwin.digital.spectra import Spectrum
+from filtertwin.digital.twin import FIDELITY_WINDOW_DB, FilterTwin, Twin, resampling_response
+from filtertwin.files.outputs import atomic_path
 
 __all__ = ["response_figure", "save_png", "spectra_figure", "twin_response"]
 

@@ -24,7 +24,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from filtertwin.outputs import atomic_path
+from filtertwin.files.outputs import atomic_path
 
 __all__ = ["CAUTION", "ReportSection", "Table", "render_html", "write_html"]
 

@@ -14,16 +14,17 @@ from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from filtertwin import __version__, units
-from filtertwin.design import Design
-from filtertwin.noise import DesignNoise, design_noise
-from filtertwin.outputs import atomic_path
-from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.render import RenderResult, WrittenFile
+from filtertwin import __version__
+from filtertwin.circuit import units
+from filtertwin.circuit.design import Design
+from filtertwin.circuit.noise import DesignNoise, design_noise
+from filtertwin.digital.render import RenderResult, WrittenFile
+from filtertwin.digital.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG, Twin
+from filtertwin.files.outputs import atomic_path
+from filtertwin.files.recordinginfo import RecordingInfo
 from filtertwin.report import figures
 from filtertwin.report.design_text import BOM_COLUMNS, bom_rows, design_dict, noise_dict
 from filtertwin.report.html import CAUTION, ReportSection, write_html
-from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG, Twin
 
 if TYPE_CHECKING:
     from filtertwin.checks.crossover import CrossoverCheck
@@ -90,7 +91,7 @@ def summary_dict(
     Parameters
     ----------
     result : RenderResult
-        From :func:`filtertwin.render.render`.
+        From :func:`filtertwin.digital.render.render`.
     info : RecordingInfo
         The input.
     design, twin
@@ -350,7 +351,7 @@ def render_sections(
 
 
 def _check_rows(result: RenderResult, twin: Twin) -> list[tuple[str, str, str, str]]:
-    from filtertwin import verdicts  # the same verdicts the terminal prints and exits on
+    from filtertwin.checks import verdicts  # the same verdicts the terminal prints and exits on
 
     return verdicts.rows(verdicts.render_verdicts(result, twin))
 
@@ -410,7 +411,7 @@ def tolerance_section(result: ToleranceResult, figure: Path | None = None) -> Re
 
 
 def noise_section(noise: DesignNoise) -> ReportSection:
-    """The circuit's noise at every output, as a table (see :mod:`filtertwin.noise`)."""
+    """The circuit's noise at every output, as a table (see :mod:`filtertwin.circuit.noise`)."""
     lo, hi = noise.band_hz
     weighting = ", A-weighted figures per IEC 61672-1" if noise.weighted else ""
     text = (

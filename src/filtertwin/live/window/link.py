@@ -32,7 +32,7 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin.design import Design
+from filtertwin.circuit.design import Design
 from filtertwin.errors import UserInputError
 from filtertwin.live import keys
 from filtertwin.live.player import Player

@@ -15,11 +15,11 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
-from filtertwin import units
-from filtertwin.design import Design, build_design
+from filtertwin.circuit import units
+from filtertwin.circuit.design import Design, build_design
+from filtertwin.circuit.spec import FilterSpec, load_design
 from filtertwin.errors import UserInputError
-from filtertwin.outputs import atomic_path
-from filtertwin.spec import FilterSpec, load_design
+from filtertwin.files.outputs import atomic_path
 
 _BARE = frozenset("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789_-")
 _ALIGNMENT_KEYS = ("alignment", "order", "corner", "ripple", "bessel_norm", "section", "gain")

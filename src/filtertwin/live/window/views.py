@@ -12,10 +12,10 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin import units
-from filtertwin.design import Design, Stage
+from filtertwin.circuit import units
+from filtertwin.circuit.design import Design, Stage
+from filtertwin.digital.twin import FilterTwin, Twin
 from filtertwin.live.window.link import SessionView
-from filtertwin.twin import FilterTwin, Twin
 
 PLOT_POINTS = 240
 PLOT_LOW_HZ = 10.0

@@ -1,10 +1,11 @@
 """What a validated recording is, and the checks that every reader of recordings shares.
 
 :class:`RecordingInfo` (with :class:`CsvLayout` for sensor tables) is what
-:func:`filtertwin.recordings.inspect` returns and :func:`filtertwin.recordings.read_blocks`
+:func:`filtertwin.files.recordings.inspect` returns and
+:func:`filtertwin.files.recordings.read_blocks`
 reads from. The helpers below tell a file's real kind from its first bytes and pick the
-channels or columns a user asked for; the audio, NPY (:mod:`filtertwin.recordings`) and CSV
-(:mod:`filtertwin.sensorcsv`) readers all use them.
+channels or columns a user asked for; the audio, NPY (:mod:`filtertwin.files.recordings`) and CSV
+(:mod:`filtertwin.files.sensorcsv`) readers all use them.
 """
 
 from __future__ import annotations
@@ -71,7 +72,7 @@ class RecordingInfo:
     rate_hz : float
         Sample rate in Hz.
     channels : int
-        Channels that :func:`filtertwin.recordings.read_blocks` yields.
+        Channels that :func:`filtertwin.files.recordings.read_blocks` yields.
     frames : int
         Frames (samples per channel) in the file.
     channel_names : tuple of str

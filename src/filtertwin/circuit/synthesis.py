@@ -17,8 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from filtertwin import eseries
-from filtertwin.sallenkey import Amplifier, StageCircuit, analyze, f0_q
+from filtertwin.circuit import eseries
+from filtertwin.circuit.sallenkey import Amplifier, StageCircuit, analyze, f0_q
 
 
 class SynthesisError(ValueError):

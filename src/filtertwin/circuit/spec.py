@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from filtertwin import eseries, units
+from filtertwin.circuit import eseries, units
 from filtertwin.errors import UserInputError
 
 RESPONSES = ("lowpass", "highpass", "bandpass")
@@ -232,7 +232,7 @@ def _temperature_k(value: Any, ctx: _Ctx) -> float:
 
 
 def _amplifier(table: dict[str, Any], ctx: _Ctx) -> AmplifierSpec:
-    from filtertwin.sallenkey import AMPLIFIER_PRESETS
+    from filtertwin.circuit.sallenkey import AMPLIFIER_PRESETS
 
     allowed = (
         "preset",

@@ -1,11 +1,11 @@
 """Recordings in: audio, sensor tables and NumPy arrays validated once, then read in blocks.
 
 Reading is two steps. :func:`inspect` validates a file completely (one pass) and returns a
-:class:`~filtertwin.recordinginfo.RecordingInfo` that also records which columns or channels
+:class:`~filtertwin.files.recordinginfo.RecordingInfo` that also records which columns or channels
 to read; :func:`read_blocks` then streams float64 ``(frames, channels)`` blocks from it. Peak
 memory depends on the block size, never on the length of the file. Audio and NPY files are
-read here, sensor tables (CSV) in :mod:`filtertwin.sensorcsv`; outputs are written by
-:mod:`filtertwin.outputs`.
+read here, sensor tables (CSV) in :mod:`filtertwin.files.sensorcsv`; outputs are written by
+:mod:`filtertwin.files.outputs`.
 """
 
 from __future__ import annotations
@@ -18,9 +18,9 @@ from pathlib import Path
 import numpy as np
 import soundfile as sf
 
-from filtertwin import sensorcsv
 from filtertwin.errors import UserInputError
-from filtertwin.recordinginfo import (
+from filtertwin.files import sensorcsv
+from filtertwin.files.recordinginfo import (
     FILE_SIGNATURES,
     RecordingInfo,
     choose_indices,

@@ -2,7 +2,7 @@
 current noise, through each stage's node equations, to every filter's output.
 
 Each stage is solved node by node at every frequency (the network of
-:mod:`filtertwin.sallenkey`, the amplifier as a single-pole source behind its open-loop
+:mod:`filtertwin.circuit.sallenkey`, the amplifier as a single-pole source behind its open-loop
 output resistance), once per noise source: a resistor's thermal noise as a current source
 across it (4kT/R, the Norton form of 4kTR), the amplifier's voltage noise in series with its
 + input, its current noise into each input. The sources are uncorrelated, so their output
@@ -31,9 +31,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from filtertwin import sallenkey
-from filtertwin.design import Design, Filter
-from filtertwin.sallenkey import Amplifier, StageCircuit
+from filtertwin.circuit import sallenkey
+from filtertwin.circuit.design import Design, Filter
+from filtertwin.circuit.sallenkey import Amplifier, StageCircuit
 
 BOLTZMANN_J_PER_K = 1.380649e-23  # exact (SI 2019)
 DEFAULT_TEMPERATURE_K = 298.15  # 25 degrees C
@@ -411,7 +411,7 @@ def largest_output_peak_v(f: Filter, amp: Amplifier | None, full_scale_v: float)
     """Peak of the largest passband output sine no stage clips at, V (None: ideal amplifier).
 
     The input may rise until the first stage output reaches the swing at its worst
-    frequency (:attr:`filtertwin.design.Stage.clip_input_dbfs`); the output is then that
+    frequency (:attr:`filtertwin.circuit.design.Stage.clip_input_dbfs`); the output is then that
     input through the passband gain, and never more than the swing.
     """
     if amp is None:
@@ -444,7 +444,7 @@ def design_noise(
 
     Examples
     --------
-    >>> from filtertwin.design import load
+    >>> from filtertwin.circuit.design import load
     >>> n = design_noise(load("bookshelf-2way"))
     >>> [f.name for f in n.filters], n.sum is not None
     (['woofer', 'tweeter'], True)

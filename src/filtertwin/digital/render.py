@@ -1,11 +1,11 @@
 """Offline rendering: a recording through the digital twin, block by block, into files.
 
-The recording is read in blocks (:func:`filtertwin.recordings.read_blocks`), every block goes
-through all filters of the twin at once (:class:`filtertwin.engine.CascadeRunner`), and the
+The recording is read in blocks (:func:`filtertwin.files.recordings.read_blocks`), every block goes
+through all filters of the twin at once (:class:`filtertwin.digital.engine.CascadeRunner`), and the
 input as heard, each filter's output and, for a crossover, the sum of the ways are written as
 they come. Memory depends on the block size, never on the length of the recording.
 
-When the twin runs oversampled, :class:`filtertwin.resample.StreamResampler` resamples
+When the twin runs oversampled, :class:`filtertwin.digital.resample.StreamResampler` resamples
 the stream up and each filter's output down with the FIR design of
 ``scipy.signal.resample_poly`` (Kaiser window, beta 5, 10 zero crossings per side at the lower
 rate) and carries its state across blocks, so the output does not depend on the block size.
@@ -31,17 +31,17 @@ from typing import TYPE_CHECKING
 import numpy as np
 import soundfile
 
-from filtertwin import outputs, recordings
-from filtertwin.engine import CascadeRunner
+from filtertwin.digital.engine import CascadeRunner
+from filtertwin.digital.resample import Downsampler, Upsampler
+from filtertwin.digital.resample import delay_frames as resample_delay_frames
+from filtertwin.digital.spectra import Spectrum, WelchAccumulator, segment_frames
+from filtertwin.digital.twin import Twin
 from filtertwin.errors import UserInputError
-from filtertwin.recordinginfo import RecordingInfo
-from filtertwin.resample import Downsampler, Upsampler
-from filtertwin.resample import delay_frames as resample_delay_frames
-from filtertwin.spectra import Spectrum, WelchAccumulator, segment_frames
-from filtertwin.twin import Twin
+from filtertwin.files import outputs, recordings
+from filtertwin.files.recordinginfo import RecordingInfo
 
 if TYPE_CHECKING:
-    from filtertwin.noise import CircuitNoiseSource
+    from filtertwin.circuit.noise import CircuitNoiseSource
 
 __all__ = [
     "PlannedOutput",
@@ -73,7 +73,7 @@ class TwinStream:
     Parameters
     ----------
     twin : Twin
-        From :func:`filtertwin.twin.build_twin`; oversampled twins get resampling.
+        From :func:`filtertwin.digital.twin.build_twin`; oversampled twins get resampling.
     channels : int
         Channels of the signal.
     max_frames : int
@@ -483,7 +483,7 @@ def render(
     twin : Twin
         Built at ``info.rate_hz`` (any oversampling).
     info : RecordingInfo
-        The validated input (:func:`filtertwin.recordings.inspect`).
+        The validated input (:func:`filtertwin.files.recordings.inspect`).
     plan : sequence of PlannedOutput
         From :func:`plan_outputs` with the twin's filter names, in order.
     subtype : str or None

@@ -18,7 +18,7 @@ import tempfile
 from collections.abc import Iterable, MutableMapping
 from pathlib import Path
 
-PACKAGE_DIRS = (Path(__file__).parent, Path(__file__).parent / "live")
+PACKAGE_DIRS = (Path(__file__).parent, Path(__file__).parent.parent / "live")
 """Folders holding modules with cached kernels: numba writes beside each one."""
 
 

@@ -4,10 +4,10 @@ A table has one row per sample, optionally a header row (and a row of units unde
 ``#`` comment lines; fields are separated by commas, semicolons, tabs or runs of spaces, and
 numbers may use a decimal comma when fields are not separated by commas. The sample rate
 comes from a time column (seconds, or ``ms``/``us`` by its name, or ISO-8601 date and time
-stamps, :mod:`filtertwin.timestamps`) or is given.
+stamps, :mod:`filtertwin.files.timestamps`) or is given.
 :func:`inspect_csv` checks every row once; :func:`csv_blocks` then reads the chosen columns
 in blocks, parsing :data:`CSV_BATCH_LINES` lines at a time. Users reach both through
-:func:`filtertwin.recordings.inspect` and :func:`filtertwin.recordings.read_blocks`.
+:func:`filtertwin.files.recordings.inspect` and :func:`filtertwin.files.recordings.read_blocks`.
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ from typing import TextIO
 import numpy as np
 
 from filtertwin.errors import UserInputError
-from filtertwin.recordinginfo import (
+from filtertwin.files.recordinginfo import (
     FILE_SIGNATURES,
     CsvLayout,
     RecordingInfo,
@@ -30,7 +30,7 @@ from filtertwin.recordinginfo import (
     head_bytes,
     is_text,
 )
-from filtertwin.timestamps import is_iso_time, parse_iso_time, seconds_since_many
+from filtertwin.files.timestamps import is_iso_time, parse_iso_time, seconds_since_many
 
 __all__ = ["CSV_BATCH_LINES", "CSV_SUFFIXES", "csv_blocks", "inspect_csv"]
 
@@ -54,7 +54,9 @@ def inspect_csv(
     time_column: str | int | None,
     jitter_limit: float,
 ) -> RecordingInfo:
-    """Validate a sensor table completely; the CSV part of :func:`filtertwin.recordings.inspect`.
+    """Validate a sensor table completely.
+
+    The CSV part of :func:`filtertwin.files.recordings.inspect`.
 
     Parameters
     ----------

@@ -40,7 +40,7 @@ to one without limits. Each section keeps its last output value for this between
 after a block run without slew limits, the kernel recovers it from the cascade's working rows.
 The model is only as fine as the rate: a sine's step per sample, 2 A sin(pi f / rate), is
 short of its slope times the sample period by 1 - sinc, so a twin near its slew limit runs
-oversampled (:func:`filtertwin.twin.slew_rate_needed_hz`).
+oversampled (:func:`filtertwin.digital.twin.slew_rate_needed_hz`).
 
 A block whose input holds NaN or inf, or after which a chain's state is no longer finite,
 resets that chain's state and zeroes that chain's output for the block.
@@ -89,7 +89,7 @@ _PLAIN, _CLAMP, _SLEW = 0, 1, 2
 
 class _Float64x4(types.Type):
     def __init__(self) -> None:
-        super().__init__(name="filtertwin.engine.float64x4")
+        super().__init__(name="filtertwin.digital.engine.float64x4")
 
 
 _VEC = _Float64x4()

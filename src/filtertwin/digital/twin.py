@@ -18,8 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from filtertwin import resample
-from filtertwin.design import Design, Filter
+from filtertwin.circuit.design import Design, Filter
+from filtertwin.digital import resample
 from filtertwin.errors import UserInputError
 
 # A dB or degree difference means nothing this far below the peak: below it the complex
@@ -133,7 +133,7 @@ class Twin:
     oversampling : int
     filters : tuple of FilterTwin
     resampling : str
-        ``"linear"`` or ``"causal"`` (:data:`filtertwin.resample.PHASES`); what the up and
+        ``"linear"`` or ``"causal"`` (:data:`filtertwin.digital.resample.PHASES`); what the up and
         down resampling filters are when ``oversampling`` > 1.
     """
 
@@ -164,7 +164,7 @@ class Twin:
 
     def slew_steps(self) -> list[np.ndarray]:
         """Per filter, the largest step per sample of each section's output (full-scale
-        units; inf: no limit), for :class:`filtertwin.engine.CascadeRunner`."""
+        units; inf: no limit), for :class:`filtertwin.digital.engine.CascadeRunner`."""
         return [
             np.full(len(f.sos), np.inf) if f.slew_fs is None else f.slew_fs for f in self.filters
         ]
@@ -224,7 +224,7 @@ def bilinear_section(b: np.ndarray, a: np.ndarray, rate_hz: float, warp_hz: floa
 
 def default_band_hz(rate_hz: float) -> tuple[float, float]:
     """20 Hz to min(20 kHz, 0.4535 fs) at audio rates (20 kHz at 44.1 kHz, where the
-    resampling filters' flat passband ends: :data:`filtertwin.resample.PASS_FRACTION`);
+    resampling filters' flat passband ends: :data:`filtertwin.digital.resample.PASS_FRACTION`);
     otherwise 0 (1e-3 fs) to 0.45 fs."""
     if rate_hz >= 32000:
         return 20.0, min(20000.0, resample.PASS_FRACTION * rate_hz)
@@ -268,7 +268,7 @@ def resampling_response(
     factor: int, f_hz: np.ndarray, rate_hz: float, phase: str = "linear"
 ) -> np.ndarray:
     """Complex response of the up and the down resampling filters an oversampled twin runs
-    between (:func:`filtertwin.resample.response`); ``rate_hz`` is the oversampled rate.
+    between (:func:`filtertwin.digital.resample.response`); ``rate_hz`` is the oversampled rate.
     Linear phase: their delay removed, as render removes it; causal: their delay at 0 Hz
     removed (a latency, stated separately), the rest of their phase kept. 1 at 1x."""
     f = np.asarray(f_hz, float)
@@ -358,7 +358,7 @@ def build_twin(
         Names of the filters to include (default all).
     resampling : {"linear", "causal"}
         Phase of the up and down resampling filters of an oversampled twin
-        (:data:`filtertwin.resample.PHASES`).
+        (:data:`filtertwin.digital.resample.PHASES`).
 
     Raises
     ------

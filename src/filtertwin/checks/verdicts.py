@@ -13,8 +13,8 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
-    from filtertwin.render import RenderResult
-    from filtertwin.twin import Twin
+    from filtertwin.digital.render import RenderResult
+    from filtertwin.digital.twin import Twin
 
 EXIT_PASS = 0
 EXIT_FAIL = 1
@@ -89,8 +89,8 @@ def rows(verdicts: Iterable[Verdict]) -> list[tuple[str, str, str, str]]:
 def render_verdicts(result: RenderResult, twin: Twin) -> list[Verdict]:
     """The checks of a render: each filter's twin fidelity (resampling filters included),
     amplifier swing and slew rate, and any PCM output file that clipped at full scale."""
-    from filtertwin import units
-    from filtertwin.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG
+    from filtertwin.circuit import units
+    from filtertwin.digital.twin import FIDELITY_TOL_DB, FIDELITY_TOL_DEG
 
     out = []
     limit = f"tolerance {FIDELITY_TOL_DB:g} dB, {FIDELITY_TOL_DEG:g} deg"

@@ -17,11 +17,11 @@ from typing import Any
 
 import numpy as np
 
-from filtertwin import prototypes, sallenkey
+from filtertwin.circuit import prototypes, sallenkey
+from filtertwin.circuit.sallenkey import Amplifier, StageCircuit, StageModel
+from filtertwin.circuit.spec import AmplifierSpec, BuiltStageSpec, DesignSpec, FilterSpec, PartsSpec
+from filtertwin.circuit.synthesis import PartRules, SynthesisError, synthesize
 from filtertwin.errors import UserInputError
-from filtertwin.sallenkey import Amplifier, StageCircuit, StageModel
-from filtertwin.spec import AmplifierSpec, BuiltStageSpec, DesignSpec, FilterSpec, PartsSpec
-from filtertwin.synthesis import PartRules, SynthesisError, synthesize
 
 Section = tuple[np.ndarray, np.ndarray]  # (b, a) polynomials in s, highest power first
 
@@ -487,7 +487,7 @@ def _slew_warnings(f: Filter, amp: Amplifier, full_scale_v: float) -> list[Desig
 def _part_range_messages(s: Stage, parts: PartsSpec) -> list[str]:
     """Parts outside the design's ranges; resistors above 1 MOhm also get their noise and
     the offset a bias current makes in them."""
-    from filtertwin.units import format_letter_code
+    from filtertwin.circuit.units import format_letter_code
 
     out = []
     r_lo, r_hi = parts.resistor_range_ohm
@@ -624,7 +624,7 @@ def with_built_filters(
 def load(path: str | Path) -> Design:
     """Read, validate and design a design file (or a packaged example's name)."""
     from filtertwin import examples
-    from filtertwin.spec import load_design
+    from filtertwin.circuit.spec import load_design
 
     return build_design(load_design(examples.resolve(str(path))))
 
@@ -646,7 +646,7 @@ def design_filter(
     >>> [round(s.target.q, 4) for s in d.filters[0].stages]
     [0.5412, 1.3066]
     """
-    from filtertwin.spec import parse_design
+    from filtertwin.circuit.spec import parse_design
 
     data: dict[str, Any] = {
         "filter": [{"name": name, **fields}],

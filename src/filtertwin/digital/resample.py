@@ -636,7 +636,8 @@ class Downsampler:
     multiple of the factor and returns ``(chains, frames // factor, channels)``. Linear
     phase: the up and down cascades' delay together (:attr:`delay_frames` input frames) is
     taken out here: the output of the first call starts with that many frames of the
-    past; :class:`filtertwin.render.TwinStream` drops them. Allocates nothing in :meth:`process`.
+    past; :class:`filtertwin.digital.render.TwinStream` drops them. Allocates nothing in
+    :meth:`process`.
 
     Parameters
     ----------

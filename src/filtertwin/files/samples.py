@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 from scipy import signal
 
-from filtertwin import outputs
+from filtertwin.files import outputs
 
 SEED = 60063
 AUDIO_RATE_HZ = 48000

@@ -1,0 +1,3 @@
+"""Inputs and outputs: recordings and sensor tables in, time stamps, demo
+recordings, safe writing out.
+"""
