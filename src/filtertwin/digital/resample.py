@@ -621,12 +621,20 @@ class Upsampler:
         that the next call overwrites."""
         n = block.shape[0]
         _check_length(n, self.max_frames)
+        block = np.ascontiguousarray(block)  # see "One compiled layout" below
         _up_cascade(block, *self._plans.arrays, self._acc, self._out, self._chunk)
         return self._out[: n * self.factor]
 
     def reset(self) -> None:
         """Forget the history (silence before the next block)."""
         self._plans.reset()
+
+
+# One compiled layout: blocks reach the compiled cascades contiguous. numba compiles one
+# version of a kernel per array layout and holds the GIL while it does; a short last block
+# (a loop's end in the live read-ahead, a file's end in render) is often a non-contiguous
+# view, and a second layout compiled mid-stream stalls the read-ahead for about a second.
+# ``np.ascontiguousarray`` copies only such a block; full blocks pass through as they are.
 
 
 class Downsampler:
@@ -687,6 +695,7 @@ class Downsampler:
         if n % self.factor:
             raise ValueError(f"block of {n} frames is not a multiple of {self.factor}")
         _check_length(n, self.max_frames)
+        block = np.ascontiguousarray(block)  # see "One compiled layout" above
         _down_cascade(block, *self._plans.arrays, self._y, self._out, self._chunk)
         return self._out[:, : n // self.factor]
 

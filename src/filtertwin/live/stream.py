@@ -158,11 +158,9 @@ class Oversampling:
         high = runner.process(high_in)
         if blend is not None:
             blend.process(high_in, high)
-        # the last block of a loop read ahead is short: the runner's output is then a
-        # non-contiguous view, and the compiled downsampler would compile a second array
-        # layout while streaming (about a second holding the interpreter lock). A full
-        # block is contiguous already and passes through without a copy.
-        chains = self.down.process(np.ascontiguousarray(high))
+        # a loop's short last block leaves ``high`` a non-contiguous view; the
+        # downsampler hands its kernel a contiguous copy ("One compiled layout" in resample.py)
+        chains = self.down.process(high)
         self._position = _delay_kernel(dry, self._line, self._position)
         return chains
 
