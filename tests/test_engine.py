@@ -513,6 +513,41 @@ def test_slew_limiting_matches_the_written_out_model_and_counts_by_section() -> 
     assert np.max(np.abs(np.diff(y, axis=0))) <= 0.04 + 1e-12  # the last section's step
 
 
+def test_slewing_from_rail_to_rail_matches_the_model_in_every_lane_of_a_group() -> None:
+    # one lane group of four channels: a square wave that slews from rail to rail and
+    # clips there (its output leaves and reaches the rails, where the loop that leaves the
+    # swing clamp out must hand over to the full one), a sine that never slews, noise that
+    # slews now and then, and silence
+    levels, steps = np.array([np.inf, 2.0, 0.9]), np.array([0.05, np.inf, 0.01])
+    n = 3000
+    t = np.arange(n)
+    x = np.stack(
+        [
+            np.where((t // 250) % 2 == 0, 3.0, -3.0),
+            0.3 * np.sin(2 * np.pi * t / 400),
+            noise(n, channels=1, seed=34)[:, 0] * 2.0,
+            np.zeros(n),
+        ],
+        axis=1,
+    )
+    runner = CascadeRunner([SLEW_SOS], 4, n, clip_levels=[levels], slew_steps=[steps])
+    y = runner.process(x)[0]
+    clipped, slewed = np.zeros(3, int), np.zeros(3, int)
+    for ch in range(4):
+        expected, n_clip, n_slew = slewed_cascade_reference(
+            SLEW_SOS, levels, steps, x[:, ch]
+        )
+        # independent direct form I loop of the documented model (Oppenheim & Schafer 6.3)
+        np.testing.assert_allclose(y[:, ch], expected, rtol=0, atol=1e-9)
+        clipped += n_clip
+        slewed += n_slew
+    np.testing.assert_array_equal(runner.slew_counts[0], slewed)
+    np.testing.assert_array_equal(runner.clip_counts[0], clipped)
+    # the square wave's last stage slews 1.8 in 180 samples, then holds at the rail for 70
+    assert clipped[2] > 0 and slewed[2] > 0
+    assert np.max(y[:, 0]) == levels[2] and np.min(y[:, 0]) == -levels[2]
+
+
 def test_limits_that_are_never_reached_leave_output_bit_identical_to_scipy_sosfilt() -> None:
     x = noise(1531, channels=2, seed=32)
     levels = [np.full(len(sos), 1e3) for sos in CHAINS]

@@ -42,6 +42,14 @@ The model is only as fine as the rate: a sine's step per sample, 2 A sin(pi f / 
 short of its slope times the sample period by 1 - sinc, so a twin near its slew limit runs
 oversampled (:func:`filtertwin.digital.twin.slew_rate_needed_hz`).
 
+How limits stay cheap, every way exact (the same output, bit for bit, as the full limited
+loop): a section with limits first runs a step as if it had none, and keeps it if no output
+left the swing and no step exceeded the slew step (clipping and slewing come in runs, so
+after a limited step the next goes straight to the limited loop); and where no lane's
+previous output is within a few slew steps of its rail, the slew-limited loop leaves the
+swing clamp out, as the output cannot reach the rail within that step. Counts are kept as
+integers in the loops.
+
 A block whose input holds NaN or inf, or after which a chain's state is no longer finite,
 resets that chain's state and zeroes that chain's output for the block.
 """
@@ -77,8 +85,9 @@ _SEC_BLOCK = _SEC_ROWS * _WIDTH
 # outputs are the next slot's input)
 _Z0, _Z1, _COUNT, _PREV, _SLEWED, _LIMITING, _INPUT = (row * _WIDTH for row in range(7))
 _MEM_BLOCK = _INPUT + _FRAMES_PER_STEP * _WIDTH
-# the kernels: no limits, swing clamping only, swing clamping and slew limiting
-_PLAIN, _CLAMP, _SLEW = 0, 1, 2
+# the kernels: no limits, swing clamping only, swing clamping and slew limiting; and (a loop of
+# the slewing kernel only, never a section's mark) slew limiting where the rails are out of reach
+_PLAIN, _CLAMP, _SLEW, _SLEW_CLEAR = 0, 1, 2, 3
 
 
 # --- a 4 x float64 vector value for the kernel ----------------------------------------------
@@ -260,43 +269,68 @@ def _vbetween(typingctx, y, low, high):
     return _VEC(y, low, high), codegen
 
 
+def _bits(builder, v):
+    return builder.bitcast(v, ir.VectorType(ir.IntType(64), _WIDTH))
+
+
+def _tally(builder, tally, mask):
+    """``tally`` (int64 counts carried in a float64 vector) plus one where ``mask`` is set:
+    one integer subtraction of the all-ones mask, where a float count would need a
+    conversion and an addition; the counts become floats once per call (``_vtally_value``)."""
+    counts = builder.sub(
+        _bits(builder, tally), builder.sext(mask, ir.VectorType(ir.IntType(64), _WIDTH))
+    )
+    return builder.bitcast(counts, _LL_VEC)
+
+
 @intrinsic
-def _vchanged(typingctx, out, y):
-    """1.0 where ``out != y`` (neither NaN), else 0.0."""
+def _vtally_changed(typingctx, tally, out, y):
+    """``tally`` plus one where ``out != y`` (neither NaN)."""
 
     def codegen(context, builder, sig, args):
-        return builder.uitofp(builder.fcmp_ordered("!=", args[0], args[1]), _LL_VEC)
+        tally, out, y = args
+        return _tally(builder, tally, builder.fcmp_ordered("!=", out, y))
 
-    return _VEC(out, y), codegen
+    return _VEC(tally, out, y), codegen
 
 
 @intrinsic
-def _vrailed(typingctx, out, y, level):
-    """1.0 where ``out != y`` and ``|out| == level`` (held at the rail), else 0.0."""
+def _vtally_railed(typingctx, tally, out, y, level):
+    """``tally`` plus one where ``out != y`` and ``|out| == level`` (held at the rail)."""
 
     def codegen(context, builder, sig, args):
-        out, y, level = args
+        tally, out, y, level = args
         fabs = cgutils.get_or_insert_function(
             builder.module, ir.FunctionType(_LL_VEC, [_LL_VEC]), "llvm.fabs.v4f64"
         )
         at_rail = builder.fcmp_ordered("==", builder.call(fabs, [out]), level)
         changed = builder.fcmp_ordered("!=", out, y)
-        return builder.uitofp(builder.and_(at_rail, changed), _LL_VEC)
+        return _tally(builder, tally, builder.and_(at_rail, changed))
 
-    return _VEC(out, y, level), codegen
+    return _VEC(tally, out, y, level), codegen
 
 
 @intrinsic
-def _vexceeds(typingctx, y, level):
-    """1.0 where ``|y| > level``, else 0.0."""
+def _vtally_value(typingctx, tally):
+    """The counts of a tally as float64."""
 
     def codegen(context, builder, sig, args):
-        y, level = args
+        return builder.sitofp(_bits(builder, args[0]), _LL_VEC)
+
+    return _VEC(tally), codegen
+
+
+@intrinsic
+def _vtally_exceeds(typingctx, tally, y, level):
+    """``tally`` plus one where ``|y| > level``."""
+
+    def codegen(context, builder, sig, args):
+        tally, y, level = args
         above = builder.fcmp_ordered(">", y, level)
         below = builder.fcmp_ordered("<", y, builder.fneg(level))
-        return builder.uitofp(builder.or_(above, below), _LL_VEC)
+        return _tally(builder, tally, builder.or_(above, below))
 
-    return _VEC(y, level), codegen
+    return _VEC(tally, y, level), codegen
 
 
 # --- kernel -----------------------------------------------------------------------------------
@@ -317,27 +351,25 @@ def _gather(x, start, frames, n_chains, mem, stage, width):
 @njit(inline="always")
 def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
     """Run one section over its ``per_step`` staged frames (``kind`` and ``keep_prev`` are
-    compile-time constants: the limits applied, and whether ``_PREV`` is kept)."""
+    compile-time constants: the limits applied, and whether ``_PREV`` is kept). Returns True
+    if a slewing kind limited any step."""
     b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
     a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
     z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
-    level = _vzeros()
-    clamped = _vzeros()
-    step = _vzeros()
-    prev = _vzeros()
-    slewed = _vzeros()
-    if kind >= _CLAMP:
-        level, clamped = _vload(sec, c + _LEVEL), _vload(mem, m + _COUNT)
-    if kind == _SLEW:
+    level = step = prev = _vzeros()
+    # counts for this call, as integers (see _tally), added to the stored ones at the end
+    clamped = slewed = _vzeros()
+    if kind == _CLAMP or kind == _SLEW:
+        level = _vload(sec, c + _LEVEL)
+    if kind >= _SLEW:
         step, prev = _vload(sec, c + _STEP), _vload(mem, m + _PREV)
-        slewed = _vload(mem, m + _SLEWED)
     y = _vzeros()
     for k in range(per_step):
         x = _vload(mem, m + _INPUT + k * _WIDTH)
         # scipy's order: y = b0 x + z0; z0 = (b1 x - a1 y) + z1; z1 = b2 x - a2 y
         y = b0 * x + z0
         if kind == _CLAMP:
-            clamped = clamped + _vexceeds(y, level)
+            clamped = _vtally_exceeds(clamped, y, level)
             y = _vclamp(y, level)
         elif kind == _SLEW:
             # clamping to the swing, then limiting the step, is one clamp to these bounds
@@ -345,8 +377,14 @@ def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
             limited = _vbetween(y, _vlow(prev, step, level), _vhigh(prev, step, level))
             # every limited sample, and those held at the rail (clipped, not slewing): the
             # slewed count is their difference (see _store_state)
-            slewed = slewed + _vchanged(limited, y)
-            clamped = clamped + _vrailed(limited, y, level)
+            slewed = _vtally_changed(slewed, limited, y)
+            clamped = _vtally_railed(clamped, limited, y, level)
+            y = limited
+            prev = y
+        elif kind == _SLEW_CLEAR:
+            # the rails are out of reach in this step (see _rail_in_reach): the step limit only
+            limited = _vbetween(y, prev - step, prev + step)
+            slewed = _vtally_changed(slewed, limited, y)
             y = limited
             prev = y
         z0 = (b1 * x - a1 * y) + z1
@@ -354,19 +392,37 @@ def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
         _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
     _vstore(mem, m + _Z0, z0)
     _vstore(mem, m + _Z1, z1)
-    if kind >= _CLAMP:
-        _vstore(mem, m + _COUNT, clamped)
-    if kind == _SLEW:
-        _vstore(mem, m + _SLEWED, slewed)
+    if kind == _CLAMP or kind == _SLEW:
+        _vstore(mem, m + _COUNT, _vload(mem, m + _COUNT) + _vtally_value(clamped))
     if keep_prev:
         _vstore(mem, m + _PREV, y)
+    if kind >= _SLEW:
+        counted = _vtally_value(slewed)
+        _vstore(mem, m + _SLEWED, _vload(mem, m + _SLEWED) + counted)
+        return not _vall_zero(counted)
+    if kind == _CLAMP:
+        return not _vall_zero(_vtally_value(clamped))
+    return False
 
 
 @njit(inline="always")
-def _section_fits(sec, mem, c, m, per_step):
-    """Run a slew-limited section over its frames as if it had no limits; keep the result
-    (state, previous output) and return True if no output left the swing and no step
-    exceeded the slew step, else leave the state as it was and return False.
+def _rail_in_reach(sec, mem, c, m, per_step):
+    """False if no lane's output can reach its rail within the next ``per_step`` samples
+    moving at most one slew step per sample from its previous output (one step of margin
+    for rounding), so the limited loop may leave the swing clamp out."""
+    step, prev = _vload(sec, c + _STEP), _vload(mem, m + _PREV)
+    reach = step
+    for _ in range(per_step):
+        reach = reach + step
+    return _vbeyond(prev + reach, prev - reach, _vload(sec, c + _LEVEL))
+
+
+@njit(inline="always")
+def _section_fits(sec, mem, c, m, per_step, slewing, keep_prev):
+    """Run a limited section over its frames as if it had no limits; keep the result (state,
+    and the previous output if ``keep_prev``) and return True if no output left the swing
+    and (``slewing``) no step exceeded the slew step, else leave the state as it was and
+    return False. ``slewing`` and ``keep_prev`` are compile-time constants.
 
     The check is a few maxima and minima per step, off the chain of dependent operations
     that sets the speed, so a section that is not being limited costs little more than a
@@ -375,7 +431,10 @@ def _section_fits(sec, mem, c, m, per_step):
     b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
     a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
     z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
-    level, step, prev = _vload(sec, c + _LEVEL), _vload(sec, c + _STEP), _vload(mem, m + _PREV)
+    level = _vload(sec, c + _LEVEL)
+    step = prev = _vzeros()
+    if slewing:
+        step, prev = _vload(sec, c + _STEP), _vload(mem, m + _PREV)
     y = _vzeros()
     top = bottom = rise = fall = _vzeros()
     for k in range(per_step):
@@ -385,17 +444,24 @@ def _section_fits(sec, mem, c, m, per_step):
         z0 = (b1 * x - a1 * y) + z1
         z1 = b2 * x - a2 * y
         _vstore(mem, m + _MEM_BLOCK + _INPUT + k * _WIDTH, y)  # next section's input
-        change = y - y_last
         if k == 0:
-            top, bottom, rise, fall = y, y, change, change
+            top, bottom = y, y
         else:
             top, bottom = _vmax(top, y), _vmin(bottom, y)
-            rise, fall = _vmax(rise, change), _vmin(fall, change)
-    if _vbeyond(top, bottom, level) or _vbeyond(rise, fall, step):
+        if slewing:
+            change = y - y_last
+            if k == 0:
+                rise, fall = change, change
+            else:
+                rise, fall = _vmax(rise, change), _vmin(fall, change)
+    if _vbeyond(top, bottom, level):
+        return False
+    if slewing and _vbeyond(rise, fall, step):
         return False
     _vstore(mem, m + _Z0, z0)
     _vstore(mem, m + _Z1, z1)
-    _vstore(mem, m + _PREV, y)
+    if keep_prev:
+        _vstore(mem, m + _PREV, y)
     return True
 
 
@@ -437,13 +503,23 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, mode, per_step
                     if mode == _SLEW and kind == _SLEW:
                         # try without limits unless the last step was limited (slewing
                         # comes in runs): the limited loop only where it is needed
-                        if mem[m + _LIMITING] != 0.0 or not _section_fits(sec, mem, c, m, per_step):
-                            before = _vload(mem, m + _SLEWED)
-                            _section_frames(sec, mem, c, m, per_step, _SLEW, True)
-                            limiting = not _vall_zero(_vload(mem, m + _SLEWED) - before)
+                        if mem[m + _LIMITING] != 0.0 or not _section_fits(
+                            sec, mem, c, m, per_step, True, True
+                        ):
+                            if _rail_in_reach(sec, mem, c, m, per_step):
+                                limiting = _section_frames(sec, mem, c, m, per_step, _SLEW, True)
+                            else:
+                                limiting = _section_frames(
+                                    sec, mem, c, m, per_step, _SLEW_CLEAR, True
+                                )
                             mem[m + _LIMITING] = 1.0 if limiting else 0.0
                     elif kind >= _CLAMP:
-                        _section_frames(sec, mem, c, m, per_step, _CLAMP, keep)
+                        # as for slewing: clamp only the steps that need it
+                        if mem[m + _LIMITING] != 0.0 or not _section_fits(
+                            sec, mem, c, m, per_step, False, keep
+                        ):
+                            limiting = _section_frames(sec, mem, c, m, per_step, _CLAMP, keep)
+                            mem[m + _LIMITING] = 1.0 if limiting else 0.0
                     else:
                         _section_frames(sec, mem, c, m, per_step, _PLAIN, keep)
             if t >= last:
