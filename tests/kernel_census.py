@@ -22,7 +22,6 @@ import soundfile as sf
 
 from filtertwin.commands.listen import _designs
 from filtertwin.digital import kernels
-from filtertwin.live.keys import Command
 from filtertwin.live.player import ListenOptions, prepare
 from filtertwin.live.window.link import SessionLink
 
@@ -42,102 +41,60 @@ def _recording(folder: Path, name: str, channels: int, rate_hz: int, dtype: str)
     return path
 
 
-def _part(way: str) -> tuple[Command, ...]:
-    return (Command("part", (way, "1", "C1", "+8")), Command("part", (way, "1", "R1", "-3")))
-
-
 SCENARIOS = {
     # name: (designs, recording (channels, rate, subtype) or None for live input, options,
-    #        timed commands)
+    #        commands given one after another, ';' between them)
+    # a stereo recording, oversampled twins run in the read-ahead (float64), level matched
+    # by loudness (measured again after each edit), edits during a 0.1 s region's loop
     "stereo-ab": (
         ["candidate-butterworth", "turntable-rumble"],
         (2, RATE_HZ, "FLOAT"),
         {"match": "loudness", "match_seconds": 0.5},
-        [
-            "select 2",
-            "select 1",
-            "bypass",
-            "loop",
-            "select 2",
-            "noise on",
-            "part 1 C1 +8",
-            "select 1",
-            "part 1 C1 +8",
-            "noise off",
-            "undo",
-            "corner 900",
-            "redo",
-            "jump",
-            "loop all",
-        ],
+        "select 2; select 1; bypass; loop; select 2; noise on; part 1 C1 +8; select 1; "
+        "part 1 C1 +8; noise off; undo; corner 900; redo; jump; loop all",
     ),
+    # a mono recording filtered in the callback (float32 runner, no oversampling)
     "mono-callback": (
         ["turntable-rumble"],
         (1, RATE_HZ, "PCM_16"),
         {},
-        [
-            "loop",
-            "noise on",
-            "part 1 C1 +8",
-            "bypass",
-            "select 1",
-            "undo",
-            "noise off",
-            "jump",
-            "loop all",
-        ],
+        "loop; noise on; part 1 C1 +8; bypass; select 1; undo; noise off; jump; loop all",
     ),
+    # blind ABX trials on a mono recording at 44.1 kHz (resampled by 160/147 ahead)
     "mono-blind": (
         ["candidate-butterworth", "candidate-bessel"],
-        (1, RATE_HZ, "PCM_24"),
+        (1, 44100, "PCM_24"),
         {"blind": "abx", "trials": 2, "seed": 4},
-        ["listen A", "listen B", "listen X", "answer A", "listen B", "listen X", "answer B"],
+        "listen A; listen B; listen X; answer A; listen B; listen X; answer B",
     ),
+    # --adc-rate: a 96 kHz stereo recording, the ADC capture switched, causal resampling
     "adc-capture": (
         ["vibration-antialias", "candidate-bessel"],
         (2, 96000, "FLOAT"),
-        {"adc_rate_hz": 8000.0, "match": "loudness", "match_seconds": 0.5},
-        [
-            "capture on",
-            "loop",
-            "select 2",
-            "capture off",
-            "noise on",
-            "part 1 C1 +8",
-            "capture on",
-            "noise off",
-            "undo",
-            "jump",
-            "loop all",
-            "bypass",
-        ],
+        {"adc_rate_hz": 8000.0, "match": "loudness", "match_seconds": 0.5, "resampling": "causal"},
+        "capture on; loop; select 2; capture off; noise on; part 1 C1 +8; capture on; "
+        "noise off; undo; jump; loop all; bypass",
     ),
+    # live input (the dummy server's two capture ports), oversampled in the callback
     "live-input": (
         ["candidate-butterworth", "turntable-rumble"],
         None,
         {"match": "gain"},
-        [
-            "select 2",
-            "noise on",
-            "part 1 C1 +8",
-            "select 1",
-            "part 1 C1 +8",
-            "bypass",
-            "noise off",
-            "undo",
-        ],
+        "select 2; noise on; part 1 C1 +8; select 1; part 1 C1 +8; bypass; noise off; undo",
     ),
-    "short-edit": (
-        ["candidate-butterworth", "turntable-rumble"],
-        (1, RATE_HZ, "FLOAT"),
-        {},
-        ["loop", "part 1 C1 +8"],
-    ),
+    # live input filtered in the callback at the stream rate
     "live-callback": (
         ["turntable-rumble"],
         None,
         {"match": "gain"},
-        ["noise on", "part 1 C1 +8", "bypass", "select 1", "noise off"],
+        "noise on; part 1 C1 +8; bypass; select 1; noise off",
+    ),
+    # the shortest: an edit's crossfade over a region's short last block (``--reintroduce``)
+    "short-edit": (
+        ["candidate-butterworth", "turntable-rumble"],
+        (1, RATE_HZ, "FLOAT"),
+        {},
+        "loop; part 1 C1 +8",
     ),
 }
 
@@ -149,7 +106,7 @@ def _failed(player) -> bool:
     return any(t is not None and t.error is not None for t in threads)
 
 
-def _run(player, link, commands: list[str], step_s: float, facts: dict) -> list[str]:
+def _run(player, link, commands: str, step_s: float, facts: dict) -> list[str]:
     """Start the stream, give each command in turn (polling as the control loop does)."""
     from filtertwin.errors import UserInputError
     from filtertwin.live.keys import parse_command
@@ -166,7 +123,7 @@ def _run(player, link, commands: list[str], step_s: float, facts: dict) -> list[
     player.stream.start = start_recorded
     player.start()
     try:
-        for text in commands:
+        for text in (c.strip() for c in commands.split(";")):
             deadline = time.monotonic() + step_s
             try:
                 if text == "jump":
