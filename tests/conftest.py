@@ -4,6 +4,11 @@
 ``FILTERTWIN_TEST_JACK_SERVER``; the fixture then only hands that name out. When pytest is run
 directly, the fixture starts a server of its own the same way (``tools/jack_server.sh``) and
 stops it at the end of the session, after PortAudio has let go of it.
+
+Every listening session of the tests (and of the commands they run) locks the package's
+compiled kernels when its stream starts (``FILTERTWIN_LOCK_KERNELS=1``,
+:mod:`filtertwin.digital.kernels`): a kernel version the warm-up missed is an error there,
+not a silent stall.
 """
 
 from __future__ import annotations
@@ -23,6 +28,7 @@ JACK_SCRIPT = REPO / "tools" / "jack_server.sh"
 SERVER_ENV = "FILTERTWIN_TEST_JACK_SERVER"
 START_TIMEOUT_S = 10.0
 STOP_TIMEOUT_S = 5.0
+os.environ.setdefault("FILTERTWIN_LOCK_KERNELS", "1")
 
 
 def _jack_answers(name: str) -> bool:

@@ -104,7 +104,7 @@ def test_a_bad_option_value_is_one_line_naming_the_option(tmp_path):
     assert r.returncode == 2
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1
-    assert "argument --oversample: must be 1, 2, 4, 8 or auto, got '3'" in lines[0]
+    assert "argument --oversample: must be 1, 2, 4, 8, 16 or auto, got '3'" in lines[0]
     assert "see 'filtertwin render --help'" in lines[0]
 
 

@@ -232,7 +232,7 @@ def test_a_block_of_an_unexpected_size_is_silence_and_counted(frames):
 
 def test_oversampled_twins_play_what_the_offline_render_gives_with_the_dry_input_in_step():
     core, _, twins, _ = setup(["candidate-butterworth", "candidate-bessel"], oversampled=True)
-    assert twins[0].oversampling == 8 and core.oversampling is not None
+    assert twins[0].oversampling == 16 and core.oversampling is not None
     delay = core.oversampling.delay_frames
     x = noise(40 * BLOCK)
     played = []

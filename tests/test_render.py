@@ -93,7 +93,7 @@ def test_in_memory_render_equals_sosfilt_in_float64():
         np.testing.assert_allclose(y[i], expected, rtol=0, atol=1e-12 * np.abs(expected).max())
 
 
-@pytest.mark.parametrize("factor", [2, 4])
+@pytest.mark.parametrize("factor", [2, 4, 16])
 def test_oversampled_render_does_not_depend_on_the_block_size(factor):
     x = _noise(2000)
     twin = build_twin(_design(), RATE_HZ, oversampling=factor)
@@ -105,7 +105,7 @@ def test_oversampled_render_does_not_depend_on_the_block_size(factor):
         np.testing.assert_allclose(got, reference, rtol=0, atol=1e-13 * np.abs(reference).max())
 
 
-@pytest.mark.parametrize("factor", [2, 8])
+@pytest.mark.parametrize("factor", [2, 8, 16])
 def test_oversampled_render_equals_the_upfirdn_sosfilt_pipeline(factor):
     x = _noise(1500)
     twin = build_twin(_design(), RATE_HZ, oversampling=factor)
@@ -214,6 +214,21 @@ def test_render_exits_1_on_an_amplifier_swing_fail_and_0_when_every_check_passes
         assert swing.split()[4] == ("PASS" if status == 0 else "FAIL"), swing
     # the outputs of a FAIL are kept: the user listens to what failed
     assert (tmp_path / "hot" / "rumble.wav").exists()
+
+
+@pytest.mark.parametrize("rate_hz", [44100, 48000])
+@pytest.mark.parametrize("name", ["bookshelf-2way", "studio-3way"])
+def test_a_plain_render_of_a_shipped_crossover_passes_every_check(tmp_path, capsys, name, rate_hz):
+    source = _float_wav(tmp_path / "in.wav", _noise(rate_hz // 10), rate_hz)
+    status = cli.main(["render", name, str(source), "--out", str(tmp_path / "o"), "--no-report"])
+    printed = capsys.readouterr().out.splitlines()
+    # README's exit-status table: 0 every check passed
+    assert status == 0, "\n".join(printed)
+    assert f"twin at {16 * rate_hz} Hz (16x)" in printed[0]
+    twin_lines = [s for s in printed if s.startswith("twin fidelity: filter ")]
+    assert len(twin_lines) == len(_design(name).filters)
+    assert all(" PASS (" in s for s in twin_lines), twin_lines
+    assert printed[-1].startswith("verdict: PASS")
 
 
 def test_peak_levels_are_the_sample_peaks_of_the_written_files(tmp_path):

@@ -1,8 +1,9 @@
 """The oversampling resamplers against the previous ones (and python-soxr when installed).
 
-    python tools/bench_resample.py [--repeats N]
+    python tools/bench_resample.py [--repeats N] [--factors 2 4 8 16]
 
-For each of 2x, 4x and 8x, one run measures, on the same machine and data:
+For each of 2x, 4x, 8x and 16x (the largest factor ``auto`` picks), one run measures, on the
+same machine and data:
 
 * passband flatness: the largest |gain| deviation in dB from 20 Hz to 20 kHz at 44.1 kHz of
   up- then down-sampling (a unit impulse through both, ``scipy.signal.freqz``);
@@ -128,6 +129,7 @@ def seconds_per_second(kind: str, factor: int, repeats: int) -> float:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=5)
+    parser.add_argument("--factors", type=int, nargs="+", default=[2, 4, 8, 16])
     args = parser.parse_args()
     kinds = ["previous", "cascade"]
     try:
@@ -144,7 +146,7 @@ def main() -> None:
     print("rejection: weakest image attenuation from 24.1 kHz up (dB);")
     print(f"time: s per s of stereo {TIME_RATE_HZ:g} Hz audio, up then down, median of "
           f"{args.repeats}; ratio to the previous resampler in the same run")  # fmt: skip
-    for factor in (2, 4, 8):
+    for factor in args.factors:
         print(f"\n{factor}x")
         reference = None
         for kind in kinds:

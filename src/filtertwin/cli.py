@@ -113,7 +113,10 @@ def build_parser() -> argparse.ArgumentParser:
         "--rate", type=frequency_hz, help="also build the digital twin at this rate (Hz)"
     )
     p.add_argument(
-        "--oversample", type=oversampling, default=1, help="twin oversampling: 1, 2, 4, 8 or auto"
+        "--oversample",
+        type=oversampling,
+        default=1,
+        help="twin oversampling: 1, 2, 4, 8, 16 or auto",
     )
     p.add_argument(
         "--noise-band", nargs=2, type=frequency_hz, metavar=("LO", "HI"),

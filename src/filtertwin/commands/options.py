@@ -29,12 +29,13 @@ def frequency_hz(text: str) -> float:
 
 
 def oversampling(text: str) -> int | str:
-    """Twin oversampling: 1, 2, 4, 8 or auto."""
+    """Twin oversampling: 1, 2, 4, 8, 16 or auto
+    (:data:`filtertwin.digital.twin.OVERSAMPLING_FACTORS`)."""
     if text == "auto":
         return text
-    if text in ("1", "2", "4", "8"):
+    if text in ("1", "2", "4", "8", "16"):
         return int(text)
-    raise argparse.ArgumentTypeError(f"must be 1, 2, 4, 8 or auto, got {text!r}")
+    raise argparse.ArgumentTypeError(f"must be 1, 2, 4, 8, 16 or auto, got {text!r}")
 
 
 RESAMPLING_HELP = (

@@ -60,8 +60,8 @@ def register(subparsers: Any) -> None:
         "--block", type=_block, default=16384, metavar="N", help="frames per block (default 16384)"
     )
     p.add_argument(
-        "--oversample", type=oversampling, default="auto", metavar="1|2|4|8|auto",
-        help="run the twin at 1, 2, 4 or 8 times the input rate; auto (default) picks the "
+        "--oversample", type=oversampling, default="auto", metavar="1|2|4|8|16|auto",
+        help="run the twin at 1, 2, 4, 8 or 16 times the input rate; auto (default) picks the "
         "smallest factor whose fidelity (resampling filters included) is within 0.1 dB and "
         "1 degree",
     )  # fmt: skip

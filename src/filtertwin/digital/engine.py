@@ -1193,7 +1193,10 @@ class CascadeRunner:
                 f"block has {frames} frames, more than max_frames={self.max_frames}; "
                 "split it or build the runner with a larger max_frames"
             )
-        view = self._out[:, :frames, :]
+        # one contiguous block for any length (not a slice of the full one): the kernels that
+        # take the output next see one layout, and compile no new version for a short block
+        view = self._out.reshape(-1)[: self._out[:, :frames].size]
+        view = view.reshape(self.n_chains, frames, self.channels)
         self._views[frames] = view
         return view
 

@@ -1,8 +1,10 @@
 """Digital twin: each analog section of the as-built model -> one digital biquad.
 
-Every section is mapped by the bilinear transform prewarped at its own characteristic
-frequency (f0 of a second-order section, the corner of a first-order one), so each section's
-f0 lands exactly where the analog one is. The result is a scipy-style SOS array ``(n, 6)``
+Every section of the circuit's network is mapped by the bilinear transform prewarped at its
+own characteristic frequency (f0 of a second-order section, the corner of a first-order one),
+so each section's f0 lands exactly where the analog one is; an amplifier's section above the
+band (its pole and the zero of its output resistance) is prewarped at the top of the band
+(:func:`prewarp_hz`). The result is a scipy-style SOS array ``(n, 6)``
 with ``a0 == 1``. The fidelity report compares the twin with the analog model it came from.
 
 References
@@ -25,7 +27,11 @@ from filtertwin.errors import UserInputError
 # A dB or degree difference means nothing this far below the peak: below it the complex
 # error relative to the peak is reported instead.
 FIDELITY_WINDOW_DB = 60.0
-OVERSAMPLING_FACTORS = (1, 2, 4, 8)
+# What ``auto`` tries, smallest first. The bilinear transform shifts a section's skirt in
+# frequency by about (pi^2 / 3) (f^2 - f0^2) / fs^2 (from tan(pi f / fs)), so each doubling
+# of the rate cuts the error four times: a 24 dB/octave skirt is 0.12 dB off at its -60 dB
+# point at 8x from 48 kHz (bookshelf-2way's woofer, 12.4 kHz) and 0.03 dB at 16x.
+OVERSAMPLING_FACTORS = (1, 2, 4, 8, 16)
 # the twin counts as faithful within these (magnitude dB, phase degrees) over the band
 FIDELITY_TOL_DB = 0.1
 FIDELITY_TOL_DEG = 1.0
@@ -231,6 +237,41 @@ def default_band_hz(rate_hz: float) -> tuple[float, float]:
     return 1e-3 * rate_hz, 0.45 * rate_hz
 
 
+def prewarp_hz(
+    b: np.ndarray, a: np.ndarray, rate_hz: float, band_top_hz: float, amplifier_section: bool
+) -> float:
+    """The frequency a section is prewarped at (where its twin equals it exactly).
+
+    A section of the circuit's own network is matched at its characteristic frequency
+    (:func:`characteristic_hz`: f0, or a first-order corner), so every corner a builder
+    designs lands exactly where the analog one is. Matched instead at the top of the band
+    (at most 0.45 ``rate_hz``):
+
+    - an amplifier section (the amplifier's pole, with the zero its output resistance adds)
+      whose characteristic frequency lies above the band: it has no corner in the band, only
+      a small phase and gain slope there, largest at the top of the band. Prewarped at its
+      own frequency near Nyquist, the bilinear transform would squeeze the whole band onto a
+      lower part of its response (a phase error of several degrees at 20 kHz, for a zero at
+      160 kHz in a 384 kHz twin);
+    - any section whose characteristic frequency reaches 0.49 ``rate_hz`` (a pole above
+      Nyquist has no digital image to match).
+    """
+    fc = characteristic_hz(b, a)
+    top = min(band_top_hz, 0.45 * rate_hz)
+    if fc >= 0.49 * rate_hz or (amplifier_section and fc > top):
+        return top
+    return fc
+
+
+def _has_amplifier_section(f: Filter, number: int, amplifier: bool) -> bool:
+    """Stage ``number`` ends in a first-order amplifier section
+    (:func:`filtertwin.circuit.sallenkey.split_sections`)."""
+    if not amplifier:
+        return False
+    stage = next(s for s in f.stages if s.index == number)
+    return stage.built.extra_pole_hz is not None
+
+
 def _filter_sos(f: Filter, rate_hz: float, amplifier: bool, band_top_hz: float, source: str):
     nyquist = rate_hz / 2
     rows, stage_of = [], []
@@ -242,10 +283,11 @@ def _filter_sos(f: Filter, rate_hz: float, amplifier: bool, band_top_hz: float, 
                 "twin; --oversample auto runs the twin at a multiple of the rate, or lower the "
                 "corner"
             )
-    for number, (b, a) in f.stage_sections(amplifier):
-        fc = characteristic_hz(b, a)
-        # an amplifier pole above Nyquist is matched where it matters: at the top of the band
-        warp = fc if fc < 0.49 * rate_hz else min(band_top_hz, 0.45 * rate_hz)
+    tagged = f.stage_sections(amplifier)
+    for i, (number, (b, a)) in enumerate(tagged):
+        last_of_stage = i == len(tagged) - 1 or tagged[i + 1][0] != number
+        amplifier_section = last_of_stage and _has_amplifier_section(f, number, amplifier)
+        warp = prewarp_hz(b, a, rate_hz, band_top_hz, amplifier_section)
         rows.append(bilinear_section(b, a, rate_hz, warp))
         stage_of.append(number)
     sos = np.array(rows)
@@ -346,10 +388,11 @@ def build_twin(
     rate_hz : float
         Rate of the signal that will be filtered, Hz.
     oversampling : int or "auto"
-        Run the twin at ``rate_hz * oversampling``. ``"auto"`` picks the smallest of 1, 2, 4,
-        8 whose fidelity over the band (resampling filters included) is within ``tol_db``
-        and ``tol_deg`` for every filter (8 if none is), skipping factors whose Nyquist
-        frequency a stage's f0 reaches (a corner above the recording's Nyquist frequency).
+        Run the twin at ``rate_hz * oversampling``. ``"auto"`` picks the smallest of
+        :data:`OVERSAMPLING_FACTORS` (1, 2, 4, 8, 16) whose fidelity over the band
+        (resampling filters included) is within ``tol_db`` and ``tol_deg`` for every filter
+        (16 if none is), skipping factors whose Nyquist frequency a stage's f0 reaches (a
+        corner above the recording's Nyquist frequency).
     band_hz : (float, float), optional
         Band of interest for the fidelity report (default: :func:`default_band_hz`).
     amplifier : bool

@@ -39,7 +39,7 @@ from typing import Any
 import numpy as np
 
 from filtertwin.circuit.design import Design
-from filtertwin.digital import engine
+from filtertwin.digital import engine, kernels
 from filtertwin.digital.resample import ratio
 from filtertwin.errors import UserInputError
 from filtertwin.files import recordings
@@ -47,7 +47,7 @@ from filtertwin.files.recordinginfo import RecordingInfo
 from filtertwin.live import candidates as cands
 from filtertwin.live import capture as capture_mod
 from filtertwin.live import chains as chain_swaps
-from filtertwin.live import devices, hiss, matching, mixer, ring, routing, safety, stream
+from filtertwin.live import devices, hiss, matching, mixer, ring, routing, safety, stream, tap
 from filtertwin.live.blind import BlindSession, Kind, TrialLog, plan_trials
 from filtertwin.live.chains import ChainHost
 from filtertwin.live.session import ListenSession
@@ -142,6 +142,7 @@ def warm_up() -> None:
     stream.warm_up()
     chain_swaps.warm_up()
     hiss.warm_up()
+    tap.warm_up()  # the preview window's tap, which may be opened while the stream runs
 
 
 def _read_excerpt(info: RecordingInfo, seconds: float, channels: int) -> np.ndarray:
@@ -245,6 +246,7 @@ class Player:
     stream: Any = field(default=None, init=False)
     started_s: float | None = field(default=None, init=False)
     _saved_switch_interval_s: float | None = field(default=None, init=False)
+    _locked: list[Any] = field(default_factory=list, init=False)
 
     @property
     def in_channels(self) -> int:
@@ -311,6 +313,10 @@ class Player:
             # collector, whose full passes would otherwise hold the interpreter for ~0.1 s
             gc.collect()
             gc.freeze()
+        if kernels.kernel_lock_wanted() and not self._locked:
+            # every version is compiled by now (prepare, the read-ahead's first fill): with
+            # FILTERTWIN_LOCK_KERNELS=1 (the tests) a missed one is an error, not a stall
+            self._locked = kernels.lock_kernels(kernels.package_kernels().values())
         try:
             self.stream.start()
         except self.sd.PortAudioError as error:
@@ -348,6 +354,8 @@ class Player:
             self.feeder.stop()
         if self.noise_feeder is not None:
             self.noise_feeder.stop()
+        kernels.unlock_kernels(self._locked)
+        self._locked = []
         if self._saved_switch_interval_s is not None:
             sys.setswitchinterval(self._saved_switch_interval_s)
             self._saved_switch_interval_s = None
