@@ -3,7 +3,7 @@
 Run as a separate process by ``test_live_no_compile.py`` (a fresh process holds no
 compiled versions but those its own warm-up made; the test process has run other tests).
 Usage: ``python kernel_census.py SCENARIO FOLDER [--reintroduce]``; prints one JSON line
-``{"added": {kernel: [signature, ...]}, "blocks": N, "starved": N, "errors": [...], ...}``:
+``{"added": {kernel: [signature, ...]}, "blocks": N, "stream_lost": bool, "errors": [...], ...}``:
 the versions added after the stream started (and, apart, those the read-ahead's first fill
 added before it). ``--reintroduce`` brings back a fixed bug on purpose (the runner's output
 for a short block a slice of its full buffer, which is not contiguous), to show that the
@@ -13,6 +13,7 @@ census sees it. The JACK server is the one ``JACK_DEFAULT_SERVER`` names.
 from __future__ import annotations
 
 import json
+import os
 import sys
 import time
 from pathlib import Path
@@ -23,6 +24,7 @@ import soundfile as sf
 from filtertwin.commands.listen import _designs
 from filtertwin.digital import kernels
 from filtertwin.live.player import ListenOptions, prepare
+from filtertwin.live.watchdog import StreamLost, StreamWatchdog, call_within
 from filtertwin.live.window.link import SessionLink
 
 RATE_HZ = 48000
@@ -99,9 +101,15 @@ SCENARIOS = {
 }
 
 
-def _failed(player) -> bool:
-    """True when the read-ahead or the noise thread stopped on an error (the console's
-    control loop raises it then)."""
+def _failed(player, watchdog, facts: dict) -> bool:
+    """True when the read-ahead or the noise thread stopped on an error, or the callback
+    stopped coming (an error in it aborts the stream): the console's control loop ends the
+    session then too."""
+    try:
+        watchdog.check()
+    except StreamLost:
+        facts["stream_lost"] = True
+        return True
     threads = (player.feeder, player.noise_feeder)
     return any(t is not None and t.error is not None for t in threads)
 
@@ -122,6 +130,8 @@ def _run(player, link, commands: str, step_s: float, facts: dict) -> list[str]:
 
     player.stream.start = start_recorded
     player.start()
+    watchdog = StreamWatchdog(player.core.blocks_done, player.core.period_s)
+    facts["stream_lost"] = False
     try:
         for text in (c.strip() for c in commands.split(";")):
             deadline = time.monotonic() + step_s
@@ -139,17 +149,18 @@ def _run(player, link, commands: str, step_s: float, facts: dict) -> list[str]:
                     player.session.handle(parse_command(text), time.monotonic())
             except UserInputError as error:
                 errors.append(f"{text}: {error}")
-            while time.monotonic() < deadline and not _failed(player):
+            while time.monotonic() < deadline and not _failed(player, watchdog, facts):
                 player.session.poll()
                 link.meters()
                 link.latest_signals(4096)
                 time.sleep(0.01)
-        while player.session.edits_pending and not _failed(player):
+        while player.session.edits_pending and not _failed(player, watchdog, facts):
             player.session.poll()
             time.sleep(0.01)
         time.sleep(0.3)
     finally:
-        player.close()
+        if not call_within(player.close, 3.0):  # a stream whose callback failed may hang
+            facts["close_hung"] = True
         link.close()
     return errors
 
@@ -197,6 +208,7 @@ def main(scenario: str, folder: Path, reintroduce: bool = False) -> None:
                 "blocks": int(core.counters[0]),
                 "starved": int(core.counters[2]),
                 "errors": errors,
+                "stream_lost": facts["stream_lost"],
                 "thread_errors": [
                     repr(thread.error)
                     for thread in (player.feeder, player.noise_feeder)
@@ -206,6 +218,9 @@ def main(scenario: str, folder: Path, reintroduce: bool = False) -> None:
             }
         )
     )
+    sys.stdout.flush()
+    if facts.get("close_hung"):  # as `listen` does: PortAudio's clean-up at exit would wait too
+        os._exit(0)
 
 
 if __name__ == "__main__":
