@@ -534,9 +534,7 @@ def test_slewing_from_rail_to_rail_matches_the_model_in_every_lane_of_a_group() 
     y = runner.process(x)[0]
     clipped, slewed = np.zeros(3, int), np.zeros(3, int)
     for ch in range(4):
-        expected, n_clip, n_slew = slewed_cascade_reference(
-            SLEW_SOS, levels, steps, x[:, ch]
-        )
+        expected, n_clip, n_slew = slewed_cascade_reference(SLEW_SOS, levels, steps, x[:, ch])
         # independent direct form I loop of the documented model (Oppenheim & Schafer 6.3)
         np.testing.assert_allclose(y[:, ch], expected, rtol=0, atol=1e-9)
         clipped += n_clip
