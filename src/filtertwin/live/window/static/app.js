@@ -158,7 +158,7 @@ function responsePlot() {
   const canvas = $("response");
   if (!s || !s.response) { Plot.draw(canvas, { xMin: 10, xMax: 24000, yMin: -60, yMax: 10, series: [] }); return; }
   const view = $("response-view").value;
-  const key = { magnitude: ["analog_db", " dB"], phase: ["phase_deg", "°"], delay: ["delay_s", " ms"] }[view];
+  const key = { magnitude: ["analog_db", "dB"], phase: ["phase_deg", "degrees"], delay: ["delay_s", "ms"] }[view];
   const scale = view === "delay" ? 1000 : 1;
   const pick = c => c[key[0]].map(v => (v === null ? null : v * scale));
   const curves = [...s.response.ways, s.response.sum];
@@ -185,12 +185,11 @@ function responsePlot() {
     const top = Math.max(...s.response.sum.analog_db, ...s.response.ways.flatMap(c => c.analog_db));
     yMax = Math.ceil((top + 3) / 10) * 10; yMin = yMax - 70;
   }
-  Plot.draw(canvas, { xMin: s.f_hz[0], xMax: s.f_hz[s.f_hz.length - 1], yMin, yMax, yUnit: key[1].trim() === "dB" ? "" : "", series, bands });
+  Plot.draw(canvas, { xMin: s.f_hz[0], xMax: s.f_hz[s.f_hz.length - 1], yMin, yMax, yLabel: key[1], series, bands });
   canvas.dataset.drawn = String(s.version) + ":" + view;
   const legend = $("response-key");
   legend.replaceChildren(...curves.map(c => el("span", {}, el("span", { class: "swatch", style: `background:${WAY_COLOURS[c.way] || "#555"}` }), c.way)),
-    el("span", {}, "solid: analog as built; dashed: twin" + (s.ghost ? "; grey: before the last edit" : "")),
-    el("span", {}, `y: ${key[1].trim()}`));
+    el("span", {}, "solid: analog as built; dashed: twin" + (s.ghost ? "; grey: before the last edit" : "")));
 }
 
 function spectrumPlot() {
@@ -198,7 +197,7 @@ function spectrumPlot() {
   if (!live || !live.spectrum) return;
   const sp = live.spectrum;
   Plot.draw($("spectrum"), {
-    xMin: sp.f_hz[0], xMax: sp.f_hz[sp.f_hz.length - 1], yMin: -120, yMax: 0,
+    xMin: sp.f_hz[0], xMax: sp.f_hz[sp.f_hz.length - 1], yMin: -120, yMax: 0, yLabel: "dBFS",
     series: [{ x: sp.f_hz, y: sp.in_db, color: "#9aa3ad", width: 1.2 }, { x: sp.f_hz, y: sp.out_db, color: "#1f6f8b", width: 1.6 }],
   });
   page.drawn += 1;

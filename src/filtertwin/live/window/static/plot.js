@@ -16,7 +16,7 @@ const Plot = (() => {
     return f >= 1000 ? (f / 1000) + "k" : String(f);
   }
 
-  // draw(canvas, {xMin, xMax, yMin, yMax, yUnit, series: [{x, y, color, width, dash}],
+  // draw(canvas, {xMin, xMax, yMin, yMax, yUnit, yLabel, series: [{x, y, color, width, dash}],
   //              bands: [{x, lo, hi, color}]})
   function draw(canvas, spec) {
     const ratio = window.devicePixelRatio || 1;
@@ -33,7 +33,7 @@ const Plot = (() => {
     const lx0 = Math.log10(spec.xMin), lx1 = Math.log10(spec.xMax);
     const X = f => PAD.left + (Math.log10(f) - lx0) / (lx1 - lx0) * (w - PAD.left - PAD.right);
     const Y = v => PAD.top + (spec.yMax - v) / (spec.yMax - spec.yMin) * (h - PAD.top - PAD.bottom);
-    const gridKey = [canvas.width, canvas.height, spec.xMin, spec.xMax, spec.yMin, spec.yMax].join();
+    const gridKey = [canvas.width, canvas.height, spec.xMin, spec.xMax, spec.yMin, spec.yMax, spec.yLabel].join();
     if (canvas._gridKey !== gridKey) {
       canvas._grid = document.createElement("canvas");
       canvas._grid.width = canvas.width;
@@ -69,6 +69,14 @@ const Plot = (() => {
     for (let v = Math.ceil(spec.yMin / step) * step; v <= spec.yMax + 1e-9; v += step) {
       ctx.beginPath(); ctx.moveTo(PAD.left, Y(v)); ctx.lineTo(w - PAD.right, Y(v)); ctx.stroke();
       ctx.fillText(Number(v.toPrecision(6)) + (spec.yUnit || ""), PAD.left - 4, Y(v) + 4);
+    }
+    if (spec.yLabel) {  // the y axis's unit, written up the left edge
+      ctx.save();
+      ctx.translate(9, (PAD.top + h - PAD.bottom) / 2);
+      ctx.rotate(-Math.PI / 2);
+      ctx.textAlign = "center";
+      ctx.fillText(spec.yLabel, 0, 0);
+      ctx.restore();
     }
     ctx.strokeStyle = "#c9c3b8";
     ctx.strokeRect(PAD.left, PAD.top, w - PAD.left - PAD.right, h - PAD.top - PAD.bottom);
