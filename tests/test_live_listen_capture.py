@@ -313,6 +313,11 @@ def test_a_scripted_run_with_the_adc_capture_exits_normally(tmp_path, jack_serve
     assert done.returncode == 0, done.stderr
     print(done.stdout)
     assert "ADC capture (ADC 8 kHz, key c or 'capture on|off')" in done.stdout
+    # the stopband note judges the twin at the factor it runs at (the fidelity line's)
+    running = re.search(r"'antialias': twin at [0-9.]+ kHz \(oversampled (\d+)x", done.stdout)
+    judged = re.search(r"'antialias' twin at (\d+)x the recording's rate", done.stdout)
+    assert running and judged, done.stdout
+    assert judged.group(1) == running.group(1)
     assert "now: A as an ideal 8000 Hz ADC captures it" in done.stdout
     assert "now: A itself (ADC capture off)" in done.stdout
     assert "| ADC 8 kHz |" in done.stdout  # a status line while the capture was heard

@@ -399,8 +399,9 @@ def _prefilter(
     )
     if resampler is not None:
         say(
-            f"{info.path} is at {info.rate_hz:g} Hz: the twins run at that rate and the "
-            f"result is resampled to {rate_hz:g} Hz (x {up}/{down}) ahead of the stream"
+            f"{info.path} is at {info.rate_hz:g} Hz: the twins run at "
+            f"{'that rate' if factor == 1 else f'{factor}x that rate'} and the result is "
+            f"resampled to {rate_hz:g} Hz (x {up}/{down}) ahead of the stream"
         )
     if plan is not None:
         say(
@@ -481,8 +482,9 @@ def prepare(
         prefilter, plan = _prefilter(options, info, rate_hz, (sos, levels), say, over, steps)
         if plan is not None:
             for c in candidates:
+                # the twins run at the factor the band's rule picked: judge that one
                 for note in capture_mod.stopband_notes(c.label, c.design, info.rate_hz,
-                                                       plan.adc_rate_hz):  # fmt: skip
+                                                       plan.adc_rate_hz, factor):  # fmt: skip
                     say(note)
         captures = 0 if plan is None else len(sos) + 1
         feeder = _feeder(options, info, rate_hz, len(sos) + 1 + captures, prefilter)
