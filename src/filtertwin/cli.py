@@ -16,6 +16,7 @@ from typing import Any, NoReturn
 
 from filtertwin import __version__
 from filtertwin.commands.options import add_resampling, frequency_hz, oversampling
+from filtertwin.digital.factors import FACTOR_WORDS
 from filtertwin.errors import UserInputError
 
 SAFETY_NOTE = (
@@ -116,7 +117,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--oversample",
         type=oversampling,
         default=1,
-        help="twin oversampling: 1, 2, 4, 8, 16 or auto",
+        help=f"twin oversampling: {FACTOR_WORDS} or auto",
     )
     p.add_argument(
         "--noise-band", nargs=2, type=frequency_hz, metavar=("LO", "HI"),

@@ -165,6 +165,15 @@ class Filter:
         tagged[0] = (first, (self.polarity * b0, a0))
         return tagged
 
+    def amplifier_sections(self, amplifier: bool = True) -> list[bool]:
+        """For each section of :meth:`stage_sections`: True for a stage's amplifier section
+        (:func:`filtertwin.circuit.sallenkey.amplifier_section_flags`)."""
+        return [
+            flag
+            for stage in self.stages
+            for flag in sallenkey.amplifier_section_flags(stage.built if amplifier else stage.ideal)
+        ]
+
     @property
     def passband_db(self) -> float:
         """:attr:`passband_gain` in dB (its magnitude)."""

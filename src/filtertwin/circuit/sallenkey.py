@@ -428,6 +428,13 @@ def split_sections(model: StageModel) -> list[tuple[np.ndarray, np.ndarray]]:
     return [(num_rest * z / p, rest), (np.array([p / z, -p]), np.array([1.0, -p]))]
 
 
+def amplifier_section_flags(model: StageModel) -> list[bool]:
+    """For each section :func:`split_sections` makes of ``model``, in its order: True for the
+    amplifier's first-order section (the amplifier pole, with the zero its output resistance
+    adds), which comes last; False for the network part."""
+    return [False] if model.extra_pole_hz is None else [False, True]
+
+
 def response(sections: list[tuple[np.ndarray, np.ndarray]], f_hz: np.ndarray) -> np.ndarray:
     """Complex frequency response of a cascade of s-domain sections at ``f_hz``."""
     s = 2j * math.pi * np.asarray(f_hz, float)

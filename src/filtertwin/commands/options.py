@@ -14,6 +14,8 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+from filtertwin.digital.factors import FACTOR_WORDS, OVERSAMPLING_FACTORS
+
 
 def frequency_hz(text: str) -> float:
     """A positive frequency or rate: "48000", "8k", "2.2 kHz"."""
@@ -29,13 +31,13 @@ def frequency_hz(text: str) -> float:
 
 
 def oversampling(text: str) -> int | str:
-    """Twin oversampling: 1, 2, 4, 8, 16 or auto
-    (:data:`filtertwin.digital.twin.OVERSAMPLING_FACTORS`)."""
+    """Twin oversampling: one of :data:`filtertwin.digital.factors.OVERSAMPLING_FACTORS`, or
+    auto."""
     if text == "auto":
         return text
-    if text in ("1", "2", "4", "8", "16"):
+    if text in {str(f) for f in OVERSAMPLING_FACTORS}:
         return int(text)
-    raise argparse.ArgumentTypeError(f"must be 1, 2, 4, 8, 16 or auto, got {text!r}")
+    raise argparse.ArgumentTypeError(f"must be {FACTOR_WORDS} or auto, got {text!r}")
 
 
 RESAMPLING_HELP = (

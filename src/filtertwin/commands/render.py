@@ -21,6 +21,7 @@ from filtertwin.commands.options import (
     oversampling,
 )
 from filtertwin.commands.progress import ProgressLine
+from filtertwin.digital.factors import FACTOR_WORDS, OVERSAMPLING_FACTORS
 from filtertwin.errors import UserInputError
 
 SAFETY_LINE = (
@@ -60,10 +61,11 @@ def register(subparsers: Any) -> None:
         "--block", type=_block, default=16384, metavar="N", help="frames per block (default 16384)"
     )
     p.add_argument(
-        "--oversample", type=oversampling, default="auto", metavar="1|2|4|8|16|auto",
-        help="run the twin at 1, 2, 4, 8 or 16 times the input rate; auto (default) picks the "
-        "smallest factor whose fidelity (resampling filters included) is within 0.1 dB and "
-        "1 degree",
+        "--oversample", type=oversampling, default="auto",
+        metavar="|".join(map(str, OVERSAMPLING_FACTORS)) + "|auto",
+        help=f"run the twin at a multiple of the input rate ({FACTOR_WORDS}); auto (default) "
+        "picks the smallest factor whose fidelity (resampling filters included) is within "
+        "0.1 dB and 1 degree",
     )  # fmt: skip
     add_resampling(p)
     p.add_argument(

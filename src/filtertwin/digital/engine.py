@@ -80,9 +80,9 @@ _B0, _B1, _B2, _A1, _A2, _LEVEL, _STEP, _KIND = (row * _WIDTH for row in range(8
 _SEC_ROWS = 8
 _SEC_BLOCK = _SEC_ROWS * _WIDTH
 # Working memory: for each lane group and section (plus one slot for the cascade's output):
-# z0, z1, clamped-sample count, previous output, slewed-sample count, whether the last step
-# was limited (first lane), then the section's input for the frames of a step (a section's
-# outputs are the next slot's input)
+# z0, z1, clamped-sample count, previous output, slewed-sample count, whether the section's
+# last step was clamped or slewed (first lane), then the section's input for the frames of a
+# step (a section's outputs are the next slot's input)
 _Z0, _Z1, _COUNT, _PREV, _SLEWED, _LIMITING, _INPUT = (row * _WIDTH for row in range(7))
 _MEM_BLOCK = _INPUT + _FRAMES_PER_STEP * _WIDTH
 # the kernels: no limits, swing clamping only, swing clamping and slew limiting; and (a loop of
@@ -352,7 +352,7 @@ def _gather(x, start, frames, n_chains, mem, stage, width):
 def _section_frames(sec, mem, c, m, per_step, kind, keep_prev):
     """Run one section over its ``per_step`` staged frames (``kind`` and ``keep_prev`` are
     compile-time constants: the limits applied, and whether ``_PREV`` is kept). Returns True
-    if a slewing kind limited any step."""
+    if a clamping or slewing kind limited any sample."""
     b0, b1, b2 = _vload(sec, c + _B0), _vload(sec, c + _B1), _vload(sec, c + _B2)
     a1, a2 = _vload(sec, c + _A1), _vload(sec, c + _A2)
     z0, z1 = _vload(mem, m + _Z0), _vload(mem, m + _Z1)
@@ -500,9 +500,11 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, mode, per_step
                     _section_frames(sec, mem, c, m, per_step, _PLAIN, False)
                 else:
                     kind = sec[c + _KIND]
+                    # each limited kind tries its step without limits first, unless its last
+                    # step was limited (clipping and slewing come in runs); one shared helper
+                    # for both measured slower (1.69x against 1.50x slewing hard), so the two
+                    # stay written out
                     if mode == _SLEW and kind == _SLEW:
-                        # try without limits unless the last step was limited (slewing
-                        # comes in runs): the limited loop only where it is needed
                         if mem[m + _LIMITING] != 0.0 or not _section_fits(
                             sec, mem, c, m, per_step, True, True
                         ):
@@ -514,7 +516,6 @@ def _cascade_steps(sec, mem, frames, n_sections, n_groups, stage, mode, per_step
                                 )
                             mem[m + _LIMITING] = 1.0 if limiting else 0.0
                     elif kind >= _CLAMP:
-                        # as for slewing: clamp only the steps that need it
                         if mem[m + _LIMITING] != 0.0 or not _section_fits(
                             sec, mem, c, m, per_step, False, keep
                         ):
@@ -1195,7 +1196,7 @@ class CascadeRunner:
             )
         # one contiguous block for any length (not a slice of the full one): the kernels that
         # take the output next see one layout, and compile no new version for a short block
-        view = self._out.reshape(-1)[: self._out[:, :frames].size]
+        view = self._out.reshape(-1)[: self.n_chains * frames * self.channels]
         view = view.reshape(self.n_chains, frames, self.channels)
         self._views[frames] = view
         return view

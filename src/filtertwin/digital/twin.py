@@ -22,16 +22,12 @@ import numpy as np
 
 from filtertwin.circuit.design import Design, Filter
 from filtertwin.digital import resample
+from filtertwin.digital.factors import OVERSAMPLING_FACTORS
 from filtertwin.errors import UserInputError
 
 # A dB or degree difference means nothing this far below the peak: below it the complex
 # error relative to the peak is reported instead.
 FIDELITY_WINDOW_DB = 60.0
-# What ``auto`` tries, smallest first. The bilinear transform shifts a section's skirt in
-# frequency by about (pi^2 / 3) (f^2 - f0^2) / fs^2 (from tan(pi f / fs)), so each doubling
-# of the rate cuts the error four times: a 24 dB/octave skirt is 0.12 dB off at its -60 dB
-# point at 8x from 48 kHz (bookshelf-2way's woofer, 12.4 kHz) and 0.03 dB at 16x.
-OVERSAMPLING_FACTORS = (1, 2, 4, 8, 16)
 # the twin counts as faithful within these (magnitude dB, phase degrees) over the band
 FIDELITY_TOL_DB = 0.1
 FIDELITY_TOL_DEG = 1.0
@@ -263,15 +259,6 @@ def prewarp_hz(
     return fc
 
 
-def _has_amplifier_section(f: Filter, number: int, amplifier: bool) -> bool:
-    """Stage ``number`` ends in a first-order amplifier section
-    (:func:`filtertwin.circuit.sallenkey.split_sections`)."""
-    if not amplifier:
-        return False
-    stage = next(s for s in f.stages if s.index == number)
-    return stage.built.extra_pole_hz is not None
-
-
 def _filter_sos(f: Filter, rate_hz: float, amplifier: bool, band_top_hz: float, source: str):
     nyquist = rate_hz / 2
     rows, stage_of = [], []
@@ -283,10 +270,8 @@ def _filter_sos(f: Filter, rate_hz: float, amplifier: bool, band_top_hz: float, 
                 "twin; --oversample auto runs the twin at a multiple of the rate, or lower the "
                 "corner"
             )
-    tagged = f.stage_sections(amplifier)
-    for i, (number, (b, a)) in enumerate(tagged):
-        last_of_stage = i == len(tagged) - 1 or tagged[i + 1][0] != number
-        amplifier_section = last_of_stage and _has_amplifier_section(f, number, amplifier)
+    sections = zip(f.stage_sections(amplifier), f.amplifier_sections(amplifier), strict=True)
+    for (number, (b, a)), amplifier_section in sections:
         warp = prewarp_hz(b, a, rate_hz, band_top_hz, amplifier_section)
         rows.append(bilinear_section(b, a, rate_hz, warp))
         stage_of.append(number)

@@ -398,10 +398,10 @@ def _prefilter(
         sos, info.channels, CHUNK_FRAMES * factor, levels, slew_steps=steps
     )
     if resampler is not None:
+        twin_rate = "that rate" if factor == 1 else f"{factor}x that rate"
         say(
-            f"{info.path} is at {info.rate_hz:g} Hz: the twins run at "
-            f"{'that rate' if factor == 1 else f'{factor}x that rate'} and the result is "
-            f"resampled to {rate_hz:g} Hz (x {up}/{down}) ahead of the stream"
+            f"{info.path} is at {info.rate_hz:g} Hz: the twins run at {twin_rate} and the "
+            f"result is resampled to {rate_hz:g} Hz (x {up}/{down}) ahead of the stream"
         )
     if plan is not None:
         say(
